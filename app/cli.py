@@ -1,0 +1,179 @@
+"""The ``plumbline`` command."""
+
+from __future__ import annotations
+
+import sys
+
+import click
+
+from app import create_app
+
+
+def _app():
+    return create_app()
+
+
+@click.group(help="Plumbline: designed-experiment models, residual checks and sign-off.")
+def main() -> None:
+    pass
+
+
+# ---- database -----------------------------------------------------------------------------
+
+@main.group(help="Database schema.")
+def db() -> None:
+    pass
+
+
+@db.command("upgrade", help="Apply all migrations (creates the database when new).")
+@click.option("--revision", default="head", show_default=True)
+def db_upgrade(revision: str) -> None:
+    from app.store.migrate import upgrade
+
+    app = _app()
+    upgrade(app.config["DATABASE_URL"], revision)
+    click.echo(f"database at {revision}: {_redacted(app.config['DATABASE_URL'])}")
+
+
+def _redacted(url: str) -> str:
+    from sqlalchemy.engine import make_url
+
+    return make_url(url).render_as_string(hide_password=True)
+
+
+# ---- users --------------------------------------------------------------------------------
+
+@main.group(help="User accounts.")
+def users() -> None:
+    pass
+
+
+def _fail(message: str) -> None:
+    click.echo(f"error: {message}", err=True)
+    sys.exit(2)
+
+
+@users.command("add")
+@click.argument("username")
+@click.option("--name", "full_name", required=True, help="Full name, printed with signatures.")
+@click.option("--roles", required=True, help="Comma-separated: engineer,approver,auditor,admin.")
+@click.option("--password-stdin", is_flag=True, help="Read the password from standard input.")
+@click.option("--one-time", is_flag=True, help="The user must change it at first sign-in.")
+def users_add(username: str, full_name: str, roles: str, password_stdin: bool,
+              one_time: bool) -> None:
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    if password_stdin:
+        password = sys.stdin.readline().rstrip("\r\n")
+    else:
+        password = click.prompt("Password", hide_input=True, confirmation_prompt=True)
+    app = _app()
+    try:
+        with database(app).transaction() as s:
+            user = accounts.create_user(s, None, username=username, full_name=full_name,
+                                        roles=roles, password=password, one_time=one_time)
+            click.echo(f"added {user.username} ({user.full_name}): {user.roles}")
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
+@users.command("list")
+def users_list() -> None:
+    from sqlalchemy import select
+
+    from app.store.db import database
+    from app.store.models import User
+
+    app = _app()
+    with database(app).session(write=False) as s:
+        for u in s.scalars(select(User).order_by(User.username)):
+            state = "active" if u.active else "deactivated"
+            click.echo(f"{u.username}\t{u.full_name}\t{u.roles}\t{state}")
+
+
+@users.command("set-roles")
+@click.argument("username")
+@click.argument("roles")
+def users_set_roles(username: str, roles: str) -> None:
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    try:
+        with database(_app()).transaction() as s:
+            user = accounts.set_roles(s, None, username, roles)
+            click.echo(f"{user.username}: {user.roles}")
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
+@users.command("deactivate")
+@click.argument("username")
+def users_deactivate(username: str) -> None:
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    try:
+        with database(_app()).transaction() as s:
+            accounts.set_active(s, None, username, False)
+            click.echo(f"{username}: deactivated; sessions and tokens revoked")
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
+# ---- tokens -------------------------------------------------------------------------------
+
+@main.group(help="Personal API tokens.")
+def tokens() -> None:
+    pass
+
+
+@tokens.command("create")
+@click.argument("username")
+@click.option("--name", default="command line", show_default=True)
+def tokens_create(username: str, name: str) -> None:
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    try:
+        with database(_app()).transaction() as s:
+            user = accounts.get_user(s, username)
+            _token, raw = accounts.create_token(s, None, user, name)
+    except WorkflowError as exc:
+        _fail(exc.message)
+    click.echo(raw)
+
+
+# ---- demo and server ----------------------------------------------------------------------
+
+@main.group(help="The demonstration scenario.")
+def demo() -> None:
+    pass
+
+
+@demo.command("load")
+@click.option("--if-empty", is_flag=True, help="Do nothing when the database already has users.")
+def demo_load(if_empty: bool) -> None:
+    from app.demo import load_demo
+
+    app = _app()
+    lines = load_demo(app, only_if_empty=if_empty)
+    for line in lines:
+        click.echo(line)
+
+
+@main.command("serve", help="Serve the application with waitress (never in debug mode).")
+@click.option("--host", default="127.0.0.1", show_default=True)
+@click.option("--port", default=5000, show_default=True, type=int)
+@click.option("--threads", default=8, show_default=True, type=int)
+def serve(host: str, port: int, threads: int) -> None:
+    import waitress
+
+    app = _app()
+    app.debug = False
+    if app.config.get("BEHIND_PROXY"):
+        from werkzeug.middleware.proxy_fix import ProxyFix
+
+        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
+    click.echo(f"Plumbline on http://{host}:{port}/")
+    waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")

@@ -1,0 +1,25 @@
+"""Default settings. Override in instance/config.py or with PLUMBLINE_<NAME> variables."""
+
+from __future__ import annotations
+
+DEFAULTS: dict[str, object] = {
+    # SQLite file in the instance folder unless PLUMBLINE_DATABASE_URL names another database.
+    "DATABASE_URL": None,
+    "SECRET_KEY": None,
+    "SOFTWARE_VERSION": None,
+    # OWASP ASVS 5 (V11.4) floor for argon2id is 19 MiB and 2 iterations; we default above it
+    # (RFC 9106's second recommended option, 64 MiB, t=3).
+    "ARGON2_MEMORY_KIB": 65536,
+    "ARGON2_TIME_COST": 3,
+    "ARGON2_PARALLELISM": 1,
+    "SESSION_IDLE_MINUTES": 30,
+    "SESSION_MAX_HOURS": 12,
+    "MAX_UPLOAD_BYTES": 20_000_000,
+    "MAX_UPLOAD_CELLS": 2_000_000,
+    "SESSION_COOKIE_NAME": "plumbline",
+    "SESSION_COOKIE_HTTPONLY": True,
+    "SESSION_COOKIE_SAMESITE": "Lax",
+    "SESSION_COOKIE_SECURE": False,
+    "BEHIND_PROXY": False,
+    "SQLITE_BUSY_TIMEOUT_MS": 15000,
+}

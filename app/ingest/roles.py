@@ -1,0 +1,170 @@
+"""What each column of an upload means, and a first guess at it for the user to confirm."""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import asdict, dataclass
+
+from .errors import IngestError
+from .raw import RawTable, parse_number
+
+ROLES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
+COVARIATE_KINDS = ("numeric", "categorical")
+
+# Header words that say what a column is. Matched against the lower-cased name with
+# punctuation turned into spaces.
+_RUN_ORDER_NAMES = {"run", "run order", "runorder", "run no", "run number", "run nr", "order",
+                    "run sequence", "sequence", "run seq"}
+# Standard order is the design's bookkeeping, not the order runs were made in; treating it as
+# run order would make the time-order checks look at the wrong sequence.
+_STANDARD_ORDER_NAMES = {"std order", "std", "standard order", "std run", "stdorder"}
+_BLOCK_NAMES = {"block", "blocks", "blk", "block no", "block number"}
+_LABEL_NAMES = {"id", "label", "name", "run label", "run id", "run name", "sample", "sample id"}
+_COVARIATE_WORDS = {"humidity", "ambient", "operator", "lot", "batch", "shift", "room",
+                    "covariate", "analyst", "supplier", "instrument", "weather"}
+_UNITS = re.compile(r"^(?P<name>.*?)\s*[\(\[](?P<units>[^()\[\]]+)[\)\]]\s*$")
+# A factor has few distinct settings; more than this and the column is read as a measurement.
+_MAX_FACTOR_LEVELS = 5
+
+
+@dataclass(frozen=True)
+class ColumnRole:
+    """The role of one column.
+
+    Attributes
+    ----------
+    role : {"factor", "response", "run_order", "block", "covariate", "label", "ignore"}
+    units : str or None
+    low, high : float or None
+        Factors only: declared low and high levels in actual units, the ones coded -1 and +1.
+        Both None means the column already holds coded values.
+    kind : {"numeric", "categorical"} or None
+        Covariates only.
+    """
+
+    role: str
+    units: str | None = None
+    low: float | None = None
+    high: float | None = None
+    kind: str | None = None
+
+    def __post_init__(self):
+        if self.role not in ROLES:
+            raise IngestError.single(
+                f"Role '{self.role}' is not known; use one of {', '.join(ROLES)}.")
+        if self.kind is not None and self.kind not in COVARIATE_KINDS:
+            raise IngestError.single(
+                f"Covariate kind '{self.kind}' is not known; use numeric or categorical.")
+
+    def to_dict(self) -> dict:
+        """Return all fields as a JSON-able dict."""
+        return asdict(self)
+
+    @classmethod
+    def from_dict(cls, d: dict) -> ColumnRole:
+        """Build from :meth:`to_dict` output; unknown keys or non-numeric levels are refused."""
+        if not isinstance(d, dict) or "role" not in d:
+            raise IngestError.single("A column role needs a 'role' field.")
+        unknown = set(d) - {"role", "units", "low", "high", "kind"}
+        if unknown:
+            raise IngestError.single(
+                f"Column role has unknown field(s): {', '.join(sorted(unknown))}.")
+        levels = {}
+        for key in ("low", "high"):
+            value = d.get(key)
+            if value is not None and (isinstance(value, bool)
+                                      or not isinstance(value, int | float)):
+                raise IngestError.single(f"Field '{key}' must be a number, not {value!r}.")
+            levels[key] = None if value is None else float(value)
+        return cls(role=d["role"], units=d.get("units"), kind=d.get("kind"), **levels)
+
+
+def _plain(name: str) -> str:
+    return " ".join(re.sub(r"[^0-9a-z]+", " ", name.lower()).split())
+
+
+def split_units(name: str) -> tuple[str, str | None]:
+    """Split ``"Temperature (°C)"`` or ``"Time [min]"`` into the name and its units."""
+    match = _UNITS.match(name)
+    if match and match.group("name"):
+        return match.group("name"), match.group("units").strip()
+    return name, None
+
+
+def suggest_levels(values: list[float]) -> tuple[float, float]:
+    """Suggest the declared low and high levels (coded -1, +1) from a factor's settings.
+
+    With five distinct levels placed symmetrically about the centre (a central composite
+    design: -alpha, -1, 0, +1, +alpha) the second-smallest and second-largest are the cube
+    levels; otherwise the smallest and largest are used (two-level designs, with or without
+    centre points, and Box-Behnken designs). Verified on the demo designs in ``tests/ingest``.
+    """
+    levels = sorted(set(values))
+    if len(levels) == 5:
+        span = levels[-1] - levels[0]
+        centre = levels[2]
+        if (math.isclose(levels[0] + levels[4], 2 * centre, abs_tol=1e-6 * span)
+                and math.isclose(levels[1] + levels[3], 2 * centre, abs_tol=1e-6 * span)):
+            return levels[1], levels[3]
+    return levels[0], levels[-1]
+
+
+def _numbers(cells: list[str], decimal: str) -> list[float] | None:
+    parsed = [parse_number(c, decimal) for c in cells]
+    return None if any(v is None for v in parsed) else parsed
+
+
+def _once(role: str, units: str | None, taken: set[str]) -> ColumnRole:
+    """The role for the first column that claims it; later claimants are ignored."""
+    if role in taken:
+        return ColumnRole("ignore", units=units)
+    taken.add(role)
+    return ColumnRole(role, units=units)
+
+
+def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
+    """Guess a role for every column; the user confirms or changes each one.
+
+    Rules, in order: header words for run order, block and label; standard-order columns are
+    ignored; empty or single-valued columns are ignored; numeric columns with at most five
+    distinct values (and no more than half as many as there are rows) are factors with levels
+    from :func:`suggest_levels`; numeric columns whose header names a recorded condition
+    (humidity, operator, lot ...) are numeric covariates; other numeric columns are responses;
+    text columns repeating values are categorical covariates, and a text column with a value
+    per row is the label. Units written in brackets after the header name are carried over.
+    """
+    roles: dict[str, ColumnRole] = {}
+    taken: set[str] = set()
+    n = raw.n_rows
+    for column in raw.frame.columns:
+        bare, units = split_units(column)
+        plain = _plain(bare)
+        words = set(plain.split())
+        cells = [c for c in raw.frame[column].tolist() if c is not None]
+        numbers = _numbers(cells, raw.decimal) if cells else None
+        distinct = len(set(numbers if numbers is not None else cells))
+
+        if plain in _STANDARD_ORDER_NAMES:
+            roles[column] = ColumnRole("ignore", units=units)
+        elif plain in _RUN_ORDER_NAMES and numbers is not None:
+            roles[column] = _once("run_order", units, taken)
+        elif plain in _BLOCK_NAMES:
+            roles[column] = _once("block", units, taken)
+        elif plain in _LABEL_NAMES or plain.endswith((" id", " label")):
+            roles[column] = _once("label", units, taken)
+        elif distinct <= 1:
+            roles[column] = ColumnRole("ignore", units=units)
+        elif numbers is not None:
+            if words & _COVARIATE_WORDS:
+                roles[column] = ColumnRole("covariate", units=units, kind="numeric")
+            elif (len(cells) == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n):
+                low, high = suggest_levels(numbers)
+                roles[column] = ColumnRole("factor", units=units, low=low, high=high)
+            else:
+                roles[column] = ColumnRole("response", units=units)
+        elif distinct < len(cells):
+            roles[column] = ColumnRole("covariate", units=units, kind="categorical")
+        else:
+            roles[column] = _once("label", units, taken)
+    return roles

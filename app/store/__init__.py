@@ -1,0 +1,1 @@
+"""Storage: SQLAlchemy tables, engine and sessions, the audit chain."""

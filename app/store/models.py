@@ -1,0 +1,221 @@
+"""Typed tables. Rows that a signature or the audit trail relies on are never updated in place."""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+from sqlalchemy import (
+    Boolean,
+    Float,
+    ForeignKey,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import Mapped, mapped_column, relationship
+
+from app.store.base import Base, UTCDateTime, utcnow
+
+ROLES = ("engineer", "approver", "auditor", "admin")
+
+
+class User(Base):
+    __tablename__ = "users"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), unique=True)
+    full_name: Mapped[str] = mapped_column(String(200))
+    password_hash: Mapped[str] = mapped_column(String(200))
+    roles: Mapped[str] = mapped_column(String(200), default="")
+    active: Mapped[bool] = mapped_column(Boolean, default=True)
+    # Set for a password someone else chose (a one-time password): change it at first sign-in.
+    must_change_password: Mapped[bool] = mapped_column(Boolean, default=False)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    password_changed_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    sessions: Mapped[list[UserSession]] = relationship(back_populates="user")
+
+    @property
+    def role_set(self) -> frozenset[str]:
+        return frozenset(r for r in self.roles.split(",") if r)
+
+    def has_role(self, *roles: str) -> bool:
+        return bool(self.role_set.intersection(roles))
+
+
+class UserSession(Base):
+    """A server-side login session; the cookie holds a random token whose SHA-256 is the key."""
+
+    __tablename__ = "user_sessions"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    last_seen_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+    remote_addr: Mapped[str | None] = mapped_column(String(64))
+
+    user: Mapped[User] = relationship(back_populates="sessions")
+
+
+class ApiToken(Base):
+    __tablename__ = "api_tokens"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    name: Mapped[str] = mapped_column(String(100))
+    token_sha256: Mapped[str] = mapped_column(String(64), unique=True)
+    prefix: Mapped[str] = mapped_column(String(16))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+    last_used_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+
+    user: Mapped[User] = relationship()
+
+
+class LoginFailure(Base):
+    """Recent failed logins, by account and by address, for throttling."""
+
+    __tablename__ = "login_failures"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    username: Mapped[str] = mapped_column(String(64), index=True)
+    remote_addr: Mapped[str | None] = mapped_column(String(64), index=True)
+    at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow, index=True)
+
+
+class Study(Base):
+    __tablename__ = "studies"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    title: Mapped[str] = mapped_column(String(200))
+    purpose: Mapped[str] = mapped_column(Text, default="")
+    process: Mapped[str] = mapped_column(Text, default="")
+    owner_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    review_below: Mapped[float] = mapped_column(Float, default=0.05)
+    fail_below: Mapped[float] = mapped_column(Float, default=0.01)
+
+    owner: Mapped[User] = relationship()
+    data_versions: Mapped[list[DataVersion]] = relationship(
+        back_populates="study", order_by="DataVersion.version"
+    )
+
+
+class DataVersion(Base):
+    """An immutable upload: original bytes and the canonical table, each with its SHA-256."""
+
+    __tablename__ = "data_versions"
+    __table_args__ = (UniqueConstraint("study_id", "version"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    version: Mapped[int] = mapped_column(Integer)
+    filename: Mapped[str] = mapped_column(String(255))
+    file_kind: Mapped[str] = mapped_column(String(8))
+    sheet: Mapped[str | None] = mapped_column(String(255))
+    original_bytes: Mapped[bytes] = mapped_column(LargeBinary)
+    original_sha256: Mapped[str] = mapped_column(String(64))
+    canonical_csv: Mapped[bytes] = mapped_column(LargeBinary)
+    canonical_sha256: Mapped[str] = mapped_column(String(64))
+    roles_json: Mapped[str] = mapped_column(Text)
+    read_info_json: Mapped[str] = mapped_column(Text, default="{}")
+    n_rows: Mapped[int] = mapped_column(Integer)
+    reason: Mapped[str | None] = mapped_column(Text)
+    created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    study: Mapped[Study] = relationship(back_populates="data_versions")
+    created_by: Mapped[User] = relationship()
+
+
+FIT_STATES = ("draft", "submitted", "approved", "returned", "superseded", "withdrawn")
+
+
+class Fit(Base):
+    """A fit snapshot: inputs, results, thresholds and software version, hashed once at creation.
+
+    Only ``state``, ``row_version`` and the submission fields change later, and only by
+    conditional updates on (state, row_version).
+    """
+
+    __tablename__ = "fits"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    data_version_id: Mapped[int] = mapped_column(ForeignKey("data_versions.id"), index=True)
+    response: Mapped[str] = mapped_column(String(200))
+    spec_json: Mapped[str] = mapped_column(Text)
+    results_json: Mapped[str] = mapped_column(Text)
+    thresholds_json: Mapped[str] = mapped_column(Text)
+    software_version: Mapped[str] = mapped_column(String(64))
+    snapshot_sha256: Mapped[str] = mapped_column(String(64))
+    state: Mapped[str] = mapped_column(String(16), default="draft")
+    row_version: Mapped[int] = mapped_column(Integer, default=1)
+    created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    submitted_by_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    submitted_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+
+    study: Mapped[Study] = relationship()
+    data_version: Mapped[DataVersion] = relationship()
+    created_by: Mapped[User] = relationship(foreign_keys=[created_by_id])
+    submitted_by: Mapped[User | None] = relationship(foreign_keys=[submitted_by_id])
+    signatures: Mapped[list[Signature]] = relationship(
+        back_populates="fit", order_by="Signature.id"
+    )
+
+
+class Signature(Base):
+    """An electronic signature: who, printed name, server UTC time, meaning, what was signed."""
+
+    __tablename__ = "signatures"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    fit_id: Mapped[int | None] = mapped_column(ForeignKey("fits.id"), index=True)
+    setpoint_id: Mapped[int | None] = mapped_column(Integer, index=True)
+    signer_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    printed_name: Mapped[str] = mapped_column(String(200))
+    signed_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    meaning: Mapped[str] = mapped_column(String(100))
+    comment: Mapped[str] = mapped_column(Text, default="")
+    snapshot_sha256: Mapped[str] = mapped_column(String(64))
+    # SHA-256 over (signer, name, time, meaning, comment, snapshot hash): binds the manifest.
+    manifest_sha256: Mapped[str] = mapped_column(String(64))
+
+    fit: Mapped[Fit | None] = relationship(back_populates="signatures")
+    signer: Mapped[User] = relationship()
+
+
+class AuditEvent(Base):
+    """One link of the hash chain. Triggers refuse UPDATE and DELETE on this table."""
+
+    __tablename__ = "audit_events"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer, unique=True)
+    at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    actor_id: Mapped[int | None] = mapped_column(Integer)
+    actor_name: Mapped[str] = mapped_column(String(200))
+    action: Mapped[str] = mapped_column(String(64), index=True)
+    object_type: Mapped[str] = mapped_column(String(32))
+    object_id: Mapped[str | None] = mapped_column(String(64))
+    study_id: Mapped[int | None] = mapped_column(Integer, index=True)
+    old_json: Mapped[str | None] = mapped_column(Text)
+    new_json: Mapped[str | None] = mapped_column(Text)
+    reason: Mapped[str | None] = mapped_column(Text)
+    prev_hash: Mapped[str] = mapped_column(String(64))
+    hash: Mapped[str] = mapped_column(String(64), unique=True)
+
+
+class ChainHead(Base):
+    """A single row locked by every audit append, so appends are serialized on any database."""
+
+    __tablename__ = "chain_head"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    seq: Mapped[int] = mapped_column(Integer, default=0)
+    hash: Mapped[str] = mapped_column(String(64))

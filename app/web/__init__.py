@@ -1,0 +1,65 @@
+"""Web layer: blueprints by feature, access control, security headers, error pages."""
+
+from __future__ import annotations
+
+from flask import Flask, g, jsonify, render_template, request
+from werkzeug.exceptions import HTTPException
+
+from app.workflow import WorkflowError
+from app.web.access import csrf_token, enforce_access, is_api
+
+# Vega runs with its expression interpreter (vega-interpreter), so no 'unsafe-eval' is needed.
+# Vega sets style attributes on the SVG it draws, hence 'unsafe-inline' for styles only.
+CSP = ("default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline'; "
+       "img-src 'self' data:; object-src 'none'; base-uri 'self'; form-action 'self'; "
+       "frame-ancestors 'none'")
+
+
+def _security_headers(response):
+    response.headers.setdefault("Content-Security-Policy", CSP)
+    response.headers.setdefault("X-Content-Type-Options", "nosniff")
+    response.headers.setdefault("Referrer-Policy", "same-origin")
+    response.headers.setdefault("X-Frame-Options", "DENY")
+    if request.path.startswith("/api/") or getattr(g, "user", None) is not None:
+        response.headers.setdefault("Cache-Control", "no-store")
+    return response
+
+
+def _error(exc: Exception):
+    if isinstance(exc, WorkflowError):
+        status, message = exc.status, exc.message
+        if is_api():
+            body = {"error": message, "status": status}
+            if exc.field:
+                body["field"] = exc.field
+            return jsonify(body), status
+        return render_template("error.html", status=status, message=message), status
+    if isinstance(exc, HTTPException):
+        if exc.response is not None:
+            return exc.response
+        status, message = exc.code or 500, exc.description
+    else:
+        status, message = 500, "Something went wrong on the server. It has been logged."
+        from flask import current_app
+
+        current_app.logger.exception("unhandled error")
+    if status >= 500:
+        message = "Something went wrong on the server. It has been logged."
+    if is_api():
+        return jsonify({"error": message, "status": status}), status
+    return render_template("error.html", status=status, message=message), status
+
+
+def register(app: Flask) -> None:
+    from app.web import account, admin, auth, data, studies
+
+    app.before_request(enforce_access)
+    app.after_request(_security_headers)
+    app.register_error_handler(WorkflowError, _error)
+    app.register_error_handler(HTTPException, _error)
+    app.register_error_handler(Exception, _error)
+    app.jinja_env.globals["csrf_token"] = csrf_token
+    for module in (auth, account, admin, studies, data):
+        app.register_blueprint(module.bp)
+    app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
+        "%Y-%m-%d %H:%M:%S UTC")

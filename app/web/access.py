@@ -1,0 +1,125 @@
+"""Deny by default: every view declares who may use it; the check runs before every request."""
+
+from __future__ import annotations
+
+import secrets
+from collections.abc import Callable
+from datetime import timedelta
+from typing import TypeVar
+
+from flask import abort, current_app, flash, g, jsonify, redirect, request, session, url_for
+from sqlalchemy import update
+
+from app.store.base import utcnow
+from app.store.db import WRITE_METHODS, database
+from app.store.models import UserSession
+from app.workflow import accounts
+
+F = TypeVar("F", bound=Callable)
+PUBLIC = "public"
+SIGNED_IN = "signed-in"
+ROLES_ATTR = "_plumbline_roles"
+PASSWORD_CHANGE_ENDPOINTS = frozenset({"account.page", "account.change_password", "auth.logout"})
+
+
+def allow(*roles: str) -> Callable[[F], F]:
+    """Declare the roles (or PUBLIC / SIGNED_IN) that may call a view."""
+    if not roles:
+        raise ValueError("allow() needs at least one role")
+
+    def mark(view: F) -> F:
+        setattr(view, ROLES_ATTR, frozenset(roles))
+        return view
+
+    return mark
+
+
+def allowed_roles(endpoint: str | None) -> frozenset[str] | None:
+    if endpoint is None:
+        return None
+    if endpoint == "static":
+        return frozenset({PUBLIC})
+    view = current_app.view_functions.get(endpoint)
+    return getattr(view, ROLES_ATTR, None)
+
+
+def csrf_token() -> str:
+    token = session.get("csrf")
+    if not token:
+        token = session["csrf"] = secrets.token_urlsafe(32)
+    return token
+
+
+def is_api() -> bool:
+    return request.path.startswith("/api/")
+
+
+def _deny(status: int, message: str):
+    if is_api():
+        response = jsonify({"error": message, "status": status})
+        response.status_code = status
+        abort(response)
+    abort(status, description=message)
+
+
+def _load_user() -> None:
+    g.user, g.via_token = None, False
+    db = database()
+    auth = request.headers.get("Authorization", "")
+    if auth.startswith("Bearer "):
+        with db.session(write=False) as s:
+            g.user = accounts.token_user(s, auth[7:].strip())
+        g.via_token = True
+        return
+    token = session.get("sid")
+    if not token:
+        return
+    cfg = current_app.config
+    now = utcnow()
+    with db.session(write=False) as s:
+        found = accounts.session_user(
+            s, token, idle=timedelta(minutes=int(cfg["SESSION_IDLE_MINUTES"])),
+            max_age=timedelta(hours=int(cfg["SESSION_MAX_HOURS"])), now=now)
+    if found is None:
+        session.pop("sid", None)
+        return
+    g.user, row = found
+    # Touch at most once a minute so that reading pages is not a write per request.
+    if (now - row.last_seen_at).total_seconds() > 60:
+        with db.transaction() as s:
+            s.execute(update(UserSession).where(UserSession.id == row.id)
+                      .values(last_seen_at=now))
+
+
+def enforce_access():
+    """before_request: identify the user, check the view's declared roles, check CSRF."""
+    roles = allowed_roles(request.endpoint)
+    if request.endpoint is None:
+        return None  # routing will answer 404/405
+    if request.endpoint == "static":
+        return None
+    _load_user()
+    if roles is None:
+        # A route without a declaration is refused for everyone (and fails the route tests).
+        _deny(403, "This page has no access rule and is refused.")
+    if request.method in WRITE_METHODS and not g.via_token:
+        sent = request.headers.get("X-CSRF-Token") or request.form.get("csrf_token")
+        expected = session.get("csrf")
+        if not expected or not sent or not secrets.compare_digest(sent, expected):
+            _deny(400, "The form's security token is missing or expired; reload the page and "
+                       "try again.")
+    if PUBLIC in roles:
+        return None
+    if g.user is not None and g.user.must_change_password and request.endpoint not in PASSWORD_CHANGE_ENDPOINTS:
+        if is_api() or g.via_token:
+            _deny(403, "Change your one-time password on your account page first.")
+        flash("Choose a new password to replace the one-time password you were given.")
+        return redirect(url_for("account.page"))
+    if g.user is None:
+        if is_api() or g.via_token:
+            _deny(401, "Sign in or send a valid API token (Authorization: Bearer).")
+        return redirect(url_for("auth.login", next=request.full_path.rstrip("?")))
+    if SIGNED_IN in roles or g.user.has_role(*roles):
+        return None
+    _deny(403, "Your roles do not allow this. Needed: " + ", ".join(sorted(roles)) + ".")
+    return None

@@ -1,0 +1,187 @@
+"""Upload → preview with suggested roles → confirm → immutable data version."""
+
+from __future__ import annotations
+
+import json
+
+from flask import (Blueprint, Response, abort, current_app, flash, g, redirect, render_template,
+                   request, url_for)
+from sqlalchemy import select
+
+from app.ingest import ColumnRole, IngestError, RawTable, UploadTooLarge, read_upload, suggest_roles
+from app.store.db import get_session
+from app.store.models import DataVersion, Fit
+from app.web import staging
+from app.web.access import SIGNED_IN, allow
+from app.web.common import me, tx
+from app.workflow import WorkflowError, studies, uploads
+
+bp = Blueprint("data", __name__)
+
+ROLE_CHOICES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
+PREVIEW_ROWS = 25
+
+
+def _limits() -> dict[str, int]:
+    cfg = current_app.config
+    return {"max_bytes": int(cfg["MAX_UPLOAD_BYTES"]), "max_cells": int(cfg["MAX_UPLOAD_CELLS"])}
+
+
+def _has_versions(study_id: int) -> bool:
+    return get_session().scalar(select(DataVersion.id).where(DataVersion.study_id == study_id)
+                                .limit(1)) is not None
+
+
+@bp.route("/studies/<int:study_id>/upload", methods=["GET"])
+@allow("engineer")
+def upload_form(study_id: int):
+    study = studies.get_study(get_session(), study_id)
+    return render_template("data/upload.html", study=study, problems=[],
+                           needs_reason=_has_versions(study_id))
+
+
+@bp.route("/studies/<int:study_id>/upload", methods=["POST"])
+@allow("engineer")
+def upload(study_id: int):
+    study = studies.get_study(get_session(), study_id)
+    file = request.files.get("file")
+    if file is None or not file.filename:
+        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
+                               problems=[{"message": "Choose a file to upload (field 'file')."}]), 400
+    data = file.read()
+    try:
+        raw = read_upload(data, file.filename, None, **_limits())
+    except UploadTooLarge as exc:
+        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
+                               problems=[p.to_dict() for p in exc.problems]), 413
+    except IngestError as exc:
+        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
+                               problems=[p.to_dict() for p in exc.problems]), 400
+    token = staging.stage(data, file.filename, g.user.id, study_id)
+    return redirect(url_for("data.preview", study_id=study_id, token=token,
+                            sheet=raw.sheet or None))
+
+
+def _staged_raw(study_id: int, token: str, sheet: str | None):
+    staged = staging.load(token, g.user.id, study_id)
+    if staged is None:
+        abort(404, description="That upload has expired or belongs to someone else; upload the "
+                               "file again.")
+    return staged, read_upload(staged.data, staged.filename, sheet or None, **_limits())
+
+
+def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole], problems, status=200):
+    head = raw.frame.head(PREVIEW_ROWS)
+    return render_template(
+        "data/preview.html", study=study, staged=staged, raw=raw, roles=roles,
+        columns=list(raw.frame.columns), rows=head.itertuples(), n_rows=len(raw.frame),
+        role_choices=ROLE_CHOICES, problems=problems, needs_reason=_has_versions(study.id),
+        reason=request.form.get("reason", "")), status
+
+
+@bp.route("/studies/<int:study_id>/upload/<token>", methods=["GET"])
+@allow("engineer")
+def preview(study_id: int, token: str):
+    study = studies.get_study(get_session(), study_id)
+    try:
+        staged, raw = _staged_raw(study_id, token, request.args.get("sheet"))
+    except IngestError as exc:
+        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
+                               problems=[p.to_dict() for p in exc.problems]), 400
+    return _preview_page(study, staged, raw, suggest_roles(raw), [])
+
+
+def roles_from_form(form, columns: list[str]) -> dict[str, ColumnRole]:
+    """Column roles as the user confirmed them; a bad number names its column."""
+    roles: dict[str, ColumnRole] = {}
+    problems = []
+    for i, name in enumerate(columns):
+        role = form.get(f"role_{i}", "ignore")
+        if role not in ROLE_CHOICES:
+            problems.append(f"Column '{name}': unknown role '{role}'.")
+            role = "ignore"
+        levels: dict[str, float | None] = {}
+        for key in ("low", "high"):
+            text = (form.get(f"{key}_{i}") or "").strip()
+            if role == "factor" and text:
+                try:
+                    levels[key] = float(text.replace(",", "."))
+                except ValueError:
+                    problems.append(f"Column '{name}': declared {key} level '{text}' is not a "
+                                    "number.")
+        roles[name] = ColumnRole(role=role, units=(form.get(f"units_{i}") or "").strip() or None,
+                                 low=levels.get("low"), high=levels.get("high"),
+                                 kind=(form.get(f"kind_{i}") or "numeric")
+                                 if role == "covariate" else None)
+    if problems:
+        from app.ingest import Problem
+
+        raise IngestError([Problem(message=m, row=None, column=None) for m in problems])
+    return roles
+
+
+@bp.route("/studies/<int:study_id>/upload/<token>", methods=["POST"])
+@allow("engineer")
+def confirm(study_id: int, token: str):
+    session = get_session()
+    study = studies.get_study(session, study_id)
+    sheet = request.form.get("sheet") or None
+    staged, raw = _staged_raw(study_id, token, sheet)
+    columns = list(raw.frame.columns)
+    try:
+        roles = roles_from_form(request.form, columns)
+    except IngestError as exc:
+        return _preview_page(study, staged, raw, suggest_roles(raw),
+                             [p.to_dict() for p in exc.problems], 400)
+    try:
+        from app.ingest import validate
+
+        table = validate(raw, roles)
+        with tx() as s:
+            version = uploads.add_data_version(
+                s, me(s), studies.get_study(s, study_id), data=staged.data,
+                filename=staged.filename, raw=raw, table=table,
+                reason=request.form.get("reason"))
+    except IngestError as exc:
+        return _preview_page(study, staged, raw, roles, [p.to_dict() for p in exc.problems], 400)
+    except WorkflowError as exc:
+        return _preview_page(study, staged, raw, roles, [{"message": exc.message,
+                                                          "column": exc.field}], exc.status)
+    staging.discard(token)
+    flash(f"Data version {version.version} stored ({version.n_rows} runs).")
+    return redirect(url_for("data.view", version_id=version.id))
+
+
+@bp.route("/data/<int:version_id>")
+@allow(SIGNED_IN)
+def view(version_id: int):
+    session = get_session()
+    version = uploads.get_data_version(session, version_id)
+    table = uploads.design_table(version)
+    fits = list(session.scalars(select(Fit).where(Fit.data_version_id == version.id)
+                                .order_by(Fit.created_at.desc())))
+    return render_template("data/view.html", version=version, study=version.study, table=table,
+                           roles=json.loads(version.roles_json), fits=fits,
+                           read_info=json.loads(version.read_info_json))
+
+
+def _download(body: bytes, filename: str, mimetype: str) -> Response:
+    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in filename) or "download"
+    response = Response(body, mimetype=mimetype)
+    response.headers["Content-Disposition"] = f'attachment; filename="{safe}"'
+    return response
+
+
+@bp.route("/data/<int:version_id>/original")
+@allow(SIGNED_IN)
+def original(version_id: int):
+    version = uploads.get_data_version(get_session(), version_id)
+    return _download(version.original_bytes, version.filename, "application/octet-stream")
+
+
+@bp.route("/data/<int:version_id>/canonical.csv")
+@allow(SIGNED_IN)
+def canonical(version_id: int):
+    version = uploads.get_data_version(get_session(), version_id)
+    name = f"study{version.study_id}_v{version.version}_canonical.csv"
+    return _download(version.canonical_csv, name, "text/csv")

@@ -1,0 +1,68 @@
+"""Studies: list, create, view, thresholds."""
+
+from __future__ import annotations
+
+from flask import Blueprint, flash, redirect, render_template, request, url_for
+from sqlalchemy import select
+
+from app.store.db import get_session
+from app.store.models import Fit
+from app.web.access import SIGNED_IN, allow
+from app.web.common import float_field, me, tx
+from app.workflow import WorkflowError, studies
+
+bp = Blueprint("studies", __name__, url_prefix="/studies")
+
+
+@bp.route("/")
+@allow(SIGNED_IN)
+def index():
+    return render_template("studies/index.html", studies=studies.list_studies(get_session()))
+
+
+@bp.route("/new", methods=["GET", "POST"])
+@allow("engineer")
+def create():
+    if request.method == "GET":
+        return render_template("studies/new.html", form={})
+    form = request.form
+    try:
+        with tx() as s:
+            study = studies.create_study(
+                s, me(s), title=form.get("title", ""), purpose=form.get("purpose", ""),
+                process=form.get("process", ""),
+                review_below=float_field(form, "review_below", "Review below", 0.05),
+                fail_below=float_field(form, "fail_below", "Fail below", 0.01))
+    except WorkflowError as exc:
+        return render_template("studies/new.html", form=form, error=exc.message,
+                               field=exc.field), 400
+    flash("Study created.")
+    return redirect(url_for("studies.view", study_id=study.id))
+
+
+@bp.route("/<int:study_id>")
+@allow(SIGNED_IN)
+def view(study_id: int):
+    session = get_session()
+    study = studies.get_study(session, study_id)
+    fits = list(session.scalars(select(Fit).where(Fit.study_id == study.id)
+                                .order_by(Fit.created_at.desc())))
+    return render_template("studies/view.html", study=study, fits=fits)
+
+
+@bp.route("/<int:study_id>/thresholds", methods=["POST"])
+@allow("engineer")
+def thresholds(study_id: int):
+    form = request.form
+    try:
+        with tx() as s:
+            study = studies.get_study(s, study_id)
+            studies.set_thresholds(
+                s, me(s), study,
+                review_below=float_field(form, "review_below", "Review below"),
+                fail_below=float_field(form, "fail_below", "Fail below"),
+                reason=form.get("reason", ""))
+        flash("Thresholds changed. Fits made from now on use them.")
+    except WorkflowError as exc:
+        flash(exc.message, "error")
+    return redirect(url_for("studies.view", study_id=study_id))

@@ -1,0 +1,71 @@
+"""Data versions: an upload becomes an immutable version with its SHA-256 hashes."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from app.ingest import ColumnRole, DesignTable, RawTable, load_canonical, read_upload, validate
+from app.store import audit
+from app.store.models import DataVersion, Study, User
+from app.workflow import NotFound, WorkflowError
+
+
+def sha256_bytes(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def parse_upload(data: bytes, filename: str, roles: dict[str, ColumnRole], *,
+                 sheet: str | None = None, max_bytes: int, max_cells: int
+                 ) -> tuple[RawTable, DesignTable]:
+    """Read and validate without storing anything; raises IngestError with the problems."""
+    raw = read_upload(data, filename, sheet, max_bytes=max_bytes, max_cells=max_cells)
+    return raw, validate(raw, roles)
+
+
+def add_data_version(session: Session, actor: User, study: Study, *, data: bytes, filename: str,
+                     raw: RawTable, table: DesignTable, reason: str | None = None) -> DataVersion:
+    """Store a validated upload as the study's next data version, with its audit event."""
+    latest = session.scalar(select(func.max(DataVersion.version))
+                            .where(DataVersion.study_id == study.id)) or 0
+    reason = (reason or "").strip() or None
+    if latest and not reason:
+        raise WorkflowError("A new data version of a study that already has data needs a "
+                            "reason (what was corrected and why).", field="reason")
+    canonical = table.to_canonical_csv()
+    version = DataVersion(
+        study_id=study.id, version=latest + 1, filename=filename[:255], file_kind=raw.file_kind,
+        sheet=raw.sheet, original_bytes=data, original_sha256=sha256_bytes(data),
+        canonical_csv=canonical, canonical_sha256=sha256_bytes(canonical),
+        roles_json=table.roles_json(), n_rows=len(table.frame), reason=reason,
+        read_info_json=json.dumps({"encoding": raw.encoding, "delimiter": raw.delimiter,
+                                   "decimal": raw.decimal, "sheet": raw.sheet}, sort_keys=True),
+        created_by_id=actor.id,
+    )
+    session.add(version)
+    session.flush()
+    audit.record(session, actor=actor, action="data.upload", object_type="data_version",
+                 object_id=version.id, study_id=study.id, reason=reason,
+                 new={"version": version.version, "filename": version.filename,
+                      "original_sha256": version.original_sha256,
+                      "canonical_sha256": version.canonical_sha256, "rows": version.n_rows,
+                      "roles": json.loads(version.roles_json)})
+    return version
+
+
+def get_data_version(session: Session, version_id: int) -> DataVersion:
+    version = session.get(DataVersion, version_id)
+    if version is None:
+        raise NotFound(f"No data version {version_id}.", field="data_version")
+    return version
+
+
+def design_table(version: DataVersion) -> DesignTable:
+    """The stored canonical table, checked against its hash before use."""
+    if sha256_bytes(version.canonical_csv) != version.canonical_sha256:
+        raise WorkflowError(f"Data version {version.id} does not match its stored hash.",
+                            status=500)
+    return load_canonical(version.canonical_csv, version.roles_json)

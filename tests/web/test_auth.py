@@ -1,0 +1,121 @@
+"""Sign-in, sessions, deny-by-default and CSRF."""
+
+from __future__ import annotations
+
+from datetime import timedelta
+
+from sqlalchemy import func, select, update
+
+from app.store.base import utcnow
+from app.store.models import AuditEvent, LoginFailure, UserSession
+from app.workflow import accounts
+from tests.conftest import PASSWORD
+
+
+def test_login_page_renders_and_unknown_user_is_refused(client, actions, users, db):
+    assert client.get("/login").status_code == 200
+    response = actions.login("nobody", "whatever-password")
+    assert response.status_code == 401
+    assert "User name or password is wrong." in response.get_data(as_text=True)
+    with db.session() as s:
+        failed = s.scalars(select(AuditEvent).where(AuditEvent.action == "auth.login_failed")).all()
+    assert len(failed) == 1 and '"username":"nobody"' in failed[0].new_json
+
+
+def test_login_logout_revokes_the_server_side_session(client, actions, users, db):
+    assert actions.login("erin").status_code == 302
+    assert client.get("/studies/").status_code == 200
+    cookie = client.get_cookie("plumbline")
+    assert actions.logout().status_code == 302
+    # Replaying the old cookie must not work: the server-side record is revoked.
+    client.set_cookie("plumbline", cookie.value)
+    response = client.get("/studies/")
+    assert response.status_code == 302 and "/login" in response.headers["Location"]
+    with db.session() as s:
+        assert s.scalar(select(func.count()).select_from(UserSession)
+                        .where(UserSession.revoked_at.is_not(None))) == 1
+
+
+def test_wrong_password_is_logged_and_right_one_works(client, actions, users, db):
+    assert actions.login("erin", "not the password").status_code == 401
+    with db.session() as s:
+        assert s.scalar(select(func.count()).select_from(LoginFailure)) == 1
+    assert actions.login("erin").status_code == 302
+
+
+def test_deactivation_ends_a_live_session_at_once(client, actions, users, db):
+    actions.login("erin")
+    assert client.get("/studies/").status_code == 200
+    with db.transaction() as s:
+        accounts.set_active(s, None, "erin", False)
+    assert client.get("/studies/").status_code == 302
+
+
+def test_idle_and_absolute_timeouts(client, actions, users, db, app):
+    actions.login("erin")
+    with db.transaction() as s:
+        s.execute(update(UserSession).values(last_seen_at=utcnow() - timedelta(minutes=31)))
+    assert client.get("/studies/").status_code == 302
+    actions.login("erin")
+    with db.transaction() as s:
+        s.execute(update(UserSession).where(UserSession.revoked_at.is_(None)).values(
+            created_at=utcnow() - timedelta(hours=12, minutes=1), last_seen_at=utcnow()))
+    assert client.get("/studies/").status_code == 302
+
+
+def test_post_without_csrf_token_is_refused(client, actions, users):
+    actions.login("erin")
+    response = client.post("/studies/new", data={"title": "No token"})
+    assert response.status_code == 400
+    assert "security token" in response.get_data(as_text=True)
+
+
+def test_login_throttle_slows_repeated_failures(client, actions, users):
+    for _ in range(5):
+        assert actions.login("erin", "wrong password 1").status_code == 401
+    # The sixth failure starts a delay; even the right password waits.
+    assert actions.login("erin", "wrong password 1").status_code == 401
+    response = actions.login("erin", PASSWORD)
+    assert response.status_code == 429
+    assert "Try again in" in response.get_data(as_text=True)
+
+
+def test_open_redirect_after_login_is_refused(client, actions, users):
+    response = client.post("/login", data={"username": "erin", "password": PASSWORD,
+                                           "next": "//evil.example/", "csrf_token": actions.csrf()})
+    assert response.status_code == 302
+    assert response.headers["Location"] == "/studies/"
+
+
+def test_roles_are_enforced(client, actions, users):
+    actions.login("otto")  # auditor
+    assert client.get("/studies/new").status_code == 403
+    assert client.get("/admin/users").status_code == 403
+    actions.logout()
+    actions.login("root")
+    assert client.get("/admin/users").status_code == 200
+
+
+def test_security_headers(client):
+    response = client.get("/login")
+    csp = response.headers["Content-Security-Policy"]
+    assert "object-src 'none'" in csp and "frame-ancestors 'none'" in csp
+    assert "unsafe-eval" not in csp
+    assert response.headers["X-Content-Type-Options"] == "nosniff"
+    assert response.headers["Referrer-Policy"] == "same-origin"
+
+
+def test_session_cookie_flags(client, actions, users):
+    response = actions.login("erin")
+    cookie = response.headers["Set-Cookie"]
+    assert "HttpOnly" in cookie and "SameSite=Lax" in cookie
+
+
+def test_argon2id_parameters_meet_asvs_floor(users, db):
+    with db.session() as s:
+        from app.store.models import User
+
+        stored = s.scalar(select(User.password_hash).where(User.username == "erin"))
+    assert stored.startswith("$argon2id$")
+    params = dict(p.split("=") for p in stored.split("$")[3].split(","))
+    assert int(params["m"]) >= 19456 and int(params["t"]) >= 2
