@@ -5,8 +5,8 @@ from __future__ import annotations
 from flask import Flask, g, jsonify, render_template, request
 from werkzeug.exceptions import HTTPException
 
-from app.workflow import WorkflowError
 from app.web.access import csrf_token, enforce_access, is_api
+from app.workflow import WorkflowError
 
 # Vega runs with its expression interpreter (vega-interpreter), so no 'unsafe-eval' is needed.
 # Vega sets style attributes on the SVG it draws, hence 'unsafe-inline' for styles only.

@@ -4,8 +4,18 @@ from __future__ import annotations
 
 import json
 
-from flask import (Blueprint, Response, abort, current_app, flash, g, redirect, render_template,
-                   request, url_for)
+from flask import (
+    Blueprint,
+    Response,
+    abort,
+    current_app,
+    flash,
+    g,
+    redirect,
+    render_template,
+    request,
+    url_for,
+)
 from sqlalchemy import select
 
 from app.ingest import ColumnRole, IngestError, RawTable, UploadTooLarge, read_upload, suggest_roles

@@ -226,7 +226,7 @@ def session_user(session: Session, token: str, *, idle: timedelta, max_age: time
 
 # ---- API tokens ---------------------------------------------------------------------------
 
-TOKEN_PREFIX = "plb_"
+TOKEN_PREFIX = "plb_"  # noqa: S105  (a public prefix, not a secret)
 
 
 def create_token(session: Session, actor: User | None, user: User, name: str) -> tuple[ApiToken, str]:

@@ -3,7 +3,7 @@
 Timestamps are stored as naive UTC (app.store.base.UTCDateTime adds the zone on read).
 
 Revision ID: 0001
-Revises: 
+Revises: (none)
 Create Date: 2026-12-01
 """
 from alembic import op

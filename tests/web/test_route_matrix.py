@@ -1,17 +1,21 @@
 """Role × route matrix, generated from the app's URL map.
 
 POLICY is written by hand: it is the access rule each route is meant to have. A route added to
-the app without an entry here fails ``test_every_route_has_a_policy``; a view whose declared
-roles differ from POLICY fails the matrix.
+the app without an entry fails ``test_every_route_has_a_policy``; a view whose declared roles
+differ from POLICY fails the matrix. Each feature area keeps its own entries in
+``tests/web/policies/<area>.py`` (a dict named POLICY); they are merged here.
 """
 
 from __future__ import annotations
 
+import importlib
+import pkgutil
 import re
 
 import pytest
 
 from tests.conftest import Actions
+from tests.web import policies
 
 ANON = "anonymous"
 ROLES = ("engineer", "approver", "auditor", "admin")
@@ -44,6 +48,8 @@ POLICY: dict[str, set[str] | str] = {
     "data.original": ANY,
     "data.canonical": ANY,
 }
+for _module in pkgutil.iter_modules(policies.__path__):
+    POLICY.update(importlib.import_module(f"{policies.__name__}.{_module.name}").POLICY)
 
 
 def _rules(app):

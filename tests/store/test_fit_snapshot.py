@@ -1,0 +1,81 @@
+"""Fit snapshots: stored once, hashed, and any later change shows."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from sqlalchemy import select, text
+
+from app.analysis import Thresholds
+from app.demo_data import rsm_study
+from app.ingest import read_upload, validate
+from app.store.models import AuditEvent, Fit, User
+from app.workflow import WorkflowError, fits, studies, uploads
+
+
+@pytest.fixture
+def version(db, users):
+    demo = rsm_study()
+    with db.transaction() as s:
+        erin = s.scalar(select(User).where(User.username == "erin"))
+        study = studies.create_study(s, erin, title="Cure study")
+        raw = read_upload(demo.csv_bytes, demo.filename)
+        v = uploads.add_data_version(s, erin, study, data=demo.csv_bytes, filename=demo.filename,
+                                     raw=raw, table=validate(raw, demo.roles))
+        return v.id
+
+
+def _fit(db, version_id, **choices):
+    with db.transaction() as s:
+        erin = s.scalar(select(User).where(User.username == "erin"))
+        v = uploads.get_data_version(s, version_id)
+        spec = fits.build_spec(v, thresholds=Thresholds(), **choices)
+        return fits.create_fit(s, erin, v, spec).id
+
+
+def test_fit_snapshot_is_hashed_and_audited(db, version):
+    fit_id = _fit(db, version, response="Hardness", model="quadratic",
+                  exclusions={3: "panel scratched before measurement"})
+    with db.session() as s:
+        fit = s.get(Fit, fit_id)
+        assert fits.snapshot_intact(fit)
+        results = fits.results_of(fit)
+        excluded = [r["row"] for r in results["runs"] if r["excluded"]]
+        assert excluded == [3]
+        event = s.scalar(select(AuditEvent).where(AuditEvent.action == "fit.create"))
+        assert fit.snapshot_sha256 in event.new_json
+        assert "panel scratched" in event.new_json
+
+
+def test_altered_results_break_the_snapshot_hash(db, version):
+    fit_id = _fit(db, version, response="Hardness", model="linear")
+    with db.transaction() as s:
+        doc = json.loads(s.get(Fit, fit_id).results_json)
+        doc["fit"]["r_squared"] = 0.999
+        s.execute(text("UPDATE fits SET results_json = :j WHERE id = :i"),
+                  {"j": json.dumps(doc), "i": fit_id})
+    with db.session() as s:
+        assert not fits.snapshot_intact(s.get(Fit, fit_id))
+
+
+def test_running_again_makes_a_new_fit(db, version):
+    first = _fit(db, version, response="Hardness", model="linear")
+    second = _fit(db, version, response="Hardness", model="quadratic")
+    assert first != second
+    with db.session() as s:
+        assert s.get(Fit, first).results_json != s.get(Fit, second).results_json
+
+
+@pytest.mark.parametrize("choices, field", [
+    ({"response": "Nope", "model": "linear"}, "response"),
+    ({"response": "Hardness", "model": "linear", "exclusions": {2: "  "}}, "exclusions"),
+    ({"response": "Hardness", "model": "linear", "exclusions": {99: "typo"}}, "exclusions"),
+    ({"response": "Hardness", "model": "cubic"}, "spec"),
+])
+def test_bad_fit_requests_name_the_field(db, version, choices, field):
+    with pytest.raises(WorkflowError) as info:
+        _fit(db, version, **choices)
+    assert info.value.field == field
+    with db.session() as s:
+        assert s.scalar(select(Fit.id)) is None
