@@ -38,6 +38,20 @@ def parse_number(text: str, decimal: str = ".") -> float | None:
     return value
 
 
+def parse_numbers(cells: list[str | None], decimal: str = ".") -> list[float | None]:
+    """:func:`parse_number` over a column (None stays None), parsing each distinct text once."""
+    seen: dict[str, float | None] = {}
+    out = []
+    for cell in cells:
+        if cell is None:
+            out.append(None)
+            continue
+        if cell not in seen:
+            seen[cell] = parse_number(cell, decimal)
+        out.append(seen[cell])
+    return out
+
+
 def looks_numeric(text: str) -> bool:
     """True when the text reads as a number with either decimal mark."""
     return parse_number(text, ".") is not None or parse_number(text, ",") is not None

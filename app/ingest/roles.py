@@ -7,7 +7,7 @@ import re
 from dataclasses import asdict, dataclass
 
 from .errors import IngestError
-from .raw import RawTable, parse_number
+from .raw import RawTable, parse_numbers
 
 ROLES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
 COVARIATE_KINDS = ("numeric", "categorical")
@@ -111,7 +111,7 @@ def suggest_levels(values: list[float]) -> tuple[float, float]:
 
 
 def _numbers(cells: list[str], decimal: str) -> list[float] | None:
-    parsed = [parse_number(c, decimal) for c in cells]
+    parsed = parse_numbers(cells, decimal)
     return None if any(v is None for v in parsed) else parsed
 
 

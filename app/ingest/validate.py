@@ -6,7 +6,7 @@ import math
 
 from .canonical import DesignTable, design_table, typed_frame
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, format_rows
-from .raw import RawTable, parse_number
+from .raw import RawTable, parse_numbers
 from .roles import ColumnRole
 
 # Run order is a count of runs; beyond this a "whole number" from a float is no longer exact.
@@ -30,13 +30,12 @@ def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Proble
     values: list[float | None] = []
     bad: list[tuple[int, str]] = []
     missing: list[int] = []
-    for row, cell in _cells(raw, column):
+    cells = raw.frame[column].tolist()
+    for row, cell, value in zip(raw.frame.index.tolist(), cells,
+                                parse_numbers(cells, raw.decimal), strict=True):
         if cell is None:
             missing.append(row)
-            values.append(None)
-            continue
-        value = parse_number(cell, raw.decimal)
-        if value is None:
+        elif value is None:
             bad.append((row, cell))
         values.append(value)
     word = _ROLE_WORDS[role]
@@ -111,10 +110,15 @@ def _run_order(raw: RawTable, column: str, problems: list[Problem]) -> list[int 
 
 def _check_roles(raw: RawTable, roles: dict[str, ColumnRole]) -> list[Problem]:
     problems = []
-    for name in roles:
-        if name not in raw.frame.columns:
+    for name, role in roles.items():
+        if not isinstance(role, ColumnRole):
+            problems.append(Problem(f"The role given for column '{name}' is not a column role.",
+                                    column=name))
+        elif name not in raw.frame.columns:
             problems.append(Problem(f"Roles name column '{name}' which is not in the file.",
                                     column=name))
+    if problems:
+        return problems
     for role, word in _SINGLE_ROLES.items():
         named = [c for c, r in roles.items() if r.role == role and c in raw.frame.columns]
         if len(named) > 1:
@@ -180,9 +184,11 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
         elif role.role == "run_order":
             values = _run_order(raw, name, problems)
         elif role.role == "covariate":
+            cells = raw.frame[name].tolist()
             kind = role.kind or ("numeric" if all(
-                parse_number(c, raw.decimal) is not None
-                for c in raw.frame[name] if c is not None) else "categorical")
+                v is not None for c, v in zip(cells, parse_numbers(cells, raw.decimal),
+                                              strict=True) if c is not None)
+                else "categorical")
             full[name] = role = ColumnRole("covariate", units=role.units, kind=kind)
             if kind == "numeric":
                 values = _numeric_column(raw, name, "covariate", problems)

@@ -85,8 +85,8 @@ def mutate(data, edits):
     return bytes(out)
 
 
-EDITS = st.lists(st.tuples(st.integers(0, 10**6), st.integers(0, 2), st.integers(0, 255)),
-                 min_size=1, max_size=8)
+EDIT = st.tuples(st.integers(0, 10**6), st.integers(0, 2), st.integers(0, 255))
+EDITS = st.lists(EDIT, min_size=1, max_size=8)
 
 
 @FUZZ
@@ -110,9 +110,25 @@ def test_csv_like_text(text):
 
 
 @FUZZ
-@given(edits=EDITS, truncate=st.integers(0, len(XLSX)), sheet=st.sampled_from([None, "Runs", "x"]))
+@given(edits=st.lists(EDIT, max_size=4),
+       truncate=st.one_of(st.none(), st.integers(1, len(XLSX))),
+       sheet=st.sampled_from([None, "Runs", "x"]))
 def test_mangled_xlsx_bytes(edits, truncate, sheet):
-    ingest(mutate(XLSX, edits)[: max(truncate, 1)], "study.xlsx", sheet)
+    ingest(mutate(XLSX, edits)[:truncate], "study.xlsx", sheet)
+
+
+CELL = st.one_of(
+    st.none(), st.integers(-10**20, 10**20), st.booleans(), st.dates(),
+    st.floats(allow_nan=False, allow_infinity=False),
+    st.text(st.characters(exclude_categories=("Cs", "Cc")), max_size=8),
+    st.sampled_from(["=A1+1", "#DIV/0!", "1,5", " 2 ", "Temp", "Temp "]),
+)
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(rows=st.lists(st.lists(CELL, min_size=1, max_size=5), max_size=8))
+def test_workbooks_with_arbitrary_cells(rows):
+    ingest(workbook(rows), "study.xlsx")
 
 
 @FUZZ

@@ -257,3 +257,9 @@ def test_unknown_role_or_kind_is_refused():
         ColumnRole("setting")
     with pytest.raises(IngestError, match="Covariate kind 'ordinal'"):
         ColumnRole("covariate", kind="ordinal")
+
+
+def test_role_that_is_not_a_column_role_names_the_column():
+    found = problems(GOOD, {"Temp": F, "Yield": {"role": "response"}})
+    assert [p.message for p in found] == [
+        "The role given for column 'Yield' is not a column role."]
