@@ -119,3 +119,18 @@ def test_argon2id_parameters_meet_asvs_floor(users, db):
     assert stored.startswith("$argon2id$")
     params = dict(p.split("=") for p in stored.split("$")[3].split(","))
     assert int(params["m"]) >= 19456 and int(params["t"]) >= 2
+
+
+def test_one_time_password_must_be_changed_first(client, actions, db):
+    with db.transaction() as s:
+        accounts.create_user(s, None, username="newbie", full_name="New Person",
+                             roles="engineer", password="given by the admin 1", one_time=True)
+    assert actions.login("newbie", "given by the admin 1").status_code == 302
+    response = client.get("/studies/")
+    assert response.status_code == 302 and response.headers["Location"].endswith("/account/")
+    changed = actions.post("/account/password", {"current_password": "given by the admin 1",
+                                                 "new_password": "my own new pass phrase",
+                                                 "confirm_password": "my own new pass phrase"})
+    assert changed.status_code == 302
+    assert actions.login("newbie", "my own new pass phrase").status_code == 302
+    assert client.get("/studies/").status_code == 200

@@ -1,0 +1,89 @@
+"""The plumbline command: database, users, tokens, demo."""
+
+from __future__ import annotations
+
+import pytest
+from click.testing import CliRunner
+from sqlalchemy import create_engine, func, select
+from sqlalchemy.orm import Session
+
+from app.cli import main
+from app.store.models import ApiToken, DataVersion, Study, User
+
+
+@pytest.fixture
+def cli_env(tmp_path, monkeypatch):
+    url = f"sqlite:///{tmp_path / 'cli.db'}"
+    monkeypatch.setenv("PLUMBLINE_DATABASE_URL", url)
+    monkeypatch.setenv("PLUMBLINE_INSTANCE_PATH", str(tmp_path / "instance"))
+    monkeypatch.setenv("PLUMBLINE_ARGON2_MEMORY_KIB", "19456")
+    monkeypatch.setenv("PLUMBLINE_ARGON2_TIME_COST", "2")
+    runner = CliRunner()
+    result = runner.invoke(main, ["db", "upgrade"])
+    assert result.exit_code == 0, result.output
+    return runner, url
+
+
+def _query(url, stmt):
+    engine = create_engine(url)
+    with Session(engine) as s:
+        value = s.execute(stmt).all()
+    engine.dispose()
+    return value
+
+
+def test_users_lifecycle(cli_env):
+    runner, url = cli_env
+    added = runner.invoke(main, ["users", "add", "mkade", "--name", "Mara Kade", "--roles",
+                                 "engineer,approver", "--password-stdin"],
+                          input="a sufficiently long phrase\n")
+    assert added.exit_code == 0, added.output
+    assert "approver,engineer" in added.output
+    listed = runner.invoke(main, ["users", "list"])
+    assert "mkade\tMara Kade\tapprover,engineer\tactive" in listed.output
+    assert runner.invoke(main, ["users", "set-roles", "mkade", "auditor"]).exit_code == 0
+    assert runner.invoke(main, ["users", "deactivate", "mkade"]).exit_code == 0
+    rows = _query(url, select(User.roles, User.active).where(User.username == "mkade"))
+    assert rows == [("auditor", False)]
+
+
+@pytest.mark.parametrize("args, stdin, message", [
+    (["users", "add", "x1", "--name", "X", "--roles", "engineer", "--password-stdin"],
+     "short\n", "at least 8"),
+    (["users", "add", "x2", "--name", "X", "--roles", "wizard", "--password-stdin"],
+     "long enough password\n", "Unknown role"),
+    (["users", "add", "x3", "--name", "X", "--roles", "engineer", "--password-stdin"],
+     "password123\n", "commonly used"),
+    (["users", "set-roles", "ghost", "engineer"], None, "No user named 'ghost'"),
+])
+def test_bad_cli_input_exits_2_with_a_message(cli_env, args, stdin, message):
+    runner, _ = cli_env
+    result = runner.invoke(main, args, input=stdin)
+    assert result.exit_code == 2
+    assert message in result.output
+
+
+def test_tokens_create_prints_a_token_stored_only_as_hash(cli_env):
+    runner, url = cli_env
+    runner.invoke(main, ["users", "add", "tok", "--name", "T", "--roles", "engineer",
+                         "--password-stdin"], input="another long phrase\n")
+    result = runner.invoke(main, ["tokens", "create", "tok"])
+    raw = result.output.strip()
+    assert result.exit_code == 0 and raw.startswith("plb_")
+    stored = _query(url, select(ApiToken.token_sha256, ApiToken.prefix))
+    import hashlib
+
+    assert stored == [(hashlib.sha256(raw.encode()).hexdigest(), raw[:10])]
+
+
+def test_demo_load_once(cli_env):
+    runner, url = cli_env
+    first = runner.invoke(main, ["demo", "load", "--if-empty"])
+    assert first.exit_code == 0, first.output
+    assert "One-time passwords" in first.output
+    second = runner.invoke(main, ["demo", "load", "--if-empty"])
+    assert "already has users" in second.output
+    assert _query(url, select(func.count()).select_from(Study)) == [(2,)]
+    assert _query(url, select(func.count()).select_from(DataVersion)) == [(2,)]
+    users = _query(url, select(User.username, User.must_change_password).order_by(User.username))
+    assert len(users) == 3 and all(flag for _, flag in users)

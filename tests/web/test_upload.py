@@ -1,0 +1,208 @@
+"""Upload through the web pages: preview before storing, bad input stores nothing.
+
+Each bad-input case goes through the real routes and then proves that no row was added to
+data_versions or audit_events (unchanged row counts)."""
+
+from __future__ import annotations
+
+import io
+import re
+import zipfile
+
+import pytest
+from openpyxl import Workbook
+from sqlalchemy import func, select
+
+from app.demo_data import rsm_study
+from app.store.models import AuditEvent, DataVersion, Study
+
+GOOD = rsm_study().csv_bytes
+
+
+def _counts(db) -> tuple[int, int]:
+    with db.session() as s:
+        return (s.scalar(select(func.count()).select_from(DataVersion)),
+                s.scalar(select(func.count()).select_from(AuditEvent)))
+
+
+@pytest.fixture
+def study_id(actions, users, db):
+    actions.login("erin")
+    response = actions.post("/studies/new", {"title": "Upload tests"})
+    assert response.status_code == 302
+    with db.session() as s:
+        return s.scalar(select(Study.id))
+
+
+def _upload(actions, study_id, data: bytes, name: str):
+    return actions.post(f"/studies/{study_id}/upload",
+                        {"file": (io.BytesIO(data), name)}, content_type="multipart/form-data")
+
+
+def _confirm_form(page_html: str, overrides: dict[str, str] | None = None) -> dict[str, str]:
+    """The preview's roles form as the browser would submit it (selected options, values)."""
+    form = {}
+    for name, options in re.findall(r'<select name="([^"]+)"[^>]*>(.*?)</select>', page_html, re.S):
+        chosen = re.search(r'<option value="([^"]+)" selected', options)
+        form[name] = chosen.group(1) if chosen else re.search(r'value="([^"]+)"', options).group(1)
+    for name, value in re.findall(r'<input name="([^"]+)" value="([^"]*)"', page_html):
+        form[name] = value
+    form.update(overrides or {})
+    return form
+
+
+def test_preview_then_confirm_stores_one_version(client, actions, db, study_id):
+    before = _counts(db)
+    response = _upload(actions, study_id, GOOD, "cure.csv")
+    assert response.status_code == 302
+    assert _counts(db) == before, "the preview must not store anything"
+    preview = client.get(response.headers["Location"])
+    html = preview.get_data(as_text=True)
+    assert "20 data rows" in html and "Cure temperature" in html
+    stored = actions.post(response.headers["Location"], _confirm_form(html))
+    assert stored.status_code == 302
+    versions, events = _counts(db)
+    assert versions == before[0] + 1 and events == before[1] + 1
+    with db.session() as s:
+        v = s.scalar(select(DataVersion))
+        assert v.original_bytes == GOOD and v.n_rows == 20
+        import hashlib
+
+        assert v.original_sha256 == hashlib.sha256(GOOD).hexdigest()
+        assert v.canonical_sha256 == hashlib.sha256(v.canonical_csv).hexdigest()
+    page = client.get(stored.headers["Location"])
+    assert page.status_code == 200 and "Data version 1" in page.get_data(as_text=True)
+    original = client.get(f"/data/{v.id}/original")
+    assert original.data == GOOD
+    assert original.headers["Content-Disposition"].startswith("attachment;")
+
+
+def test_second_version_needs_a_reason(client, actions, db, study_id):
+    for attempt in range(2):
+        response = _upload(actions, study_id, GOOD, "cure.csv")
+        html = client.get(response.headers["Location"]).get_data(as_text=True)
+        form = _confirm_form(html)
+        if attempt == 1:
+            before = _counts(db)
+            refused = actions.post(response.headers["Location"], form)
+            assert refused.status_code == 400
+            assert "needs a reason" in refused.get_data(as_text=True)
+            assert _counts(db) == before
+            form["reason"] = "Run 7 hardness re-read from the instrument log"
+        assert actions.post(response.headers["Location"], form).status_code == 302
+    with db.session() as s:
+        versions = s.scalars(select(DataVersion).order_by(DataVersion.version)).all()
+        assert [v.version for v in versions] == [1, 2]
+        assert versions[1].reason.startswith("Run 7")
+
+
+def _xlsx_with_formula() -> bytes:
+    wb = Workbook()
+    ws = wb.active
+    ws.append(["A", "B", "Y"])
+    ws.append([-1, -1, 3.0])
+    ws.append([1, -1, "=A3*2"])
+    buf = io.BytesIO()
+    wb.save(buf)
+    return buf.getvalue()
+
+
+def _zip_bomb() -> bytes:
+    buf = io.BytesIO()
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED, compresslevel=9) as z:
+        z.writestr("[Content_Types].xml", "<Types/>")
+        z.writestr("xl/workbook.xml", "<workbook/>")
+        with z.open("xl/worksheets/sheet1.xml", "w", force_zip64=True) as member:
+            chunk = b"<c><v>1</v></c>" * 65536
+            for _ in range(250):  # about 250 MB declared, well over the ratio limit
+                member.write(chunk)
+    return buf.getvalue()
+
+
+UPLOAD_REFUSALS = [
+    ("empty.csv", b"", "empty"),
+    ("noheader.csv", b"1,2,3\n4,5,6\n", "header"),
+    ("dupes.csv", b"A,A,Y\n1,2,3\n", "A"),
+    ("renamed.csv", b"%PDF-1.4 binary\x00\x01", "csv"),
+    ("formula.xlsx", _xlsx_with_formula(), "formula"),
+    ("bomb.xlsx", _zip_bomb(), ""),
+]
+
+
+@pytest.mark.parametrize("name, data, words", UPLOAD_REFUSALS, ids=[c[0] for c in UPLOAD_REFUSALS])
+def test_unreadable_files_are_refused_at_upload(actions, db, study_id, name, data, words):
+    before = _counts(db)
+    response = _upload(actions, study_id, data, name)
+    assert response.status_code in (400, 413)
+    html = response.get_data(as_text=True)
+    assert "not stored" in html and words.lower() in html.lower()
+    assert _counts(db) == before
+
+
+BAD_TABLES = [
+    ("non-numeric factor", "Cure temperature", "hot", "Cure temperature"),
+    ("missing response", "Hardness", "", "Hardness"),
+    ("non-integer run order", "Run order", "2.5", "Run order"),
+    ("duplicate run order", "Run order", "1", "Run order"),
+]
+
+
+def _edit(csv_bytes: bytes, column: str, row: int, value: str) -> bytes:
+    lines = csv_bytes.decode().splitlines()
+    header = lines[0].split(",")
+    cells = lines[row].split(",")
+    cells[header.index(column)] = value
+    lines[row] = ",".join(cells)
+    return ("\n".join(lines) + "\n").encode()
+
+
+@pytest.mark.parametrize("case, column, value, named", BAD_TABLES, ids=[c[0] for c in BAD_TABLES])
+def test_bad_cells_are_named_and_nothing_is_stored(client, actions, db, study_id, case, column,
+                                                   value, named):
+    data = _edit(GOOD, column, 4, value)
+    response = _upload(actions, study_id, data, "bad.csv")
+    assert response.status_code == 302
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    before = _counts(db)
+    # The user confirms the intended roles even where a bad cell misled the suggestion.
+    intended = {"role_0": "run_order", "role_1": "label", "role_2": "factor", "low_2": "150",
+                "high_2": "170", "role_5": "response", "role_6": "response"}
+    refused = actions.post(response.headers["Location"], _confirm_form(html, intended))
+    assert refused.status_code == 400
+    text = refused.get_data(as_text=True)
+    assert named in text and "row" in text.lower()
+    assert _counts(db) == before
+
+
+def test_constant_factor_and_too_few_runs(client, actions, db, study_id):
+    lines = [b"A,B,Y", b"1,5,3.1", b"2,5,3.3"]
+    response = _upload(actions, study_id, b"\n".join(lines) + b"\n", "tiny.csv")
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    form = _confirm_form(html, {"role_0": "factor", "role_1": "factor", "role_2": "response",
+                                "low_0": "", "high_0": "", "low_1": "", "high_1": ""})
+    before = _counts(db)
+    refused = actions.post(response.headers["Location"], form)
+    text = refused.get_data(as_text=True)
+    assert refused.status_code == 400
+    assert "constant" in text and "B" in text
+    assert "fewer than" in text
+    assert _counts(db) == before
+
+
+def test_over_the_size_limit_is_413_and_stores_nothing(app, actions, db, study_id):
+    app.config["MAX_UPLOAD_BYTES"] = 1000
+    before = _counts(db)
+    response = _upload(actions, study_id, GOOD + b"\n" * 2000, "big.csv")
+    assert response.status_code == 413
+    assert _counts(db) == before
+
+
+def test_someone_elses_staged_upload_is_not_found(app, client, actions, db, study_id, users):
+    response = _upload(actions, study_id, GOOD, "cure.csv")
+    location = response.headers["Location"]
+    actions.logout()
+    from tests.conftest import Actions
+
+    other = Actions(app.test_client())
+    other.login("root")  # admin: not an engineer → refused before the staging lookup
+    assert other.client.get(location).status_code == 403
