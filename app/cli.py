@@ -177,3 +177,10 @@ def serve(host: str, port: int, threads: int) -> None:
         app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
     click.echo(f"Plumbline on http://{host}:{port}/")
     waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
+
+
+# ---- analysis without a database ----------------------------------------------------------
+
+from app.cli_check import check_command  # noqa: E402  (registered after the groups above)
+
+main.add_command(check_command, "check")

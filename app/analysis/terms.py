@@ -1,0 +1,172 @@
+"""Model terms: named models, explicit term lists, hierarchy and the coded model matrix.
+
+A term is a product of factor powers, e.g. ``A``, ``A:B``, ``A^2``, ``A:B:C``. Term names are
+built from the factor names as given, so names such as ``C``, ``I`` or ``Feed rate`` are safe:
+nothing here is ever handed to a formula parser.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from itertools import combinations
+
+import numpy as np
+
+from .spec import AnalysisError
+
+
+@dataclass(frozen=True, order=True)
+class Term:
+    """A monomial in the coded factors: ``powers`` holds (factor index, exponent) pairs."""
+
+    powers: tuple[tuple[int, int], ...]
+
+    @property
+    def degree(self) -> int:
+        return sum(p for _, p in self.powers)
+
+    @property
+    def factors(self) -> tuple[int, ...]:
+        return tuple(i for i, _ in self.powers)
+
+    def name(self, factor_names: tuple[str, ...]) -> str:
+        parts = []
+        for i, p in self.powers:
+            parts.append(factor_names[i] if p == 1 else f"{factor_names[i]}^{p}")
+        return ":".join(parts)
+
+    def is_two_level_product(self) -> bool:
+        """True for main effects and interactions (every exponent 1)."""
+        return all(p == 1 for _, p in self.powers)
+
+    def parents(self) -> list[Term]:
+        """Terms directly below this one: drop one factor, or lower one exponent by one."""
+        out = []
+        for k, (i, p) in enumerate(self.powers):
+            rest = list(self.powers)
+            if p == 1:
+                del rest[k]
+            else:
+                rest[k] = (i, p - 1)
+            if rest:
+                out.append(Term(tuple(rest)))
+        return out
+
+    def column(self, coded: np.ndarray) -> np.ndarray:
+        col = np.ones(coded.shape[0])
+        for i, p in self.powers:
+            col = col * coded[:, i] ** p
+        return col
+
+
+def sort_key(term: Term) -> tuple:
+    """Main effects first, then interactions, then powers; within a kind, factor order."""
+    pure_power = len(term.powers) == 1 and term.powers[0][1] > 1
+    return (term.degree if not pure_power else term.degree + 0.5, term.powers)
+
+
+def named_model(model: str, k: int) -> list[Term]:
+    """The terms of a named model for ``k`` factors.
+
+    ``linear``: main effects; ``interaction``: plus two-factor interactions; ``quadratic``: plus
+    squares; ``full``: every interaction up to the k-factor one (two-level designs).
+    """
+    mains = [Term(((i, 1),)) for i in range(k)]
+    twos = [Term(((i, 1), (j, 1))) for i, j in combinations(range(k), 2)]
+    if model == "linear":
+        return mains
+    if model == "interaction":
+        return mains + twos
+    if model == "quadratic":
+        return mains + twos + [Term(((i, 2),)) for i in range(k)]
+    if model == "full":
+        out = []
+        for order in range(1, k + 1):
+            out += [Term(tuple((i, 1) for i in c)) for c in combinations(range(k), order)]
+        return out
+    raise AnalysisError(f"Unknown model '{model}'")
+
+
+def _parse_factor_power(part: str, lookup: dict[str, int], term_text: str) -> tuple[int, int]:
+    if part in lookup:
+        return lookup[part], 1
+    if "^" in part:
+        base, _, exponent = part.rpartition("^")
+        if base in lookup and exponent.isdigit() and int(exponent) >= 1:
+            return lookup[base], int(exponent)
+    raise AnalysisError(
+        f"Term '{term_text}': '{part}' is not a factor name (factors: {', '.join(lookup)})"
+    )
+
+
+def parse_term(text: str, factor_names: tuple[str, ...]) -> Term:
+    """Parse one term such as ``A``, ``A:B`` or ``A^2`` against the factor names."""
+    lookup = {name: i for i, name in enumerate(factor_names)}
+    text = text.strip()
+    if not text:
+        raise AnalysisError("An empty term was given")
+    # A factor name that itself contains ':' or '^' is matched whole before splitting.
+    parts = [text] if text in lookup else text.split(":")
+    exponents: dict[int, int] = {}
+    for part in parts:
+        i, p = _parse_factor_power(part.strip(), lookup, text)
+        exponents[i] = exponents.get(i, 0) + p
+    return Term(tuple(sorted(exponents.items())))
+
+
+def with_hierarchy(terms: list[Term]) -> list[Term]:
+    """Add every parent a term needs (A:B needs A and B; A^2 needs A)."""
+    wanted = set(terms)
+    stack = list(terms)
+    while stack:
+        for parent in stack.pop().parents():
+            if parent not in wanted:
+                wanted.add(parent)
+                stack.append(parent)
+    return sorted(wanted, key=sort_key)
+
+
+def resolve_terms(
+    model: str | None,
+    terms: tuple[str, ...] | None,
+    factor_names: tuple[str, ...],
+    hierarchy: bool,
+) -> list[Term]:
+    """Turn a named model or explicit term list into ordered, de-duplicated terms."""
+    if terms is not None:
+        parsed = [parse_term(t, factor_names) for t in terms]
+    else:
+        parsed = named_model(model or "linear", len(factor_names))
+    unique = sorted(set(parsed), key=sort_key)
+    return with_hierarchy(unique) if hierarchy else unique
+
+
+def is_hierarchical(terms: list[Term]) -> bool:
+    have = set(terms)
+    return all(parent in have for t in terms for parent in t.parents())
+
+
+def block_columns(blocks: np.ndarray) -> tuple[np.ndarray, list[str], list[str]]:
+    """Sum-to-zero (effect) columns for a block factor.
+
+    Returns the n x (b-1) matrix, the column names ``Block[level]`` and all levels sorted. Effect
+    coding makes a zero block row the average over blocks, which is what predictions use.
+    """
+    levels = sorted({str(b) for b in blocks})
+    if len(levels) < 2:
+        return np.zeros((len(blocks), 0)), [], levels
+    codes = np.array([levels.index(str(b)) for b in blocks])
+    cols = np.zeros((len(blocks), len(levels) - 1))
+    for j in range(len(levels) - 1):
+        cols[codes == j, j] = 1.0
+    cols[codes == len(levels) - 1, :] = -1.0
+    return cols, [f"Block[{lv}]" for lv in levels[:-1]], levels
+
+
+def model_matrix(coded: np.ndarray, terms: list[Term], block_cols: np.ndarray | None = None):
+    """Intercept, block columns, then one column per term, in coded units."""
+    pieces = [np.ones((coded.shape[0], 1))]
+    if block_cols is not None and block_cols.shape[1]:
+        pieces.append(block_cols)
+    pieces.extend(t.column(coded)[:, None] for t in terms)
+    return np.hstack(pieces)

@@ -1,0 +1,75 @@
+"""``plumbline check`` through click's test runner: summary, JSON, awkward names, bad input."""
+
+import json
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from helpers import ccd
+
+from app.cli_check import check_command
+
+
+@pytest.fixture
+def ccd_csv(tmp_path):
+    x = ccd(3, 1.682, 6)
+    rng = np.random.default_rng(1)
+    y = 60 + 4 * x[:, 0] - 2 * x[:, 1] - 1.5 * x[:, 2] ** 2 + rng.normal(size=20)
+    lines = ["Run,Feed rate,C,I,Yield"]
+    for i, (row, v) in enumerate(zip(x, y, strict=True)):
+        lines.append(f"{i + 1},{40 + 5 * row[0]:.4f},{row[1]:.4f},{row[2]:.4f},{v:.4f}")
+    path = tmp_path / "study.csv"
+    path.write_text("\n".join(lines) + "\n")
+    return path
+
+
+def _run(args):
+    return CliRunner().invoke(check_command, [str(a) for a in args])
+
+
+def test_summary_lists_every_check_verdict(ccd_csv):
+    res = _run([ccd_csv, "--response", "Yield", "--factors", "Feed rate,C,I", "--run-order", "Run",
+                "--model", "quadratic", "--levels", "Feed rate=35:45", "--exclude", "4=spilled sample"])
+    assert res.exit_code == 0, res.output
+    assert "Residual checks" in res.output
+    for cid in ("normality", "run_order_autocorrelation", "lack_of_fit", "pattern_factor:Feed rate",
+                "constant_variance_factor:I"):
+        assert cid in res.output
+    assert "Feed rate^2" in res.output
+
+
+def test_json_output_with_terms_named_c_and_i(ccd_csv):
+    res = _run([ccd_csv, "--response", "Yield", "--factors", "Feed rate,C,I", "--coded",
+                "--terms", "Feed rate,C,I,C:I,I^2", "--json", "--thresholds", "review=0.1,fail=0.02"])
+    assert res.exit_code == 0, res.output
+    doc = json.loads(res.output)
+    assert doc["terms"] == ["Feed rate", "C", "I", "C:I", "I^2"]
+    assert doc["spec"]["thresholds"] == {"review": 0.1, "fail": 0.02}
+    assert doc["spec"]["run_order"] == "Run"  # suggested from the header, kept without a flag
+    assert doc["checks"][1]["id"] == "run_order_autocorrelation"
+
+
+@pytest.mark.parametrize(("args", "needle"), [
+    (["--response", "Nope"], "Column 'Nope'"),
+    (["--response", "Yield", "--terms", "C Q"], "'Q' is not a factor name"),
+    (["--response", "Yield", "--exclude", "3"], "ROW=reason"),
+    (["--response", "Yield", "--exclude", "99=typo"], "row 99"),
+    (["--response", "Yield", "--transform", "log", "--levels", "C=1:1"], "low"),
+])
+def test_bad_input_exits_2_with_message(ccd_csv, args, needle):
+    res = _run([ccd_csv, *args])
+    assert res.exit_code == 2
+    assert needle in res.output + (res.stderr or "")
+
+
+def test_unreadable_cell_is_reported_by_row_and_column(tmp_path):
+    path = tmp_path / "bad.csv"
+    path.write_text("A,B,Y\n-1,-1,3\n1,-1,abc\n-1,1,4\n1,1,5\n0,0,4\n")
+    res = _run([path, "--response", "Y", "--factors", "A,B"])
+    assert res.exit_code == 2
+    assert "row 2" in res.stderr and "Y" in res.stderr
+
+
+def test_missing_file_exits_2(tmp_path):
+    res = _run([tmp_path / "none.csv", "--response", "Y"])
+    assert res.exit_code == 2
