@@ -5,9 +5,10 @@ from __future__ import annotations
 import os
 import secrets
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from flask import Flask
+if TYPE_CHECKING:  # flask is imported lazily so that `import app.analysis` stays flask-free
+    from flask import Flask
 
 ROOT = Path(__file__).resolve().parent.parent
 
@@ -39,6 +40,8 @@ def software_version() -> str:
 
 def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     """Build the Flask application: defaults, instance config, PLUMBLINE_* environment."""
+    from flask import Flask
+
     app = Flask(
         __name__,
         instance_relative_config=True,

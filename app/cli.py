@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import sys
+from pathlib import Path
 
 import click
 
@@ -179,8 +180,44 @@ def serve(host: str, port: int, threads: int) -> None:
     waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
 
 
+# ---- backup -------------------------------------------------------------------------------
+
+@main.command("backup", help="Online backup of the SQLite database to FILE, then check it.")
+@click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
+def backup_command(file: Path) -> None:
+    from app.store.backup import BackupError, backup
+
+    try:
+        report = backup(_app().config["DATABASE_URL"], file)
+    except BackupError as exc:
+        _fail(str(exc))
+    click.echo(f"backup {report.path}: integrity {report.integrity}; {report.chain.describe()}")
+
+
+@main.command("restore", help="Replace the SQLite database with FILE (stop the server first).")
+@click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--yes", is_flag=True, help="Do not ask for confirmation.")
+def restore_command(file: Path, yes: bool) -> None:
+    from app.store.backup import BackupError, restore
+
+    url = _app().config["DATABASE_URL"]
+    if not yes:
+        click.confirm(f"Replace {_redacted(url)} with {file}?", abort=True)
+    try:
+        report = restore(url, file)
+    except BackupError as exc:
+        _fail(str(exc))
+    click.echo(f"restored: integrity {report.integrity}; {report.chain.describe()}")
+    if not report.ok:
+        sys.exit(1)
+
+
 # ---- analysis without a database ----------------------------------------------------------
 
 from app.cli_check import check_command  # noqa: E402  (registered after the groups above)
 
 main.add_command(check_command, "check")
+
+from app.cli_audit import audit_group  # noqa: E402
+
+main.add_command(audit_group, "audit")

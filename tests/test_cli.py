@@ -87,3 +87,36 @@ def test_demo_load_once(cli_env):
     assert _query(url, select(func.count()).select_from(DataVersion)) == [(2,)]
     users = _query(url, select(User.username, User.must_change_password).order_by(User.username))
     assert len(users) == 3 and all(flag for _, flag in users)
+
+
+def test_backup_and_restore_check_integrity_and_chain(cli_env, tmp_path):
+    runner, url = cli_env
+    runner.invoke(main, ["demo", "load"])
+    target = tmp_path / "backup.db"
+    result = runner.invoke(main, ["backup", str(target)])
+    assert result.exit_code == 0, result.output
+    assert "integrity ok" in result.output and "chain intact" in result.output
+    # Work after the backup is lost on restore: the restored chain is the backup's.
+    runner.invoke(main, ["users", "set-roles", "imarwick", "engineer,auditor"])
+    restored = runner.invoke(main, ["restore", str(target), "--yes"])
+    assert restored.exit_code == 0, restored.output
+    assert _query(url, select(User.roles).where(User.username == "imarwick")) == [("engineer",)]
+    again = runner.invoke(main, ["backup", str(target)])
+    assert again.exit_code == 2 and "exists" in again.output
+
+
+def test_restore_refuses_a_broken_backup(cli_env, tmp_path):
+    runner, url = cli_env
+    runner.invoke(main, ["demo", "load"])
+    target = tmp_path / "backup.db"
+    runner.invoke(main, ["backup", str(target)])
+    import sqlite3
+
+    conn = sqlite3.connect(target)
+    conn.execute("DROP TRIGGER audit_events_no_update")
+    conn.execute("UPDATE audit_events SET reason = 'rewritten' WHERE seq = 2")
+    conn.commit()
+    conn.close()
+    result = runner.invoke(main, ["restore", str(target), "--yes"])
+    assert result.exit_code == 2
+    assert "chain broken at event #2" in result.output

@@ -1,0 +1,169 @@
+"""Load benchmark against the real server (waitress) on loopback.
+
+Starts `plumbline serve` on a free 127.0.0.1 port with a fresh SQLite database holding the demo
+scenario and one fit, then drives it with 16 concurrent keep-alive clients. Request counts and
+duration are bounded. Reports p50, p95 and throughput for login, the study page and the fit page
+beside a trivial baseline route (/healthz) measured in the same run, and the p95 ratios.
+Target (issue): study and fit pages' p95 ≤ 5 × the baseline's p95 at 16 clients.
+"""
+
+from __future__ import annotations
+
+import http.client
+import os
+import re
+import socket
+import statistics
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+from urllib.parse import urlencode
+
+ROOT = Path(__file__).resolve().parents[2]
+CLIENTS = 16
+REQUESTS_PER_ROUTE = int(os.environ.get("BENCH_REQUESTS", "800"))
+LOGIN_REQUESTS = int(os.environ.get("BENCH_LOGINS", "64"))
+MAX_SECONDS_PER_ROUTE = 60.0
+PASSWORD = "bench pass phrase for loopback only"  # noqa: S105
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def _prepare(env: dict[str, str]) -> tuple[int, int]:
+    """Demo studies, a bench user and one fit; returns (study id, fit id)."""
+    code = f"""
+from sqlalchemy import select
+from app import create_app
+from app.store.db import database
+from app.store.models import DataVersion, User
+from app.workflow import accounts, fits, studies
+from app.analysis import Thresholds
+from app.demo import load_demo
+app = create_app()
+load_demo(app)
+with database(app).transaction() as s:
+    u = accounts.create_user(s, None, username="bench", full_name="Bench User",
+                             roles="engineer", password={PASSWORD!r})
+    v = s.scalar(select(DataVersion).order_by(DataVersion.id))
+    spec = fits.build_spec(v, response="Hardness", model="quadratic", thresholds=Thresholds())
+    f = fits.create_fit(s, u, v, spec)
+    print(v.study_id, f.id)
+"""
+    bin_dir = ROOT / ".venv" / "bin"
+    subprocess.run([str(bin_dir / "plumbline"), "db", "upgrade"], env=env, check=True,
+                   capture_output=True)
+    out = subprocess.run([str(bin_dir / "python"), "-c", code], env=env, check=True,
+                         capture_output=True, text=True).stdout.split()
+    return int(out[-2]), int(out[-1])
+
+
+class Client:
+    def __init__(self, port: int):
+        self.conn = http.client.HTTPConnection("127.0.0.1", port, timeout=30)
+        self.cookie = ""
+
+    def request(self, method: str, path: str, body: str | None = None) -> tuple[int, bytes]:
+        headers = {"Cookie": self.cookie} if self.cookie else {}
+        if body is not None:
+            headers["Content-Type"] = "application/x-www-form-urlencoded"
+        self.conn.request(method, path, body=body, headers=headers)
+        resp = self.conn.getresponse()
+        data = resp.read()
+        for header, value in resp.getheaders():
+            if header.lower() == "set-cookie":
+                self.cookie = value.split(";", 1)[0]
+        return resp.status, data
+
+    def login(self) -> int:
+        _, page = self.request("GET", "/login")
+        token = re.search(rb'name="csrf_token" value="([^"]+)"', page).group(1).decode()
+        status, _ = self.request("POST", "/login", urlencode(
+            {"username": "bench", "password": PASSWORD, "csrf_token": token}))
+        return status
+
+
+def _drive(clients: list[Client], total: int, action) -> dict:
+    latencies: list[float] = []
+    errors = []
+    lock = threading.Lock()
+    counter = iter(range(total))
+    deadline = time.perf_counter() + MAX_SECONDS_PER_ROUTE
+
+    def work(client: Client):
+        while time.perf_counter() < deadline:
+            with lock:
+                if next(counter, None) is None:
+                    return
+            t0 = time.perf_counter()
+            status = action(client)
+            dt = time.perf_counter() - t0
+            with lock:
+                latencies.append(dt)
+                if status not in (200, 302):
+                    errors.append(status)
+
+    start = time.perf_counter()
+    threads = [threading.Thread(target=work, args=(c,)) for c in clients]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    elapsed = time.perf_counter() - start
+    latencies.sort()
+    return {"n": len(latencies), "errors": len(errors),
+            "p50_ms": 1000 * statistics.median(latencies),
+            "p95_ms": 1000 * latencies[max(0, int(0.95 * len(latencies)) - 1)],
+            "throughput": len(latencies) / elapsed}
+
+
+def main() -> int:
+    with tempfile.TemporaryDirectory() as tmp:
+        env = {**os.environ, "PLUMBLINE_INSTANCE_PATH": tmp,
+               "PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp}/bench.db"}
+        study_id, fit_id = _prepare(env)
+        port = _free_port()
+        server = subprocess.Popen([str(ROOT / ".venv" / "bin" / "plumbline"), "serve", "--host",
+                                   "127.0.0.1", "--port", str(port), "--threads", "16"],
+                                  env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+        try:
+            for _ in range(100):
+                try:
+                    socket.create_connection(("127.0.0.1", port), timeout=0.2).close()
+                    break
+                except OSError:
+                    time.sleep(0.1)
+            clients = [Client(port) for _ in range(CLIENTS)]
+            results = {"baseline /healthz": _drive(
+                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", "/healthz")[0])}
+            results["login (argon2id)"] = _drive(clients, LOGIN_REQUESTS, Client.login)
+            for c in clients:
+                if c.login() != 302:
+                    raise SystemExit("bench user could not sign in")
+            results["study page"] = _drive(
+                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", f"/studies/{study_id}")[0])
+            results["fit page"] = _drive(
+                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", f"/fits/{fit_id}")[0])
+        finally:
+            server.terminate()
+            server.wait(timeout=10)
+    base = results["baseline /healthz"]["p95_ms"]
+    print(f"load benchmark: {CLIENTS} concurrent clients on 127.0.0.1 (waitress, 16 threads)")
+    print(f"{'route':<20}{'requests':>9}{'errors':>8}{'p50 ms':>9}{'p95 ms':>9}"
+          f"{'req/s':>9}{'p95/base':>10}")
+    for name, r in results.items():
+        print(f"{name:<20}{r['n']:>9}{r['errors']:>8}{r['p50_ms']:>9.1f}{r['p95_ms']:>9.1f}"
+              f"{r['throughput']:>9.1f}{r['p95_ms'] / base:>10.2f}")
+    ok = all(results[k]["p95_ms"] <= 5 * base for k in ("study page", "fit page"))
+    print(f"target study/fit p95 <= 5 x baseline p95: {'met' if ok else 'NOT met'}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
