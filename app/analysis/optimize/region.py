@@ -1,0 +1,302 @@
+"""The design region a setpoint may come from, in coded units, with bounds and fixed factors.
+
+The region is the coded cube [-1, 1]^k, or for a rotatable central composite design the sphere
+through its axial points (radius α, the axial distance). Outside it the model is extrapolating:
+requests that leave it are refused with a message naming the factor, never clipped silently.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .canonical import SetpointError
+
+# Coded-unit slack for "on the boundary": far below any meaningful setting change, above the
+# rounding of actual values typed to a few decimals and of optimiser steps.
+TOL = 1e-7
+
+
+class OutsideRegion(SetpointError):
+    """A request (bound, fixed value, point) that leaves the design region."""
+
+
+@dataclass(frozen=True)
+class FactorScale:
+    """Coding of one factor: coded = (actual - centre) / half_range; (0, 1) when already coded."""
+
+    name: str
+    centre: float
+    half_range: float
+    units: str | None = None
+
+    @classmethod
+    def from_dict(cls, d: dict) -> FactorScale:
+        if d.get("low") is None:
+            return cls(d["name"], 0.0, 1.0, d.get("units"))
+        low, high = float(d["low"]), float(d["high"])
+        return cls(d["name"], (low + high) / 2.0, (high - low) / 2.0, d.get("units"))
+
+    def to_coded(self, actual: float) -> float:
+        return float((actual - self.centre) / self.half_range)
+
+    def to_actual(self, coded: float) -> float:
+        return float(self.centre + self.half_range * coded)
+
+    def describe(self, coded: float) -> str:
+        unit = f" {self.units}" if self.units else ""
+        return f"{self.to_actual(coded):.6g}{unit}"
+
+
+def design_region(design: dict | None, runs: list | None = None) -> tuple[str, float | None]:
+    """(kind, radius): ``sphere`` with the axial distance for a rotatable central composite
+    design, else ``cube`` (radius None, half-width 1).
+
+    The axial distance is read from the included runs with one non-zero coded factor when the
+    runs are given (this also covers inscribed designs, whose axial points sit at ±1), else taken
+    as ``alpha`` (circumscribed: cube points at ±1).
+    """
+    if not design or design.get("kind") != "central_composite" or not design.get("rotatable"):
+        return "cube", None
+    radius = None
+    if runs:
+        axial = []
+        for run in runs:
+            if run.get("excluded"):
+                continue
+            values = [abs(v) for v in run.get("coded", {}).values() if v is not None]
+            nonzero = [v for v in values if v > 1e-4]
+            if len(nonzero) == 1 and len(values) > 1:
+                axial.append(nonzero[0])
+        radius = max(axial) if axial else None
+    if radius is None:
+        alpha = design.get("alpha")
+        radius = float(alpha) if design.get("ccd_type") != "inscribed" else 1.0
+    return "sphere", float(radius)
+
+
+@dataclass(frozen=True)
+class Region:
+    """Where the search may go: the design region cut by bounds, with some factors fixed.
+
+    ``lower``/``upper`` are coded bounds per factor (the region's own box when none was given);
+    ``fixed`` maps factor index to its coded value.
+    """
+
+    kind: str
+    radius: float | None
+    factors: tuple[FactorScale, ...]
+    lower: np.ndarray
+    upper: np.ndarray
+    fixed: dict[int, float] = field(default_factory=dict)
+
+    @property
+    def names(self) -> tuple[str, ...]:
+        return tuple(f.name for f in self.factors)
+
+    @property
+    def free(self) -> list[int]:
+        return [i for i in range(len(self.factors)) if i not in self.fixed]
+
+    def in_design_region(self, coded: np.ndarray) -> np.ndarray:
+        """Row-wise: is each coded point inside the cube or sphere (bounds not considered)?"""
+        x = np.atleast_2d(np.asarray(coded, dtype=float))
+        if self.kind == "sphere":
+            return np.sqrt(np.sum(x**2, axis=1)) <= self.radius + TOL
+        return np.all(np.abs(x) <= 1.0 + TOL, axis=1)
+
+    def inside(self, coded) -> bool:
+        """True when one coded point (array, or dict by factor name) is in the design region,
+        within the bounds and at the fixed values."""
+        x = self.as_array(coded)
+        return bool(self.in_design_region(x)[0] and np.all(x >= self.lower - TOL)
+                    and np.all(x <= self.upper + TOL)
+                    and all(abs(x[i] - v) <= TOL for i, v in self.fixed.items()))
+
+    def as_array(self, coded) -> np.ndarray:
+        if isinstance(coded, dict):
+            missing = [n for n in self.names if n not in coded]
+            if missing:
+                raise SetpointError(f"No coded value for factor '{missing[0]}'", field=missing[0])
+            return np.array([float(coded[n]) for n in self.names])
+        return np.asarray(coded, dtype=float).ravel()
+
+    def require_inside(self, coded, what: str = "The point") -> None:
+        """Raise :class:`OutsideRegion` naming the factor (or, for the sphere, the distance)."""
+        x = self.as_array(coded)
+        for i, f in enumerate(self.factors):
+            if x[i] < self.lower[i] - TOL or x[i] > self.upper[i] + TOL:
+                raise OutsideRegion(
+                    f"{what} sets '{f.name}' to {f.describe(x[i])}, outside its allowed range "
+                    f"{f.describe(self.lower[i])} to {f.describe(self.upper[i])}", field=f.name)
+        if not self.in_design_region(x)[0]:
+            dist = float(np.sqrt(np.sum(x**2)))
+            worst = self.names[int(np.argmax(np.abs(x)))]
+            raise OutsideRegion(
+                f"{what} lies {dist:.4g} coded units from the centre, beyond the design region's "
+                f"radius {self.radius:.4g} (largest coded setting: '{worst}')", field=worst)
+
+    def to_dict(self) -> dict:
+        return {"kind": self.kind, "radius": self.radius,
+                "bounds": {f.name: {"coded": [float(self.lower[i]), float(self.upper[i])],
+                                    "actual": [f.to_actual(self.lower[i]),
+                                               f.to_actual(self.upper[i])]}
+                           for i, f in enumerate(self.factors)},
+                "fixed": {self.factors[i].name: self.factors[i].to_actual(v)
+                          for i, v in sorted(self.fixed.items())}}
+
+
+def _actual_number(value, name: str, what: str) -> float:
+    if isinstance(value, bool):
+        raise SetpointError(f"{what} for '{name}' must be a number", field=name)
+    try:
+        v = float(value)
+    except (TypeError, ValueError) as err:
+        raise SetpointError(f"{what} for '{name}' must be a number (got {value!r})",
+                            field=name) from err
+    if not np.isfinite(v):
+        raise SetpointError(f"{what} for '{name}' must be finite", field=name)
+    return v
+
+
+def _bound_pair(raw, name: str) -> tuple[float | None, float | None]:
+    if isinstance(raw, dict):
+        unknown = sorted(set(raw) - {"low", "high"})
+        if unknown:
+            raise SetpointError(f"Bound for '{name}': unknown field '{unknown[0]}' (use low, high)",
+                                field=name)
+        lo, hi = raw.get("low"), raw.get("high")
+    elif isinstance(raw, (list, tuple)) and len(raw) == 2:
+        lo, hi = raw
+    else:
+        raise SetpointError(f"Bound for '{name}' must be [low, high] or {{low, high}}", field=name)
+    return (None if lo is None else _actual_number(lo, name, "Bound"),
+            None if hi is None else _actual_number(hi, name, "Bound"))
+
+
+def build_region(factors: list[dict], kind: str, radius: float | None,
+                 bounds: dict | None = None, fixed: dict | None = None) -> Region:
+    """The search region: ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} in
+    actual units (None for either end of a bound keeps the region's edge).
+
+    Refuses, naming the factor, a name that is not a factor, a bound with low > high, a bound or
+    fixed value outside the design region, a fixed value outside its own bound, and bounds with
+    fixed values that leave no point inside the sphere.
+    """
+    scales = tuple(FactorScale.from_dict(f) for f in factors)
+    names = [s.name for s in scales]
+    edge = 1.0 if kind == "cube" else float(radius)
+    lower, upper = np.full(len(scales), -edge), np.full(len(scales), edge)
+    for label, given in (("bounds", bounds), ("fixed", fixed)):
+        if given is not None and not isinstance(given, dict):
+            raise SetpointError(f"{label} must be an object keyed by factor name", field=label)
+        for name in (given or {}):
+            if name not in names:
+                raise SetpointError(f"{label} names '{name}', which is not a factor of the fits "
+                                    f"({', '.join(names)})", field=name)
+    for name, raw in (bounds or {}).items():
+        i = names.index(name)
+        f = scales[i]
+        lo, hi = _bound_pair(raw, name)
+        c_lo = -edge if lo is None else f.to_coded(lo)
+        c_hi = edge if hi is None else f.to_coded(hi)
+        if c_lo > c_hi + TOL:
+            raise SetpointError(f"Bound for '{name}': low must not exceed high", field=name)
+        for c in (c_lo, c_hi):
+            if abs(c) > edge + TOL:
+                raise OutsideRegion(
+                    f"Bound for '{name}' ({f.describe(c)}) leaves the design region, which spans "
+                    f"{f.describe(-edge)} to {f.describe(edge)}", field=name)
+        lower[i], upper[i] = c_lo, c_hi
+    coded_fixed: dict[int, float] = {}
+    for name, raw in (fixed or {}).items():
+        i = names.index(name)
+        f = scales[i]
+        c = f.to_coded(_actual_number(raw, name, "Fixed value"))
+        if abs(c) > edge + TOL:
+            raise OutsideRegion(
+                f"Fixed value for '{name}' ({f.describe(c)}) leaves the design region, which "
+                f"spans {f.describe(-edge)} to {f.describe(edge)}", field=name)
+        if c < lower[i] - TOL or c > upper[i] + TOL:
+            raise OutsideRegion(f"Fixed value for '{name}' ({f.describe(c)}) is outside its "
+                                "bound", field=name)
+        coded_fixed[i] = c
+    region = Region(kind=kind, radius=None if kind == "cube" else float(radius), factors=scales,
+                    lower=lower, upper=upper, fixed=coded_fixed)
+    if kind == "sphere":
+        # the box point nearest the centre must lie in the sphere, else nothing does
+        nearest = np.clip(0.0, lower, upper)
+        for i, v in coded_fixed.items():
+            nearest[i] = v
+        if not region.in_design_region(nearest)[0]:
+            worst = names[int(np.argmax(np.abs(nearest)))]
+            raise OutsideRegion("Bounds and fixed values leave no setting inside the design "
+                                f"region (a sphere of radius {radius:.4g} coded units); "
+                                f"relax '{worst}'", field=worst)
+    return region
+
+
+@dataclass(frozen=True)
+class Fits:
+    """Several fits' documents checked to share factors; their common design region."""
+
+    results: dict[str, dict]
+    factors: list[dict]
+    kind: str
+    radius: float | None
+    note: str | None
+
+
+def _same_factor(a: dict, b: dict) -> bool:
+    if a.get("name") != b.get("name") or (a.get("low") is None) != (b.get("low") is None):
+        return False
+    if a.get("low") is None:
+        return True
+    return bool(np.isclose(float(a["low"]), float(b["low"]), rtol=1e-12, atol=0.0)
+                and np.isclose(float(a["high"]), float(b["high"]), rtol=1e-12, atol=0.0))
+
+
+def load_fits(results_by_response: dict[str, dict]) -> Fits:
+    """Check result documents keyed by response: each has a model, all share factor names,
+    order and coding. The region is the common one; when fits disagree (e.g. an exclusion
+    turned one design into a general one) the cube is used and ``note`` says so."""
+    if not isinstance(results_by_response, dict) or not results_by_response:
+        raise SetpointError("At least one fit is needed", field="fits")
+    first_name, factors, regions = None, None, {}
+    for response, result in results_by_response.items():
+        if not isinstance(result, dict) or not isinstance(result.get("model"), dict):
+            raise SetpointError(f"Fit for '{response}' is not a result document with a model",
+                                field="fits")
+        if result.get("response") not in (None, response):
+            raise SetpointError(f"Fit given for '{response}' models '{result['response']}'",
+                                field="fits")
+        these = result["model"].get("factors") or []
+        if factors is None:
+            first_name, factors = response, these
+        elif len(these) != len(factors) or not all(
+                _same_factor(a, b) for a, b in zip(these, factors, strict=True)):
+            def show(fs):
+                return ", ".join(f"{f['name']} [{f.get('low')}, {f.get('high')}]" for f in fs)
+            raise SetpointError(f"Fits must share the same factors and coding: '{response}' has "
+                                f"{show(these)} but '{first_name}' has {show(factors)}",
+                                field="factors")
+        regions[response] = design_region(result.get("design"), result.get("runs"))
+    kinds = set(regions.values())
+    if len(kinds) == 1:
+        kind, radius = kinds.pop()
+        note = None
+    else:
+        kind, radius = "cube", None
+        note = ("The fits describe the design differently ("
+                + "; ".join(f"{r}: {k}" for r, (k, _) in regions.items())
+                + "), so the search keeps to the coded cube")
+    return Fits(results=results_by_response, factors=list(factors), kind=kind, radius=radius,
+                note=note)
+
+
+def observed_range(result: dict) -> tuple[float, float] | None:
+    """(min, max) of the recorded response over the included runs, or None without runs."""
+    values = [r["observed"] for r in result.get("runs") or []
+              if not r.get("excluded") and r.get("observed") is not None]
+    return (float(min(values)), float(max(values))) if values else None
