@@ -150,11 +150,13 @@ def _levels_from_data(raw, name: str, units: str | None):
 @click.option("--transform", type=click.Choice(TRANSFORMS), default="none", show_default=True)
 @click.option("--thresholds", help="review=0.05,fail=0.01")
 @click.option("--sheet", help="Worksheet of an xlsx file (default: the first).")
+@click.option("--goal", help="Search the design region: maximize, minimize or target=VALUE.")
 @click.option("--json", "as_json", is_flag=True, help="Print the full result document as JSON.")
 def check_command(file: Path, response: str, factors: str | None, run_order: str | None,
                   block: str | None, covariates: str | None, model: str | None, terms: str | None,
                   coded: bool, levels: str | None, exclude: tuple[str, ...], transform: str,
-                  thresholds: str | None, sheet: str | None, as_json: bool) -> None:
+                  thresholds: str | None, sheet: str | None, goal: str | None,
+                  as_json: bool) -> None:
     """Fit a model to FILE (csv or xlsx) and report every residual check."""
     from app.ingest import IngestError, read_upload, suggest_roles, validate
 
@@ -183,13 +185,42 @@ def check_command(file: Path, response: str, factors: str | None, run_order: str
             exclusions=parse_exclusions(exclude), thresholds=parse_thresholds(thresholds),
         )
         result = analyse(table.frame, spec)
+        document = result.to_dict()
+        search = None
+        if goal:
+            from app.analysis.optimize import single_goal
+
+            search = single_goal(document, goal)
     except (IngestError, AnalysisError) as err:
         _fail(str(err))
+    if search is not None:
+        document["optimum"] = search["optimum"]
+        document["stationary_point"] = search["stationary_point"]
+        document["setpoint_caution"] = search.get("caution")
     if as_json:
-        click.echo(json.dumps(result.to_dict(), sort_keys=True, indent=2))
-    else:
-        click.echo(f"File: {file.name}")
-        click.echo(summary_text(result), nl=False)
+        click.echo(json.dumps(document, sort_keys=True, indent=2))
+        return
+    click.echo(f"File: {file.name}")
+    click.echo(summary_text(result), nl=False)
+    if search is not None:
+        click.echo(_search_text(goal, search))
+
+
+def _search_text(goal: str, search: dict) -> str:
+    opt = search["optimum"]
+    lines = ["", f"Setting search ({goal}) inside the design region"]
+    for name, value in opt["settings"].items():
+        lines.append(f"  {name:<24} {value:.6g}   (coded {opt['coded'][name]:+.3f})")
+    lines.append(f"  predicted {opt['predicted']:.6g}   95% CI [{opt['ci'][0]:.6g}, "
+                 f"{opt['ci'][1]:.6g}]   95% PI [{opt['pi'][0]:.6g}, {opt['pi'][1]:.6g}]")
+    sp = search.get("stationary_point")
+    if sp:
+        eig = ", ".join(f"{e:.4g}" for e in sp["eigenvalues"])
+        lines.append(f"  stationary point: {sp['kind']} (eigenvalues {eig}), predicted "
+                     f"{sp['predicted']:.6g}")
+    if search.get("caution"):
+        lines.append("  CAUTION: " + search["caution"])
+    return "\n".join(lines)
 
 
 def _fail(message: str) -> None:

@@ -73,3 +73,34 @@ def test_unreadable_cell_is_reported_by_row_and_column(tmp_path):
 def test_missing_file_exits_2(tmp_path):
     res = _run([tmp_path / "none.csv", "--response", "Y"])
     assert res.exit_code == 2
+
+
+def test_goal_adds_optimum_and_stationary_point_to_json():
+    from pathlib import Path
+
+    demo = Path(__file__).resolve().parents[2] / "app" / "demo" / "rsm_demo.csv"
+    result = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal",
+                   "maximize", "--json"])
+    assert result.exit_code == 0, result.output
+    doc = json.loads(result.output)
+    opt, sp = doc["optimum"], doc["stationary_point"]
+    assert set(opt) >= {"coded", "settings", "predicted", "ci", "pi", "desirability"}
+    assert opt["ci"][0] < opt["predicted"] < opt["ci"][1]
+    assert opt["pi"][0] < opt["ci"][0] and opt["ci"][1] < opt["pi"][1]
+    assert all(-1.682 - 1e-9 <= v <= 1.682 + 1e-9 for v in opt["coded"].values())
+    assert sp["kind"] == "maximum" and all(e < 0 for e in sp["eigenvalues"])
+    # The maximum of a concave quadratic inside the region is its stationary point.
+    for name, value in sp["coded"].items():
+        assert abs(opt["coded"][name] - value) < 1e-3
+    assert "Confirmation runs are required" in doc["setpoint_caution"]
+
+
+def test_goal_text_and_bad_goal():
+    from pathlib import Path
+
+    demo = Path(__file__).resolve().parents[2] / "app" / "demo" / "rsm_demo.csv"
+    text = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "target=125"])
+    assert text.exit_code == 0 and "Setting search (target=125)" in text.output
+    assert "CAUTION" in text.output
+    bad = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "biggest"])
+    assert bad.exit_code == 2 and "goal" in bad.output.lower()
