@@ -51,7 +51,18 @@ def _error(exc: Exception):
 
 
 def register(app: Flask) -> None:
-    from app.web import account, admin, auth, data, studies
+    from app.web import (
+        account,
+        admin,
+        api,
+        api_reviews,
+        auth,
+        data,
+        fits,
+        history,
+        reviews,
+        studies,
+    )
 
     app.before_request(enforce_access)
     app.after_request(_security_headers)
@@ -59,7 +70,7 @@ def register(app: Flask) -> None:
     app.register_error_handler(HTTPException, _error)
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
-    for module in (auth, account, admin, studies, data):
+    for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews):
         app.register_blueprint(module.bp)
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")

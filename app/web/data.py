@@ -172,7 +172,8 @@ def view(version_id: int):
                                 .order_by(Fit.created_at.desc())))
     return render_template("data/view.html", version=version, study=version.study, table=table,
                            roles=json.loads(version.roles_json), fits=fits,
-                           read_info=json.loads(version.read_info_json))
+                           read_info=json.loads(version.read_info_json),
+                           fit_url=url_for("fits.builder", version_id=version.id))
 
 
 def _download(body: bytes, filename: str, mimetype: str) -> Response:

@@ -29,8 +29,9 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
     if response not in responses:
         raise WorkflowError(f"'{response}' is not a response of this data version "
                             f"(responses: {', '.join(responses)}).", field="response")
-    factors = tuple(Factor(name=n, low=r.get("low"), high=r.get("high"), units=r.get("units"))
-                    for n, r in roles.items() if r["role"] == "factor")
+    # Factors in the upload's column order (the roles JSON is stored with sorted keys).
+    factors = tuple(Factor(name=n, low=roles[n].get("low"), high=roles[n].get("high"),
+                           units=roles[n].get("units")) for n in design_table(version).factors)
     pick = lambda role: next((n for n, r in roles.items() if r["role"] == role), None)  # noqa: E731
     covariates = tuple((n, r.get("kind") or "numeric") for n, r in roles.items()
                        if r["role"] == "covariate")
@@ -127,3 +128,65 @@ def results_of(fit: Fit) -> dict[str, Any]:
 def fits_of_study(session: Session, study_id: int) -> list[Fit]:
     return list(session.scalars(select(Fit).where(Fit.study_id == study_id)
                                 .order_by(Fit.created_at.desc())))
+
+
+STATISTICS = (("n", "Runs used"), ("p", "Model parameters"), ("df_resid", "Residual df"),
+              ("r_squared", "R²"), ("adj_r_squared", "Adjusted R²"),
+              ("pred_r_squared", "Predicted R²"), ("s", "Residual SD"), ("press", "PRESS"))
+
+
+def compare(fit_a: Fit, fit_b: Fit) -> dict[str, Any]:
+    """Two stored fits side by side: terms, statistics, verdicts, flagged and excluded runs.
+
+    Pure: reads the stored results documents only (nothing is refitted). Each list item holds
+    the value for fit a and fit b, None where a fit lacks it.
+    """
+    a, b = results_of(fit_a), results_of(fit_b)
+
+    def coefs(doc):
+        return {c["term"]: c for c in doc.get("coefficients", [])}
+
+    ca, cb = coefs(a), coefs(b)
+    terms = list(ca) + [t for t in cb if t not in ca]
+    checks_a = {c["id"]: c for c in a.get("checks", [])}
+    checks_b = {c["id"]: c for c in b.get("checks", [])}
+    check_ids = list(checks_a) + [i for i in checks_b if i not in checks_a]
+    runs_a = {r["row"]: r for r in a.get("runs", [])}
+    runs_b = {r["row"]: r for r in b.get("runs", [])}
+    rows = sorted(set(runs_a) | set(runs_b))
+
+    def run_field(runs, row, key):
+        run = runs.get(row)
+        return None if run is None else run.get(key)
+
+    return {
+        "fits": [{"id": f.id, "response": d.get("response"), "model": d["spec"].get("model"),
+                  "transform": (d.get("transform") or {}).get("label"),
+                  "data_version_id": f.data_version_id, "snapshot_sha256": f.snapshot_sha256}
+                 for f, d in ((fit_a, a), (fit_b, b))],
+        "terms": [{"term": t,
+                   "a": None if t not in ca else ca[t]["estimate"],
+                   "b": None if t not in cb else cb[t]["estimate"],
+                   "p_a": None if t not in ca else ca[t].get("p_value"),
+                   "p_b": None if t not in cb else cb[t].get("p_value")} for t in terms],
+        "statistics": [{"key": k, "label": label, "a": a.get("fit", {}).get(k),
+                        "b": b.get("fit", {}).get(k)} for k, label in STATISTICS],
+        "checks": [{"id": i,
+                    "question": (checks_a.get(i) or checks_b.get(i)).get("question"),
+                    "a": (checks_a.get(i) or {}).get("verdict"),
+                    "b": (checks_b.get(i) or {}).get("verdict")} for i in check_ids],
+        "flagged": [{"row": r, "label": run_field(runs_a, r, "label") or run_field(runs_b, r,
+                                                                                     "label"),
+                     "a": run_field(runs_a, r, "flags") or [],
+                     "b": run_field(runs_b, r, "flags") or []}
+                    for r in rows if run_field(runs_a, r, "flags") or run_field(runs_b, r,
+                                                                                 "flags")],
+        "excluded": [{"row": r, "label": run_field(runs_a, r, "label") or run_field(runs_b, r,
+                                                                                      "label"),
+                      "a": run_field(runs_a, r, "exclusion_reason")
+                      if run_field(runs_a, r, "excluded") else None,
+                      "b": run_field(runs_b, r, "exclusion_reason")
+                      if run_field(runs_b, r, "excluded") else None}
+                     for r in rows if run_field(runs_a, r, "excluded")
+                     or run_field(runs_b, r, "excluded")],
+    }

@@ -1,0 +1,379 @@
+"""JSON API under /api/v1: studies, data versions and fits, for scripts and other systems.
+
+Authentication is a personal API token (``Authorization: Bearer plb_...``) or a browser session
+(which then needs ``X-CSRF-Token`` on POST); app.web.access checks both and answers 401/403 as
+JSON. Tokens carry exactly their user's roles. Every operation is described beside its view with
+``@document`` and served at ``/api/v1/openapi.json`` to signed-in users and tokens (not publicly:
+the description is no secret, but nothing here is meant for anonymous callers).
+"""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from flask import Blueprint, current_app, jsonify, request, url_for
+from werkzeug.exceptions import RequestEntityTooLarge
+
+from app.analysis import Thresholds
+from app.analysis.spec import NAMED_MODELS, TRANSFORMS
+from app.ingest import ColumnRole, IngestError, UploadTooLarge, format_size
+from app.store.db import database, get_session
+from app.store.models import DataVersion, Fit, Study, User
+from app.web.access import SIGNED_IN, allow
+from app.web.common import me, tx
+from app.web.openapi import build_document, check, document, json_body, ref, schema
+from app.workflow import WorkflowError, fits, reviews, studies, uploads
+
+bp = Blueprint("api", __name__, url_prefix="/api/v1")
+
+ROLE_NAMES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
+TIME = {"type": "string", "format": "date-time"}
+SHA256 = {"type": "string", "pattern": "^[0-9a-f]{64}$"}
+NULLABLE_NUMBER = {"type": ["number", "null"]}
+
+schema("StudyCreate", {
+    "type": "object", "additionalProperties": False, "required": ["title"],
+    "properties": {
+        "title": {"type": "string", "minLength": 1},
+        "purpose": {"type": "string"},
+        "process": {"type": "string"},
+        "review_below": {"type": "number", "description": "p below this: review (0.05)"},
+        "fail_below": {"type": "number", "description": "p below this: fail (0.01)"},
+    },
+})
+STUDY_PROPERTIES = {
+    "id": {"type": "integer"}, "title": {"type": "string"}, "purpose": {"type": "string"},
+    "process": {"type": "string"}, "owner": ref("UserRef"), "created_at": TIME,
+    "review_below": {"type": "number"}, "fail_below": {"type": "number"},
+}
+schema("Study", {"type": "object", "required": list(STUDY_PROPERTIES),
+                 "properties": STUDY_PROPERTIES})
+schema("ColumnRole", {
+    "type": "object", "additionalProperties": False, "required": ["role"],
+    "properties": {
+        "role": {"type": "string", "enum": list(ROLE_NAMES)},
+        "units": {"type": ["string", "null"]},
+        "low": {**NULLABLE_NUMBER, "description": "Factors: the level coded -1"},
+        "high": {**NULLABLE_NUMBER, "description": "Factors: the level coded +1"},
+        "kind": {"type": ["string", "null"], "enum": ["numeric", "categorical", None],
+                 "description": "Covariates only"},
+    },
+})
+ROLES_SCHEMA = {"type": "object", "additionalProperties": ref("ColumnRole"),
+                "description": "Column name to its role; columns not named are ignored."}
+schema("DataUpload", {
+    "type": "object", "required": ["file", "roles"],
+    "properties": {
+        "file": {"type": "string", "contentMediaType": "application/octet-stream",
+                 "description": "The CSV or XLSX file"},
+        "roles": {"type": "string", "contentMediaType": "application/json",
+                  "description": "JSON: " + ROLES_SCHEMA["description"]},
+        "sheet": {"type": "string", "description": "XLSX sheet (the first when omitted)"},
+        "reason": {"type": "string",
+                   "description": "Required when the study already has a data version"},
+    },
+})
+FIT_SUMMARY_PROPERTIES = {
+    "id": {"type": "integer"},
+    "state": {"type": "string", "enum": ["draft", "submitted", "approved", "returned",
+                                         "superseded", "withdrawn"]},
+    "response": {"type": "string"}, "study_id": {"type": "integer"},
+    "data_version_id": {"type": "integer"}, "snapshot_sha256": SHA256, "created_at": TIME,
+    "created_by": ref("UserRef"),
+}
+schema("FitSummary", {"type": "object", "required": list(FIT_SUMMARY_PROPERTIES),
+                      "properties": FIT_SUMMARY_PROPERTIES})
+DATA_PROPERTIES = {
+    "id": {"type": "integer"}, "study_id": {"type": "integer"}, "version": {"type": "integer"},
+    "filename": {"type": "string"}, "file_kind": {"type": "string", "enum": ["csv", "xlsx"]},
+    "sheet": {"type": ["string", "null"]}, "n_rows": {"type": "integer"},
+    "original_sha256": SHA256, "canonical_sha256": SHA256, "roles": ROLES_SCHEMA,
+    "read_info": {"type": "object"}, "reason": {"type": ["string", "null"]},
+    "created_at": TIME, "created_by": ref("UserRef"),
+}
+schema("DataVersion", {
+    "type": "object", "required": list(DATA_PROPERTIES),
+    "properties": {**DATA_PROPERTIES, "fits": {
+        "type": "array", "items": ref("FitSummary"),
+        "description": "Fits made from this version (GET /data/{version_id} only)"}},
+})
+schema("StudyDetail", {"allOf": [ref("Study"), {
+    "type": "object", "required": ["data_versions", "fits"],
+    "properties": {"data_versions": {"type": "array", "items": ref("DataVersion")},
+                   "fits": {"type": "array", "items": ref("FitSummary")}}}]})
+schema("FitCreate", {
+    "type": "object", "additionalProperties": False, "required": ["response"],
+    "properties": {
+        "response": {"type": "string", "minLength": 1},
+        "model": {"type": ["string", "null"], "enum": [*NAMED_MODELS, None],
+                  "description": "A named model (linear when neither model nor terms is given)"},
+        "terms": {"type": ["array", "null"], "minItems": 1, "items": {"type": "string"},
+                  "description": "Explicit terms instead of a model: A, A:B, A^2"},
+        "transform": {"type": "string", "enum": list(TRANSFORMS)},
+        "boxcox_lambda": NULLABLE_NUMBER,
+        "hierarchy": {"type": "boolean", "description": "Keep parents of every term (true)"},
+        "reduce_alpha": {"type": ["number", "null"], "exclusiveMinimum": 0,
+                         "exclusiveMaximum": 1,
+                         "description": "Backward reduction at this p when set"},
+        "exclusions": {
+            "type": ["array", "object"],
+            "description": "Runs left out, each with a reason: [{row, reason}] or {row: reason}",
+            "items": {"type": "object", "additionalProperties": False,
+                      "required": ["row", "reason"],
+                      "properties": {"row": {"type": "integer", "minimum": 1},
+                                     "reason": {"type": "string", "minLength": 1}}},
+            "propertyNames": {"pattern": "^[1-9][0-9]*$"},
+            "additionalProperties": {"type": "string", "minLength": 1},
+        },
+    },
+})
+schema("Fit", {"allOf": [ref("FitSummary"), {
+    "type": "object",
+    "required": ["snapshot_intact", "software_version", "spec", "thresholds", "signatures",
+                 "results"],
+    "properties": {
+        "snapshot_intact": {"type": "boolean",
+                            "description": "The stored snapshot still hashes to snapshot_sha256"},
+        "software_version": {"type": "string"}, "spec": {"type": "object"},
+        "thresholds": {"type": "object"},
+        "submitted_at": {"type": ["string", "null"], "format": "date-time"},
+        "submitted_by": {"anyOf": [ref("UserRef"), {"type": "null"}]},
+        "signatures": {"type": "array", "items": {"type": "object"}},
+        "results": {"type": "object", "description": "The stored results document"},
+    }}]})
+
+
+# ---- serialisation ------------------------------------------------------------------------
+
+def _when(moment) -> str | None:
+    return None if moment is None else moment.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def _user(user: User | None) -> dict[str, Any] | None:
+    if user is None:
+        return None
+    return {"id": user.id, "username": user.username, "full_name": user.full_name}
+
+
+def _study(study: Study) -> dict[str, Any]:
+    return {"id": study.id, "title": study.title, "purpose": study.purpose,
+            "process": study.process, "owner": _user(study.owner),
+            "created_at": _when(study.created_at), "review_below": study.review_below,
+            "fail_below": study.fail_below}
+
+
+def _data_version(version: DataVersion) -> dict[str, Any]:
+    return {"id": version.id, "study_id": version.study_id, "version": version.version,
+            "filename": version.filename, "file_kind": version.file_kind,
+            "sheet": version.sheet, "n_rows": version.n_rows,
+            "original_sha256": version.original_sha256,
+            "canonical_sha256": version.canonical_sha256,
+            "roles": json.loads(version.roles_json),
+            "read_info": json.loads(version.read_info_json), "reason": version.reason,
+            "created_at": _when(version.created_at), "created_by": _user(version.created_by)}
+
+
+def _fit_summary(fit: Fit) -> dict[str, Any]:
+    return {"id": fit.id, "state": fit.state, "response": fit.response,
+            "study_id": fit.study_id, "data_version_id": fit.data_version_id,
+            "snapshot_sha256": fit.snapshot_sha256, "created_at": _when(fit.created_at),
+            "created_by": _user(fit.created_by)}
+
+
+def _fit(fit: Fit) -> dict[str, Any]:
+    return {**_fit_summary(fit), "snapshot_intact": fits.snapshot_intact(fit),
+            "software_version": fit.software_version, "spec": json.loads(fit.spec_json),
+            "thresholds": json.loads(fit.thresholds_json),
+            "submitted_at": _when(fit.submitted_at), "submitted_by": _user(fit.submitted_by),
+            "signatures": reviews.signatures_json(fit),
+            "results": fits.results_of(fit)}
+
+
+def _created(body: dict[str, Any], location: str):
+    response = jsonify(body)
+    response.status_code = 201
+    response.headers["Location"] = location
+    return response
+
+
+# ---- views --------------------------------------------------------------------------------
+
+@bp.route("/openapi.json")
+@allow(SIGNED_IN)
+@document("GET", "/openapi.json", "This description of the API", tags=("API",),
+          responses={200: ("The OpenAPI 3.1 document", {"type": "object"})})
+def openapi_document():
+    cfg = current_app.config
+    return jsonify(build_document(cfg["SOFTWARE_VERSION"], cfg["SESSION_COOKIE_NAME"]))
+
+
+@bp.route("/studies", methods=["POST"])
+@allow("engineer")
+@document("POST", "/studies", "Create a study", request_schema="StudyCreate", tags=("Studies",),
+          responses={201: ("The new study", "Study")})
+def create_study():
+    """Thresholds default to review below p = 0.05 and fail below p = 0.01."""
+    body = json_body("StudyCreate")
+    for key in ("review_below", "fail_below"):
+        if key in body:
+            body[key] = float(body[key])
+    with tx() as s:
+        study = studies.create_study(s, me(s), **body)
+        out = _study(study)
+    return _created(out, url_for("api.get_study", study_id=study.id))
+
+
+@bp.route("/studies")
+@allow(SIGNED_IN)
+@document("GET", "/studies", "List studies, newest first", tags=("Studies",),
+          responses={200: ("The studies", {"type": "object", "required": ["studies"],
+                                           "properties": {"studies": {"type": "array",
+                                                                      "items": ref("Study")}}})})
+def list_studies():
+    return jsonify({"studies": [_study(s) for s in studies.list_studies(get_session())]})
+
+
+@bp.route("/studies/<int:study_id>")
+@allow(SIGNED_IN)
+@document("GET", "/studies/{study_id}", "A study with its data versions and fits",
+          tags=("Studies",), responses={200: ("The study", "StudyDetail")})
+def get_study(study_id: int):
+    session = get_session()
+    study = studies.get_study(session, study_id)
+    return jsonify({**_study(study),
+                    "data_versions": [_data_version(v) for v in study.data_versions],
+                    "fits": [_fit_summary(f) for f in fits.fits_of_study(session, study.id)]})
+
+
+def _limits() -> dict[str, int]:
+    cfg = current_app.config
+    return {"max_bytes": int(cfg["MAX_UPLOAD_BYTES"]), "max_cells": int(cfg["MAX_UPLOAD_CELLS"])}
+
+
+def _roles_field(text: str | None) -> dict[str, ColumnRole]:
+    """The ``roles`` form field: JSON mapping column names to ColumnRole fields."""
+    if text is None or not text.strip():
+        raise WorkflowError("Field 'roles' is required: JSON mapping each column to "
+                            "{role, units, low, high, kind}.", field="roles")
+    try:
+        value = json.loads(text)
+    except ValueError as exc:
+        raise WorkflowError(f"Field 'roles' is not valid JSON: {exc}.", field="roles") from None
+    check(value, ROLES_SCHEMA, "roles")
+    roles = {}
+    for name, fields in value.items():
+        try:
+            roles[name] = ColumnRole.from_dict(fields)
+        except IngestError as exc:
+            raise WorkflowError(f"Field 'roles.{name}': {exc}", field=f"roles.{name}") from None
+    return roles
+
+
+def _refused_upload(exc: IngestError, status: int):
+    response = jsonify({"error": f"The file was not stored. {exc}", "status": status,
+                        "field": "file", "problems": [p.to_dict() for p in exc.problems]})
+    response.status_code = status
+    return response
+
+
+@bp.route("/studies/<int:study_id>/data", methods=["POST"])
+@allow("engineer")
+@document("POST", "/studies/{study_id}/data", "Upload a data version",
+          request_schema="DataUpload", request_type="multipart/form-data", tags=("Data",),
+          responses={201: ("The new data version", "DataVersion"),
+                     400: ("The file or a field was refused; `problems` lists what is wrong "
+                           "with the file, each naming its row and column", "Error"),
+                     413: ("The file is over the size limit", "Error")})
+def upload_data(study_id: int):
+    """Checked exactly like an upload on the web page; nothing is stored when it is refused."""
+    if request.mimetype != "multipart/form-data":
+        raise WorkflowError(f"Send the upload as multipart/form-data (got "
+                            f"'{request.mimetype or 'no Content-Type'}').",
+                            field="Content-Type", status=415)
+    try:
+        file, form = request.files.get("file"), request.form
+    except RequestEntityTooLarge:
+        limit = format_size(int(current_app.config["MAX_UPLOAD_BYTES"]))
+        raise WorkflowError(f"The upload is larger than the limit of {limit}.", field="file",
+                            status=413) from None
+    # A short read session: parsing a large file must not hold the write lock.
+    with database().session(write=False) as s:
+        studies.get_study(s, study_id)
+    if file is None or not file.filename:
+        raise WorkflowError("Field 'file' is required: the CSV or XLSX file.", field="file")
+    roles = _roles_field(form.get("roles"))
+    data = file.read()
+    try:
+        raw, table = uploads.parse_upload(data, file.filename, roles,
+                                          sheet=form.get("sheet") or None, **_limits())
+    except UploadTooLarge as exc:
+        return _refused_upload(exc, 413)
+    except IngestError as exc:
+        return _refused_upload(exc, 400)
+    with tx() as s:
+        version = uploads.add_data_version(s, me(s), studies.get_study(s, study_id), data=data,
+                                           filename=file.filename, raw=raw, table=table,
+                                           reason=form.get("reason"))
+        out = _data_version(version)
+    return _created(out, url_for("api.get_data", version_id=version.id))
+
+
+@bp.route("/data/<int:version_id>")
+@allow(SIGNED_IN)
+@document("GET", "/data/{version_id}", "A data version with its fits", tags=("Data",),
+          responses={200: ("The data version", "DataVersion")})
+def get_data(version_id: int):
+    session = get_session()
+    version = uploads.get_data_version(session, version_id)
+    made = [f for f in fits.fits_of_study(session, version.study_id)
+            if f.data_version_id == version.id]
+    return jsonify({**_data_version(version), "fits": [_fit_summary(f) for f in made]})
+
+
+def _fit_choices(body: dict[str, Any]) -> dict[str, Any]:
+    """FitCreate fields as keyword arguments of fits.build_spec."""
+    choices = dict(body)
+    terms = choices.get("terms")
+    if terms and choices.get("model") is not None:
+        raise WorkflowError("Give either 'model' or 'terms', not both.", field="terms")
+    choices["model"] = None if terms else choices.get("model", "linear")
+    if choices["model"] is None and not terms:
+        raise WorkflowError("Field 'model' is required when no 'terms' are given "
+                            f"({', '.join(NAMED_MODELS)}).", field="model")
+    excl = choices.get("exclusions")
+    if isinstance(excl, list):
+        rows = [item["row"] for item in excl]
+        twice = sorted({int(r) for r in rows if rows.count(r) > 1})
+        if twice:
+            raise WorkflowError(f"Field 'exclusions' names row {twice[0]} more than once.",
+                                field="exclusions")
+        choices["exclusions"] = [(int(item["row"]), item["reason"]) for item in excl]
+    return choices
+
+
+@bp.route("/data/<int:version_id>/fits", methods=["POST"])
+@allow("engineer")
+@document("POST", "/data/{version_id}/fits", "Fit a model to a data version",
+          request_schema="FitCreate", tags=("Fits",),
+          responses={201: ("The new fit snapshot with its results", "Fit")})
+def create_fit(version_id: int):
+    """The study's current thresholds are used and stored with the snapshot."""
+    choices = _fit_choices(json_body("FitCreate"))
+    with tx() as s:
+        version = uploads.get_data_version(s, version_id)
+        study = version.study
+        spec = fits.build_spec(version, thresholds=Thresholds(review=study.review_below,
+                                                              fail=study.fail_below), **choices)
+        fit = fits.create_fit(s, me(s), version, spec)
+        out = _fit(fit)
+    return _created(out, url_for("api.get_fit", fit_id=fit.id))
+
+
+@bp.route("/fits/<int:fit_id>")
+@allow(SIGNED_IN)
+@document("GET", "/fits/{fit_id}", "A fit snapshot: results document and hash", tags=("Fits",),
+          responses={200: ("The fit", "Fit")})
+def get_fit(fit_id: int):
+    """``snapshot_intact`` is recomputed on every request from the stored snapshot."""
+    return jsonify(_fit(fits.get_fit(get_session(), fit_id)))

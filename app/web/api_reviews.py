@@ -1,0 +1,111 @@
+"""Sign-off through the JSON API: submit a fit, sign it (approve or return).
+
+Errors are JSON ``{error, status, field}``: 409 for a step out of order or a lost race, 403 for
+the signer's own fit, a missing role or a wrong password, 400 naming the field.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from flask import Blueprint, jsonify, url_for
+
+from app.web.access import allow
+from app.web.common import me, tx
+from app.web.openapi import document, json_body, ref, schema
+from app.workflow import fits, reviews
+
+bp = Blueprint("api_reviews", __name__, url_prefix="/api/v1")
+
+SHA256 = {"type": "string", "pattern": "^[0-9a-f]{64}$"}
+schema("FitSubmit", {
+    "type": "object", "additionalProperties": False,
+    "properties": {"row_version": {"type": "integer", "minimum": 1,
+                                   "description": "The version you looked at; 409 if it moved"}},
+})
+schema("FitState", {
+    "type": "object", "required": ["id", "state", "row_version"],
+    "properties": {"id": {"type": "integer"}, "state": {"type": "string"},
+                   "row_version": {"type": "integer"},
+                   "submitted_at": {"type": ["string", "null"], "format": "date-time"}},
+})
+schema("SignatureCreate", {
+    "type": "object", "additionalProperties": False, "required": ["meaning", "password"],
+    "properties": {
+        "meaning": {"type": "string", "enum": list(reviews.SIGN_MEANINGS)},
+        "password": {"type": "string", "minLength": 1,
+                     "description": "The signer's password, entered again to sign"},
+        "comment": {"type": "string", "description": "Required when returning for rework"},
+        "row_version": {"type": "integer", "minimum": 1,
+                        "description": "The version you reviewed; 409 if it moved"},
+    },
+})
+schema("Signature", {
+    "type": "object",
+    "required": ["id", "fit_id", "signer_id", "signer", "printed_name", "signed_at", "meaning",
+                 "comment", "snapshot_sha256", "manifest_sha256", "status", "status_reason"],
+    "properties": {
+        "id": {"type": "integer"}, "fit_id": {"type": "integer"},
+        "signer_id": {"type": "integer"}, "signer": {"type": "string"},
+        "printed_name": {"type": "string"},
+        "signed_at": {"type": "string", "format": "date-time", "description": "Server UTC"},
+        "meaning": {"type": "string"}, "comment": {"type": "string"},
+        "snapshot_sha256": SHA256, "manifest_sha256": SHA256,
+        "status": {"type": "string", "enum": [reviews.VALID, reviews.INVALID,
+                                              reviews.NOT_APPLYING]},
+        "status_reason": {"type": "string"},
+    },
+})
+
+
+def _state(fit) -> dict[str, Any]:
+    when = fit.submitted_at
+    return {"id": fit.id, "state": fit.state, "row_version": fit.row_version,
+            "submitted_at": None if when is None else when.strftime("%Y-%m-%dT%H:%M:%S.%fZ")}
+
+
+@bp.route("/fits/<int:fit_id>/submit", methods=["POST"])
+@allow("engineer")
+@document("POST", "/fits/{fit_id}/submit", "Submit a draft fit for review",
+          request_schema="FitSubmit", tags=("Sign-off",),
+          responses={200: ("The fit, now submitted", ref("FitState")),
+                     409: ("The fit is not a draft, or it changed", ref("Error"))})
+def submit(fit_id: int):
+    """Freezes the snapshot for review. A returned fit stays returned: make a new fit."""
+    body = json_body("FitSubmit")
+    with tx() as s:
+        fit = fits.get_fit(s, fit_id)
+        reviews.submit(s, me(s), fit, body.get("row_version"))
+        out = _state(fit)
+    return jsonify(out)
+
+
+@bp.route("/fits/<int:fit_id>/signatures", methods=["POST"])
+@allow("approver")
+@document("POST", "/fits/{fit_id}/signatures", "Sign a submitted fit",
+          request_schema="SignatureCreate", tags=("Sign-off",),
+          responses={201: ("The signature", ref("Signature")),
+                     409: ("The fit is not submitted, changed, or uses superseded data",
+                           ref("Error"))})
+def sign(fit_id: int):
+    """Approve ("approved for setpoint use") or return ("returned for rework", with a comment).
+
+    The password is checked again; a wrong one is refused with 403 and recorded in the audit
+    trail. Nobody signs a fit they made or submitted.
+    """
+    body = json_body("SignatureCreate")
+    try:
+        with tx() as s:
+            fit = fits.get_fit(s, fit_id)
+            sig = reviews.sign(s, me(s), fit, meaning=body["meaning"], password=body["password"],
+                               comment=body.get("comment"),
+                               expected_row_version=body.get("row_version"))
+            out = reviews.signature_json(fit, sig)
+    except reviews.SignatureRefused as exc:
+        with tx() as s:
+            reviews.record_refusal(s, me(s), fit_id, "sign", exc.message)
+        raise
+    response = jsonify(out)
+    response.status_code = 201
+    response.headers["Location"] = url_for("api.get_fit", fit_id=fit_id)
+    return response

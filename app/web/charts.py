@@ -1,0 +1,442 @@
+"""Residual-check charts: Vega-Lite specs built with Altair from a stored results document.
+
+Every function reads the results dict (``FitResult.to_dict()`` as stored with the fit) and
+returns a :class:`Chart`: its name (the ``chart`` field of the checks points here), a title,
+the Vega-Lite spec and the rows of its text alternative. Nothing is refitted: the contour uses
+the stored ``model`` part through :func:`predict_grid`, a vectorised form of
+``app.analysis.predict``.
+
+Run-based charts share two parameters so that one click highlights a run everywhere:
+``pick`` (a point selection keyed on ``row``) and ``highlight_row`` (the highlighted row, 0 for
+none). static/js/charts.js listens to each view's ``pick`` and sets ``highlight_row`` in all.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import altair as alt
+import numpy as np
+from scipy import stats
+
+from app.analysis import transforms
+
+# Our own palette: ink-blue points, a burnt-orange highlight, red and amber limit lines.
+POINT = "#23527c"
+HIGHLIGHT = "#d9480f"
+LIMIT_FAIL = "#8f1d1d"
+LIMIT_REVIEW = "#b07d12"
+REFERENCE = "#5d6776"
+SURFACE = ["#f3f0e4", "#dfe6c8", "#b9d3b0", "#8dbaa6", "#5f9b9c", "#3d7890", "#2b5678"]
+WIDTH, HEIGHT = 360, 240
+GRID = 31
+
+
+@dataclass(frozen=True)
+class Chart:
+    """One chart: ``name`` matches a check's ``chart`` field; ``rows`` is its text alternative."""
+
+    name: str
+    title: str
+    spec: dict[str, Any]
+    columns: tuple[str, ...]
+    rows: list[tuple] = field(default_factory=list)
+    note: str = ""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "title": self.title, "spec": self.spec, "note": self.note}
+
+
+def _pick() -> alt.Parameter:
+    return alt.selection_point(name="pick", fields=["row"], on="click", clear="dblclick")
+
+
+def _colour():
+    return (alt.when("datum.row === highlight_row").then(alt.value(HIGHLIGHT))
+            .otherwise(alt.value(POINT)))
+
+
+def _size():
+    return alt.when("datum.row === highlight_row").then(alt.value(140)).otherwise(alt.value(50))
+
+
+def _tooltip(*extra: alt.Tooltip) -> list[alt.Tooltip]:
+    return [alt.Tooltip("label:N", title="Run"), alt.Tooltip("run_order:O", title="Run order"),
+            alt.Tooltip("row:O", title="Row"), *extra]
+
+
+def _points(x: alt.X, y: alt.Y, *tips: alt.Tooltip) -> alt.Chart:
+    return (alt.Chart(name="runs").mark_point(filled=True, opacity=0.9)
+            .encode(x=x, y=y, color=_colour(), size=_size(), tooltip=_tooltip(*tips))
+            .add_params(_pick()))
+
+
+def _rules(values: list[dict], colour: str, axis: str = "y", dash=(4, 3)) -> alt.Chart:
+    enc = {axis: alt.X("at:Q") if axis == "x" else alt.Y("at:Q")}
+    return alt.Chart(alt.Data(values=values)).mark_rule(color=colour, strokeDash=list(dash)
+                                                        ).encode(**enc)
+
+
+def _with_data(chart: alt.TopLevelMixin, data: list[dict],
+               extra: dict[str, list[dict]] | None = None) -> dict[str, Any]:
+    """Serialise, then attach the rows as named datasets.
+
+    Altair deep-copies inline values on every operation; naming the datasets and adding the
+    rows to the finished dict keeps a chart with a thousand grid cells cheap to build.
+    """
+    spec = chart.to_dict(validate=False)
+    spec["datasets"] = {"runs": data, **(extra or {})}
+    return spec
+
+
+def _finish(layers: list[alt.Chart], data: list[dict], title: str) -> dict[str, Any]:
+    chart = (alt.layer(*layers, data=alt.NamedData(name="runs"))
+             .add_params(alt.param(name="highlight_row", value=0))
+             .properties(width=WIDTH, height=HEIGHT, title=title))
+    return _with_data(chart, data)
+
+
+def included_runs(results: dict) -> list[dict]:
+    """Runs that entered the fit and have residual diagnostics, in row order."""
+    return [r for r in results["runs"] if not r["excluded"] and r.get("standardized") is not None]
+
+
+def _base_rows(runs: list[dict]) -> list[dict]:
+    return [{"row": r["row"], "label": r.get("label") or f"row {r['row']}",
+             "run_order": r.get("run_order"), "residual": r["residual"], "fitted": r["fitted"],
+             "standardized": r["standardized"], "studentized": r["studentized"],
+             "deleted_studentized": r["deleted_studentized"], "leverage": r["leverage"],
+             "cooks_distance": r["cooks_distance"]} for r in runs]
+
+
+def _r(v: Any, digits: int = 4) -> Any:
+    return round(v, digits) if isinstance(v, float) else v
+
+
+def normal_probability(results: dict) -> Chart:
+    """Residuals against Blom normal scores, reference line through the quartiles."""
+    data = _base_rows(included_runs(results))
+    order = np.argsort([d["residual"] for d in data], kind="stable")
+    n = len(data)
+    scores = stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
+    for rank, i in enumerate(order):
+        data[i]["normal_score"] = float(scores[rank])
+    res = np.array([d["residual"] for d in data])
+    q1, q3 = np.percentile(res, [25, 75])
+    z1, z3 = stats.norm.ppf([0.25, 0.75])
+    slope = (q3 - q1) / (z3 - z1)
+    ends = [float(scores[0]), float(scores[-1])]
+    line = alt.Chart(alt.Data(values=[{"z": z, "ref": float(q1 + slope * (z - z1))}
+                                      for z in ends])).mark_line(color=REFERENCE).encode(
+        x="z:Q", y="ref:Q")
+    pts = _points(alt.X("normal_score:Q", title="Normal score"), alt.Y("residual:Q",
+                  title="Residual"), alt.Tooltip("residual:Q", format=".3g", title="Residual"))
+    spec = _finish([line, pts], data, "Normal probability plot of residuals")
+    rows = [(d["label"], d["run_order"], _r(d["normal_score"]), _r(d["residual"]))
+            for d in sorted(data, key=lambda d: d["normal_score"])]
+    return Chart("normal_probability", "Normal probability plot", spec,
+                 ("Run", "Run order", "Normal score", "Residual"), rows,
+                 "Reference line through the first and third quartiles.")
+
+
+def histogram(results: dict) -> Chart:
+    """Histogram of residuals (bins chosen by Vega-Lite), points underneath for the runs."""
+    data = _base_rows(included_runs(results))
+    bars = alt.Chart(name="bins").mark_bar(color="#9fb6cc").encode(
+        x=alt.X("residual:Q", bin=alt.Bin(maxbins=10), title="Residual"),
+        y=alt.Y("count():Q", title="Runs"))
+    ticks = (alt.Chart(name="runs").mark_tick(thickness=2).encode(
+        x="residual:Q", y=alt.value(HEIGHT), color=_colour(), tooltip=_tooltip())
+        .add_params(_pick()))
+    spec = _with_data(alt.layer(bars, ticks, data=alt.NamedData(name="runs"))
+                      .add_params(alt.param(name="highlight_row", value=0))
+                      .properties(width=WIDTH, height=HEIGHT, title="Histogram of residuals"),
+                      data)
+    rows = [(d["label"], d["run_order"], _r(d["residual"])) for d in data]
+    return Chart("histogram", "Histogram of residuals", spec, ("Run", "Run order", "Residual"),
+                 rows)
+
+
+def residuals_vs_fitted(results: dict) -> Chart:
+    data = _base_rows(included_runs(results))
+    pts = _points(alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
+                  alt.Y("residual:Q", title="Residual"),
+                  alt.Tooltip("fitted:Q", format=".4g", title="Fitted"),
+                  alt.Tooltip("residual:Q", format=".3g", title="Residual"))
+    spec = _finish([_rules([{"at": 0}], REFERENCE, dash=(1, 0)), pts], data,
+                   "Residuals against fitted values")
+    rows = [(d["label"], d["run_order"], _r(d["fitted"]), _r(d["residual"])) for d in data]
+    return Chart("residuals_vs_fitted", "Residuals against fitted values", spec,
+                 ("Run", "Run order", "Fitted", "Residual"), rows)
+
+
+def residuals_vs_factor(results: dict, factor: str) -> Chart:
+    runs = included_runs(results)
+    data = _base_rows(runs)
+    for d, r in zip(data, runs, strict=True):
+        d["level"] = r["actual"][factor]
+    pts = _points(alt.X("level:Q", title=factor, scale=alt.Scale(zero=False)),
+                  alt.Y("residual:Q", title="Residual"), alt.Tooltip("level:Q", title=factor))
+    spec = _finish([_rules([{"at": 0}], REFERENCE, dash=(1, 0)), pts], data,
+                   f"Residuals against {factor}")
+    rows = [(d["label"], d["run_order"], d["level"], _r(d["residual"])) for d in data]
+    return Chart(f"residuals_vs_factor:{factor}", f"Residuals against {factor}", spec,
+                 ("Run", "Run order", factor, "Residual"), rows)
+
+
+def residuals_vs_covariate(results: dict, covariate: str, values: dict[int, Any]) -> Chart:
+    """Residuals against a recorded column left out of the model (values by row)."""
+    runs = included_runs(results)
+    data = _base_rows(runs)
+    numeric = all(isinstance(values.get(r["row"]), int | float) for r in runs)
+    for d in data:
+        d["value"] = values.get(d["row"])
+    x = (alt.X("value:Q", title=covariate, scale=alt.Scale(zero=False)) if numeric
+         else alt.X("value:N", title=covariate))
+    pts = _points(x, alt.Y("residual:Q", title="Residual"),
+                  alt.Tooltip("value:Q" if numeric else "value:N", title=covariate))
+    spec = _finish([_rules([{"at": 0}], REFERENCE, dash=(1, 0)), pts], data,
+                   f"Residuals against {covariate}")
+    rows = [(d["label"], d["run_order"], d["value"], _r(d["residual"])) for d in data]
+    return Chart(f"residuals_vs_covariate:{covariate}", f"Residuals against {covariate}", spec,
+                 ("Run", "Run order", covariate, "Residual"), rows)
+
+
+def run_order(results: dict) -> Chart | None:
+    """Standardized residuals in run order, joined, with ±2.5 and ±3 limit lines."""
+    data = [d for d in _base_rows(included_runs(results)) if d["run_order"] is not None]
+    if not data:
+        return None
+    line = alt.Chart(name="path").mark_line(color="#9fb6cc").encode(
+        x="run_order:Q", y="standardized:Q", order="run_order:Q")
+    pts = _points(alt.X("run_order:Q", title="Run order"),
+                  alt.Y("standardized:Q", title="Standardized residual"),
+                  alt.Tooltip("standardized:Q", format=".3g", title="Standardized"))
+    limits = [_rules([{"at": 0}], REFERENCE, dash=(1, 0)),
+              _rules([{"at": -2.5}, {"at": 2.5}], LIMIT_REVIEW),
+              _rules([{"at": -3.0}, {"at": 3.0}], LIMIT_FAIL)]
+    spec = _finish([*limits, line, pts], data, "Standardized residuals in run order")
+    rows = [(d["label"], d["run_order"], _r(d["standardized"]))
+            for d in sorted(data, key=lambda d: d["run_order"])]
+    return Chart("run_order", "Standardized residuals in run order", spec,
+                 ("Run", "Run order", "Standardized residual"), rows,
+                 "Limit lines at ±2.5 (amber) and ±3 (red), read like an individuals chart.")
+
+
+def spread_by_level(results: dict, factor: str) -> Chart:
+    """Residuals at each level of a factor with each level's ±1 SD bar."""
+    runs = included_runs(results)
+    data = _base_rows(runs)
+    for d, r in zip(data, runs, strict=True):
+        d["level"] = r["actual"][factor]
+    by_level: dict[Any, list[float]] = {}
+    for d in data:
+        by_level.setdefault(d["level"], []).append(d["residual"])
+    spread = [{"level": lv, "sd": float(np.std(v, ddof=1)) if len(v) > 1 else None,
+               "lo": float(np.mean(v) - np.std(v, ddof=1)) if len(v) > 1 else None,
+               "hi": float(np.mean(v) + np.std(v, ddof=1)) if len(v) > 1 else None,
+               "n": len(v)} for lv, v in sorted(by_level.items())]
+    bars = alt.Chart(alt.Data(values=[s for s in spread if s["sd"] is not None])).mark_rule(
+        color="#9fb6cc", strokeWidth=8, opacity=0.7).encode(
+        x=alt.X("level:O"), y="lo:Q", y2="hi:Q",
+        tooltip=[alt.Tooltip("level:O", title=factor), alt.Tooltip("sd:Q", format=".3g",
+                                                                   title="SD"),
+                 alt.Tooltip("n:Q", title="Runs")])
+    pts = _points(alt.X("level:O", title=factor), alt.Y("residual:Q", title="Residual"),
+                  alt.Tooltip("level:O", title=factor))
+    spec = _finish([bars, pts], data, f"Spread of residuals by {factor} level")
+    sd_at = {s["level"]: s["sd"] for s in spread}
+    rows = [(d["label"], d["run_order"], d["level"], _r(d["residual"]), _r(sd_at[d["level"]]))
+            for d in sorted(data, key=lambda d: (d["level"], d["row"]))]
+    return Chart(f"spread_by_level:{factor}", f"Spread by {factor} level", spec,
+                 ("Run", "Run order", factor, "Residual", "Residual SD at this level"), rows,
+                 "Bars show mean ± 1 SD at each level.")
+
+
+def _check(results: dict, check_id: str) -> dict:
+    return next((c for c in results.get("checks", []) if c["id"] == check_id), {})
+
+
+def cooks_distance(results: dict) -> Chart:
+    data = _base_rows(included_runs(results))
+    limit = _check(results, "influence").get("details", {}).get("cooks_review_limit")
+    bars = (alt.Chart(name="runs").mark_bar().encode(
+        x=alt.X("row:O", title="Row"), y=alt.Y("cooks_distance:Q", title="Cook's distance"),
+        color=_colour(), tooltip=_tooltip(alt.Tooltip("cooks_distance:Q", format=".3g", title="Cook's distance")))
+        .add_params(_pick()))
+    layers = [bars] + ([_rules([{"at": limit}], LIMIT_REVIEW)] if limit else [])
+    spec = _finish(layers, data, "Cook's distance by run")
+    rows = [(d["label"], d["run_order"], d["row"], _r(d["cooks_distance"])) for d in data]
+    return Chart("cooks_distance", "Cook's distance by run", spec,
+                 ("Run", "Run order", "Row", "Cook's distance"), rows,
+                 "" if not limit else f"Dashed line: review limit {limit:.3g} (F median).")
+
+
+def leverage(results: dict) -> Chart:
+    """Leverage against deleted studentized residual, with the 2p/n leverage line."""
+    data = _base_rows(included_runs(results))
+    p, n = results["fit"]["p"], results["fit"]["n"]
+    pts = _points(alt.X("leverage:Q", title="Leverage h"),
+                  alt.Y("deleted_studentized:Q", title="Studentized residual (deleted)"),
+                  alt.Tooltip("leverage:Q", format=".3f", title="Leverage"),
+                  alt.Tooltip("deleted_studentized:Q", format=".3g", title="Studentized"))
+    layers = [_rules([{"at": 2 * p / n}], LIMIT_REVIEW, axis="x"),
+              _rules([{"at": -2.5}, {"at": 2.5}], LIMIT_REVIEW), pts]
+    spec = _finish(layers, data, "Leverage against studentized residual")
+    rows = [(d["label"], d["run_order"], _r(d["leverage"]), _r(d["deleted_studentized"]))
+            for d in data]
+    return Chart("leverage", "Leverage against studentized residual", spec,
+                 ("Run", "Run order", "Leverage", "Studentized residual"), rows,
+                 f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±2.5.")
+
+
+def half_normal(results: dict) -> Chart | None:
+    """|effect| against half-normal quantile with Lenth's ME and SME lines."""
+    points, lenth = results.get("half_normal") or [], results.get("lenth")
+    if not points:
+        return None
+    data = [{"term": p["term"], "abs_effect": p["abs_effect"], "quantile": p["quantile"]}
+            for p in points]
+    dots = alt.Chart(name="effects").mark_point(filled=True, color=POINT, size=60).encode(
+        x=alt.X("quantile:Q", title="Half-normal quantile"),
+        y=alt.Y("abs_effect:Q", title="|Effect|"),
+        tooltip=[alt.Tooltip("term:N", title="Term"), alt.Tooltip("abs_effect:Q", format=".4g", title="|Effect|")])
+    labels = alt.Chart().mark_text(align="left", dx=6, fontSize=10, color=REFERENCE).encode(
+        x="quantile:Q", y="abs_effect:Q", text="term:N")
+    layers = [dots, labels]
+    note = ""
+    if lenth:
+        layers += [_rules([{"at": lenth["me"]}], LIMIT_REVIEW), _rules([{"at": lenth["sme"]}],
+                                                                        LIMIT_FAIL)]
+        note = (f"Lenth PSE {lenth['pse']:.4g}; ME {lenth['me']:.4g} (amber), "
+                f"SME {lenth['sme']:.4g} (red).")
+    spec = _with_data(alt.layer(*layers, data=alt.NamedData(name="runs")).properties(
+        width=WIDTH, height=HEIGHT, title="Half-normal plot of effects"), data)
+    rows = [(d["term"], _r(d["quantile"]), _r(d["abs_effect"])) for d in data]
+    return Chart("half_normal", "Half-normal plot of effects", spec,
+                 ("Term", "Half-normal quantile", "|Effect|"), rows, note)
+
+
+def boxcox_profile(results: dict) -> Chart | None:
+    """Profile log-likelihood over lambda with the 95 % cut-off and the CI ends."""
+    box = results.get("boxcox") or {}
+    profile = box.get("profile") or []
+    if not profile:
+        return None
+    data = [{"lambda": p["lambda"], "log_likelihood": p["log_likelihood"]} for p in profile
+            if p["log_likelihood"] is not None]
+    top = max(d["log_likelihood"] for d in data)
+    cut = top - stats.chi2.ppf(0.95, 1) / 2
+    line = alt.Chart(name="profile").mark_line(color=POINT, point=True).encode(
+        x=alt.X("lambda:Q", title="λ"), y=alt.Y("log_likelihood:Q", title="Log-likelihood",
+                                                scale=alt.Scale(zero=False)),
+        tooltip=[alt.Tooltip("lambda:Q", format=".2f", title="λ"),
+                 alt.Tooltip("log_likelihood:Q", format=".4g", title="Log-likelihood")])
+    layers = [line, _rules([{"at": cut}], LIMIT_REVIEW)]
+    ci = [v for v in box.get("ci") or [] if v is not None]
+    if ci:
+        layers.append(_rules([{"at": v} for v in ci], LIMIT_REVIEW, axis="x"))
+    if box.get("lambda_hat") is not None:
+        layers.append(_rules([{"at": box["lambda_hat"]}], REFERENCE, axis="x", dash=(1, 0)))
+    spec = _with_data(alt.layer(*layers, data=alt.NamedData(name="runs")).properties(
+        width=WIDTH, height=HEIGHT, title="Box–Cox profile"), data)
+    rows = [(_r(d["lambda"], 2), _r(d["log_likelihood"])) for d in data]
+    return Chart("boxcox_profile", "Box–Cox profile", spec, ("λ", "Log-likelihood"), rows,
+                 box.get("message") or "")
+
+
+def predict_grid(model: dict, settings: dict[str, np.ndarray]) -> np.ndarray:
+    """Predicted response (back-transformed) at many settings at once, from the stored model.
+
+    The same computation as ``app.analysis.predict`` (x'b in coded units, blocks averaged out,
+    then the inverse transform), on arrays; tests/web/test_charts.py checks it against predict.
+    """
+    coded = {}
+    for f in model["factors"]:
+        v = np.asarray(settings[f["name"]], dtype=float)
+        if f.get("low") is None:
+            coded[f["name"]] = v
+        else:
+            centre, half = (f["low"] + f["high"]) / 2.0, (f["high"] - f["low"]) / 2.0
+            coded[f["name"]] = (v - centre) / half
+    shape = np.broadcast(*coded.values()).shape
+    b = np.asarray(model["coefficients"], dtype=float)
+    z = np.full(shape, b[0])
+    offset = 1 + len(model.get("block_columns", []))
+    for j, term in enumerate(model["terms"]):
+        col = np.ones(shape)
+        for name, power in term["powers"]:
+            col = col * coded[name] ** power
+        z = z + b[offset + j] * col
+    with np.errstate(all="ignore"):
+        out = transforms.inverse(z, model.get("transform", "none"), model.get("lambda"))
+    return np.asarray(out, dtype=float)
+
+
+def contour(results: dict, x_factor: str, y_factor: str) -> Chart:
+    """Fitted response over two factors (others at their centre) with the design points."""
+    model = results["model"]
+    factors = {f["name"]: f for f in model["factors"]}
+    runs = [r for r in results["runs"] if not r["excluded"]]
+    span = {}
+    for name in (x_factor, y_factor):
+        values = [r["actual"][name] for r in results["runs"]]
+        span[name] = np.linspace(min(values), max(values), GRID)
+    gx, gy = np.meshgrid(span[x_factor], span[y_factor])
+    settings = {}
+    for name, f in factors.items():
+        centre = 0.0 if f.get("low") is None else (f["low"] + f["high"]) / 2.0
+        settings[name] = gx if name == x_factor else gy if name == y_factor else centre
+    z = predict_grid(model, settings)
+    dx = (span[x_factor][1] - span[x_factor][0]) / 2
+    dy = (span[y_factor][1] - span[y_factor][0]) / 2
+    cells = [{"x": float(a) - dx, "x2": float(a) + dx, "y": float(b) - dy, "y2": float(b) + dy,
+              "predicted": None if not np.isfinite(c) else round(float(c), 4)}
+             for a, b, c in zip(gx.ravel(), gy.ravel(), z.ravel(), strict=True)]
+    response = results.get("response", "response")
+    heat = alt.Chart(alt.NamedData(name="surface"), name="surface").mark_rect().encode(
+        x=alt.X("x:Q", title=x_factor, scale=alt.Scale(zero=False, nice=False),
+                axis=alt.Axis(grid=False)), x2="x2:Q",
+        y=alt.Y("y:Q", title=y_factor, scale=alt.Scale(zero=False, nice=False),
+                axis=alt.Axis(grid=False)), y2="y2:Q",
+        color=alt.Color("predicted:Q", title=f"Predicted {response}",
+                        scale=alt.Scale(type="quantize", range=SURFACE)),
+        tooltip=[alt.Tooltip("predicted:Q", format=".4g", title=f"Predicted {response}")])
+    data = [{"row": r["row"], "label": r.get("label") or f"row {r['row']}",
+             "run_order": r.get("run_order"), "px": r["actual"][x_factor],
+             "py": r["actual"][y_factor], "observed": r["observed"]} for r in runs]
+    pts = (alt.Chart(name="runs").mark_point(filled=True, stroke="#ffffff", strokeWidth=1)
+           .encode(x="px:Q", y="py:Q", color=_colour(), size=_size(),
+                   tooltip=_tooltip(alt.Tooltip("observed:Q", title=f"Observed {response}")))
+           .add_params(_pick()))
+    others = [n for n in factors if n not in (x_factor, y_factor)]
+    spec = _with_data(alt.layer(heat, pts, data=alt.NamedData(name="runs"))
+                      .add_params(alt.param(name="highlight_row", value=0))
+                      .properties(width=WIDTH, height=HEIGHT,
+                                  title=f"Fitted {response} over {x_factor} and {y_factor}"),
+                      data, {"surface": cells})
+    rows = [(d["label"], d["run_order"], d["px"], d["py"], d["observed"]) for d in data]
+    note = ("Other factors at their centre: " + ", ".join(others) + "." if others else "")
+    return Chart("contour", f"Fitted {response} over {x_factor} and {y_factor}", spec,
+                 ("Run", "Run order", x_factor, y_factor, f"Observed {response}"), rows, note)
+
+
+def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
+               covariates: dict[str, dict[int, Any]] | None = None) -> list[Chart]:
+    """Every chart that applies to this fit, in reading order."""
+    factor_names = [f["name"] for f in results["factors"]]
+    out: list[Chart | None] = []
+    if included_runs(results):
+        out += [normal_probability(results), histogram(results), residuals_vs_fitted(results),
+                run_order(results)]
+        out += [residuals_vs_factor(results, f) for f in factor_names]
+        out += [spread_by_level(results, f) for f in factor_names]
+        out += [residuals_vs_covariate(results, name, values)
+                for name, values in (covariates or {}).items()]
+        out += [cooks_distance(results), leverage(results)]
+    out += [half_normal(results), boxcox_profile(results)]
+    if len(factor_names) >= 2:
+        x, y = pair if pair else (factor_names[0], factor_names[1])
+        out.append(contour(results, x, y))
+    return [c for c in out if c is not None]

@@ -1,0 +1,146 @@
+"""Review and sign-off pages: submit, the review page, sign, withdraw."""
+
+from __future__ import annotations
+
+import json
+
+from flask import Blueprint, flash, redirect, render_template, request, url_for
+
+from app.store import audit
+from app.store.db import database, get_session
+from app.web.access import allow
+from app.web.common import me, tx
+from app.workflow import WorkflowError, fits, reviews
+from app.workflow.compare import differences
+from app.workflow.history import events_of_fit
+
+bp = Blueprint("reviews", __name__)
+
+
+@bp.app_template_global("chain_head")
+def chain_head() -> dict:
+    """The audit chain head (seq and hash) for every printed record."""
+    with database().session(write=False) as s:
+        seq, head_hash = audit.chain_head(s)
+    return {"seq": seq, "hash": head_hash}
+
+
+@bp.app_template_global("signature_check")
+def signature_check(fit, signature) -> reviews.SignatureCheck:
+    return reviews.check_signature(fit, signature)
+
+
+def _row_version(form) -> int | None:
+    raw = (form.get("row_version") or "").strip()
+    if not raw:
+        return None
+    try:
+        return int(raw)
+    except ValueError:
+        raise WorkflowError(f"row_version must be a whole number (got '{raw}').",
+                            field="row_version") from None
+
+
+def _back(fit_id: int):
+    target = request.form.get("next") or ""
+    if target.startswith("/fits/") and "//" not in target:
+        return redirect(target)
+    return redirect(url_for("reviews.review", fit_id=fit_id))
+
+
+@bp.route("/fits/<int:fit_id>/submit", methods=["POST"])
+@allow("engineer")
+def submit(fit_id: int):
+    try:
+        with tx() as s:
+            fit = fits.get_fit(s, fit_id)
+            reviews.submit(s, me(s), fit, _row_version(request.form))
+        flash(f"Fit {fit_id} submitted for review.")
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        return _failed(fit_id, exc)
+    return _back(fit_id)
+
+
+def review_context(session, fit) -> dict:
+    results = fits.results_of(fit)
+    checks = results.get("checks", [])
+    previous = reviews.previous_approved(session, fit)
+    return {
+        "fit": fit, "study": fit.study, "results": results, "checks": checks,
+        "not_run": [c for c in checks if c["verdict"] == "not_applicable"],
+        "flagged": [r for r in results.get("runs", []) if r.get("flags")],
+        "exclusions": json.loads(fit.spec_json).get("exclusions", []),
+        "thresholds": json.loads(fit.thresholds_json),
+        "events": events_of_fit(session, fit),
+        "previous": previous,
+        "diff": None if previous is None else differences(previous, fit),
+        "meanings": list(reviews.SIGN_MEANINGS),
+        "decode": lambda text: None if text is None else json.loads(text),
+    }
+
+
+@bp.route("/fits/<int:fit_id>/review")
+@allow("approver", "engineer", "auditor")
+def review(fit_id: int):
+    session = get_session()
+    fit = fits.get_fit(session, fit_id)
+    return render_template("reviews/review.html", **review_context(session, fit))
+
+
+def _refused(fit_id: int, doing: str, exc: reviews.SignatureRefused) -> None:
+    with tx() as s:
+        reviews.record_refusal(s, me(s), fit_id, doing, exc.message)
+
+
+@bp.route("/fits/<int:fit_id>/sign", methods=["POST"])
+@allow("approver")
+def sign(fit_id: int):
+    form = request.form
+    try:
+        with tx() as s:
+            fit = fits.get_fit(s, fit_id)
+            sig = reviews.sign(s, me(s), fit, meaning=form.get("meaning", ""),
+                               password=form.get("password"), comment=form.get("comment"),
+                               expected_row_version=_row_version(form))
+            meaning = sig.meaning
+    except reviews.SignatureRefused as exc:
+        _refused(fit_id, "sign", exc)
+        return _failed(fit_id, exc)
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        return _failed(fit_id, exc)
+    flash(f"Signed: {meaning}.")
+    return redirect(url_for("reviews.review", fit_id=fit_id))
+
+
+@bp.route("/fits/<int:fit_id>/withdraw", methods=["POST"])
+@allow("approver")
+def withdraw(fit_id: int):
+    form = request.form
+    try:
+        with tx() as s:
+            fit = fits.get_fit(s, fit_id)
+            reviews.withdraw(s, me(s), fit, password=form.get("password"),
+                             reason=form.get("reason", ""),
+                             expected_row_version=_row_version(form))
+    except reviews.SignatureRefused as exc:
+        _refused(fit_id, "withdraw", exc)
+        return _failed(fit_id, exc)
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        return _failed(fit_id, exc)
+    flash(f"Fit {fit_id} withdrawn from use.")
+    return redirect(url_for("reviews.review", fit_id=fit_id))
+
+
+def _failed(fit_id: int, exc: WorkflowError):
+    """The review page again with the refusal shown beside the form, and the error status."""
+    session = get_session()
+    session.rollback()
+    fit = fits.get_fit(session, fit_id)
+    return render_template("reviews/review.html", error=exc.message, error_field=exc.field,
+                           form=request.form, **review_context(session, fit)), exc.status

@@ -1,0 +1,138 @@
+"""The auditor's read-only views: a study's timeline, exports, and the integrity check."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from dataclasses import dataclass
+from datetime import UTC, datetime, time, timedelta
+from typing import Any
+
+from sqlalchemy import or_, select
+from sqlalchemy.orm import Session
+
+from app.store import audit
+from app.store.models import AuditEvent, DataVersion, Fit, Study
+from app.workflow import NotFound, WorkflowError
+from app.workflow.fits import snapshot_intact
+from app.workflow.reviews import check_signature
+from app.workflow.uploads import sha256_bytes
+
+EXPORT_COLUMNS = ("seq", "at", "actor_name", "action", "object_type", "object_id", "reason",
+                  "old_json", "new_json", "prev_hash", "hash")
+# A spreadsheet treats a cell starting with one of these as a formula (OWASP "CSV injection").
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+@dataclass(frozen=True)
+class Filters:
+    object_type: str = ""
+    person: str = ""
+    action: str = ""
+    date_from: str = ""
+    date_to: str = ""
+
+    @classmethod
+    def from_args(cls, args) -> Filters:
+        return cls(**{k: (args.get(k) or "").strip() for k in cls.__dataclass_fields__})
+
+
+def _day(text: str, field: str) -> datetime:
+    try:
+        return datetime.combine(datetime.strptime(text, "%Y-%m-%d").date(), time(), UTC)
+    except ValueError:
+        raise WorkflowError(f"The date '{text}' is not a date like 2026-03-31.",
+                            field=field) from None
+
+
+def timeline(session: Session, study: Study, filters: Filters = Filters()) -> list[AuditEvent]:
+    """A study's events in chain order, filtered by object type, person, action and date (UTC).
+
+    ``person`` matches the recorded actor name (full name and user name) as a substring;
+    ``action`` matches a whole action or a prefix ending in a dot, e.g. ``fit.``.
+    """
+    query = select(AuditEvent).where(AuditEvent.study_id == study.id)
+    if filters.object_type:
+        query = query.where(AuditEvent.object_type == filters.object_type)
+    if filters.person:
+        query = query.where(AuditEvent.actor_name.ilike(f"%{filters.person}%"))
+    if filters.action:
+        query = query.where(or_(AuditEvent.action == filters.action,
+                                AuditEvent.action.startswith(filters.action.rstrip(".") + ".")))
+    if filters.date_from:
+        query = query.where(AuditEvent.at >= _day(filters.date_from, "date_from"))
+    if filters.date_to:
+        query = query.where(AuditEvent.at < _day(filters.date_to, "date_to") + timedelta(days=1))
+    return list(session.scalars(query.order_by(AuditEvent.seq)))
+
+
+def facets(session: Session, study: Study) -> dict[str, list[str]]:
+    """The values present in a study's trail, for the filter choices."""
+    rows = session.execute(select(AuditEvent.object_type, AuditEvent.action, AuditEvent.actor_name)
+                           .where(AuditEvent.study_id == study.id)).all()
+    return {"object_types": sorted({r[0] for r in rows}), "actions": sorted({r[1] for r in rows}),
+            "people": sorted({r[2] for r in rows})}
+
+
+def get_event(session: Session, event_id: int) -> AuditEvent:
+    event = session.get(AuditEvent, event_id)
+    if event is None:
+        raise NotFound(f"No event {event_id}.", field="event")
+    return event
+
+
+def events_of_fit(session: Session, fit: Fit) -> list[AuditEvent]:
+    return list(session.scalars(select(AuditEvent).where(
+        AuditEvent.object_type == "fit", AuditEvent.object_id == str(fit.id))
+        .order_by(AuditEvent.seq)))
+
+
+def decoded(text: str | None) -> Any:
+    return None if text is None else json.loads(text)
+
+
+def neutralise(cell: Any) -> str:
+    """A CSV cell that a spreadsheet will show as text, never evaluate as a formula."""
+    text = "" if cell is None else str(cell)
+    return "'" + text if text.startswith(FORMULA_STARTS) else text
+
+
+def export_csv(study: Study, events: list[AuditEvent], head: tuple[int, str]) -> bytes:
+    """The trail as CSV: a short preamble (study, chain head), then one row per event."""
+    out = io.StringIO(newline="")
+    writer = csv.writer(out, lineterminator="\r\n")
+    writer.writerow([neutralise(c) for c in ("study", study.id, study.title)])
+    writer.writerow(["chain head", head[0], head[1]])
+    writer.writerow([])
+    writer.writerow(EXPORT_COLUMNS)
+    for event in events:
+        values = audit.event_to_dict(event)
+        writer.writerow([neutralise(values[c]) for c in EXPORT_COLUMNS])
+    return out.getvalue().encode("utf-8")
+
+
+def export_json(study: Study, events: list[AuditEvent], head: tuple[int, str]) -> bytes:
+    doc = {"study": {"id": study.id, "title": study.title},
+           "chain_head": {"seq": head[0], "hash": head[1]},
+           "events": [audit.event_to_dict(e) for e in events]}
+    return json.dumps(doc, indent=1, ensure_ascii=False, sort_keys=True).encode("utf-8")
+
+
+def integrity(session: Session) -> dict[str, Any]:
+    """The chain, every data version's hashes, every fit's snapshot, every signature's status."""
+    chain = audit.verify(session)
+    versions = [{"version": v, "original_ok": sha256_bytes(v.original_bytes) == v.original_sha256,
+                 "canonical_ok": sha256_bytes(v.canonical_csv) == v.canonical_sha256}
+                for v in session.scalars(select(DataVersion).order_by(DataVersion.id))]
+    fit_rows, signature_rows = [], []
+    for fit in session.scalars(select(Fit).order_by(Fit.id)):
+        fit_rows.append({"fit": fit, "intact": snapshot_intact(fit)})
+        for sig in fit.signatures:
+            signature_rows.append({"fit": fit, "signature": sig,
+                                   "check": check_signature(fit, sig)})
+    ok = (chain.ok and all(v["original_ok"] and v["canonical_ok"] for v in versions)
+          and all(f["intact"] for f in fit_rows)
+          and all(s["check"].status != "invalid" for s in signature_rows))
+    return {"ok": ok, "chain": chain, "versions": versions, "fits": fit_rows,
+            "signatures": signature_rows}

@@ -1,0 +1,10 @@
+"""Fits: engineers build fits; every signed-in role may read them."""
+
+POLICY = {
+    "fits.builder": {"engineer"},
+    "fits.create": {"engineer"},
+    "fits.view": "signed-in",
+    "fits.charts_json": "signed-in",
+    "fits.results_json": "signed-in",
+    "fits.compare": "signed-in",
+}

@@ -1,0 +1,200 @@
+"""Chart specs built from real results documents: valid Vega-Lite, one data row per run."""
+
+from __future__ import annotations
+
+import jsonschema
+import numpy as np
+import pytest
+from altair.vegalite.v6.schema.core import load_schema
+from numpy.testing import assert_allclose
+from scipy import stats
+
+from app.analysis import Factor, FitSpec, Thresholds, analyse, predict
+from app.demo_data import rsm_study, screening_study
+from app.ingest import read_upload, validate
+from app.web import charts
+
+RUN_CHARTS = ("normal_probability", "histogram", "residuals_vs_fitted", "run_order",
+              "residuals_vs_factor:", "spread_by_level:", "cooks_distance", "leverage",
+              "residuals_vs_covariate:")
+
+
+def _document(demo, **choices) -> tuple[dict, dict]:
+    raw = read_upload(demo.csv_bytes, demo.filename)
+    table = validate(raw, demo.roles)
+    factors = tuple(Factor(n, r.low, r.high, r.units) for n, r in demo.roles.items()
+                    if r.role == "factor")
+    covariates = tuple((n, r.kind) for n, r in demo.roles.items() if r.role == "covariate")
+    spec = FitSpec(factors=factors, run_order="Run order", label="Panel ID",
+                   covariates=covariates, thresholds=Thresholds(), **choices)
+    values = {n: {int(k): float(v) for k, v in table.frame[n].items()} for n, _ in covariates}
+    return analyse(table.frame, spec).to_dict(), values
+
+
+@pytest.fixture(scope="module")
+def rsm():
+    return _document(rsm_study(), response="Hardness", model="quadratic",
+                     exclusions=((3, "panel scratched"),))
+
+
+@pytest.fixture(scope="module")
+def screening():
+    return _document(screening_study(), response="Film thickness", model="linear")
+
+
+@pytest.fixture(scope="module")
+def saturated():
+    return _document(screening_study(), response="Film thickness", model="interaction")
+
+
+@pytest.fixture(scope="module")
+def validator():
+    return jsonschema.Draft7Validator(load_schema())
+
+
+def _rows(spec: dict) -> list[dict]:
+    return spec["datasets"]["runs"]
+
+
+def _is_run_chart(name: str) -> bool:
+    return any(name == p or (p.endswith(":") and name.startswith(p)) for p in RUN_CHARTS)
+
+
+@pytest.mark.parametrize("which", ["rsm", "screening", "saturated"])
+def test_every_chart_is_valid_vega_lite_with_one_row_per_run(request, validator, which):
+    results, covariates = request.getfixturevalue(which)
+    built = charts.all_charts(results, covariates=covariates)
+    assert built, "no charts were built"
+    used = sorted(r["row"] for r in results["runs"] if not r["excluded"]
+                  and r["standardized"] is not None)
+    for chart in built:
+        errors = sorted(validator.iter_errors(chart.spec), key=str)
+        assert not errors, f"{chart.name}: {errors[0].message}"
+        assert chart.spec["$schema"].endswith("v6.4.1.json")
+        if _is_run_chart(chart.name):
+            rows = _rows(chart.spec)
+            assert sorted(r["row"] for r in rows) == used, chart.name
+            assert all(r["label"] and r["run_order"] for r in rows), chart.name
+            # The text alternative holds the same runs as the chart.
+            assert len(chart.rows) == len(used), chart.name
+            params = {p["name"] for layer in chart.spec["layer"] for p in layer.get("params", [])}
+            params |= {p["name"] for p in chart.spec.get("params", [])}
+            assert {"pick", "highlight_row"} <= params, chart.name
+
+
+def test_chart_names_match_the_checks(rsm, screening):
+    for results, covariates in (rsm, screening):
+        names = {c.name for c in charts.all_charts(results, covariates=covariates)}
+        for check in results["checks"]:
+            assert check["chart"] in names, check["id"]
+
+
+def test_excluded_run_is_left_out_of_residual_charts_but_shown_on_the_contour(rsm):
+    results, _ = rsm
+    by_name = {c.name: c for c in charts.all_charts(results)}
+    assert 3 not in {r["row"] for r in _rows(by_name["residuals_vs_fitted"].spec)}
+    # The contour overlays the design points that entered the fit.
+    assert 3 not in {r["row"] for r in _rows(by_name["contour"].spec)}
+    assert len(_rows(by_name["contour"].spec)) == 19
+
+
+def test_run_order_chart_has_control_limits_and_joins_runs_in_order(rsm):
+    results, _ = rsm
+    chart = charts.run_order(results)
+    limits = sorted(v["at"] for layer in chart.spec["layer"] if "data" in layer
+                    for v in layer["data"]["values"])
+    assert limits == [-3.0, -2.5, 0, 2.5, 3.0]
+    line = next(layer for layer in chart.spec["layer"] if layer.get("name") == "path")
+    assert line["mark"]["type"] == "line"
+    assert line["encoding"]["order"]["field"] == "run_order"
+    standardized = {r["row"]: r["standardized"] for r in results["runs"] if not r["excluded"]}
+    for row in _rows(chart.spec):
+        assert row["standardized"] == standardized[row["row"]]
+
+
+def test_normal_plot_uses_blom_scores_and_a_quartile_line(rsm):
+    results, _ = rsm
+    chart = charts.normal_probability(results)
+    rows = sorted(_rows(chart.spec), key=lambda r: r["residual"])
+    n = len(rows)
+    # Blom plotting positions (i - 3/8) / (n + 1/4), cross-checked with scipy's probplot.
+    (osm, osr), _ = stats.probplot([r["residual"] for r in rows], dist="norm")
+    assert_allclose([r["normal_score"] for r in rows],
+                    stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25)), rtol=1e-12)
+    assert_allclose(sorted(r["residual"] for r in rows), osr, rtol=1e-12)
+    line = chart.spec["layer"][0]["data"]["values"]
+    res = np.array([r["residual"] for r in rows])
+    q1, q3 = np.percentile(res, [25, 75])
+    slope = (line[1]["ref"] - line[0]["ref"]) / (line[1]["z"] - line[0]["z"])
+    assert_allclose(slope, (q3 - q1) / (stats.norm.ppf(0.75) - stats.norm.ppf(0.25)),
+                    rtol=1e-12)
+
+
+def test_leverage_line_is_two_p_over_n(rsm):
+    results, _ = rsm
+    chart = charts.leverage(results)
+    p, n = results["fit"]["p"], results["fit"]["n"]
+    vertical = next(layer for layer in chart.spec["layer"]
+                    if layer.get("encoding", {}).get("x", {}).get("field") == "at")
+    assert_allclose(vertical["data"]["values"][0]["at"], 2 * p / n, rtol=1e-12)
+    assert (p, n) == (10, 19)
+
+
+def test_half_normal_has_lenth_lines_for_two_level_design(saturated, rsm):
+    results, _ = saturated
+    chart = charts.half_normal(results)
+    lines = sorted(v["at"] for layer in chart.spec["layer"] if "data" in layer
+                   for v in layer["data"]["values"])
+    assert_allclose(lines, sorted([results["lenth"]["me"], results["lenth"]["sme"]]),
+                    rtol=1e-12)
+    assert len(_rows(chart.spec)) == 15
+    # Not a two-level design: no half-normal plot.
+    assert charts.half_normal(rsm[0]) is None
+
+
+def test_boxcox_profile_cut_off_is_the_chi_square_half_quantile(rsm):
+    results, _ = rsm
+    chart = charts.boxcox_profile(results)
+    top = max(p["log_likelihood"] for p in results["boxcox"]["profile"])
+    cut = chart.spec["layer"][1]["data"]["values"][0]["at"]
+    # 95 % profile-likelihood interval: drop of chi2(0.95, 1) / 2 = 1.92 from the maximum.
+    assert_allclose(top - cut, 1.920729, rtol=1e-6)
+
+
+def test_predict_grid_agrees_with_predict(rsm):
+    results, _ = rsm
+    settings = [{"Cure temperature": 152.0, "Cure time": 21.0, "Catalyst": 0.9},
+                {"Cure temperature": 168.5, "Cure time": 29.0, "Catalyst": 1.1},
+                {"Cure temperature": 160.0, "Cure time": 25.0, "Catalyst": 1.0}]
+    grid = charts.predict_grid(results["model"], {k: np.array([s[k] for s in settings])
+                                                  for k in settings[0]})
+    expected = [predict(results, s)["predicted"] for s in settings]
+    assert_allclose(grid, expected, rtol=1e-12)
+
+
+def test_predict_grid_back_transforms_like_predict():
+    results, _ = _document(rsm_study(), response="Hardness", model="quadratic",
+                           transform="log")
+    setting = {"Cure temperature": 155.0, "Cure time": 27.0, "Catalyst": 0.95}
+    grid = charts.predict_grid(results["model"], {k: np.array([v]) for k, v in setting.items()})
+    assert_allclose(grid[0], predict(results, setting)["predicted"], rtol=1e-12)
+
+
+def test_contour_surface_covers_the_design_and_others_sit_at_centre(rsm):
+    results, _ = rsm
+    chart = charts.contour(results, "Cure time", "Catalyst")
+    cells = chart.spec["datasets"]["surface"]
+    assert len(cells) == charts.GRID ** 2
+    centre_x = [c for c in cells if abs((c["x"] + c["x2"]) / 2 - 25.0) < 1e-9]
+    assert centre_x, "the grid should pass through the centre of Cure time"
+    cell = min(centre_x, key=lambda c: abs((c["y"] + c["y2"]) / 2 - 1.0))
+    expected = predict(results, {"Cure temperature": 160.0, "Cure time": 25.0,
+                                 "Catalyst": (cell["y"] + cell["y2"]) / 2})["predicted"]
+    assert_allclose(cell["predicted"], expected, atol=1e-4)
+    assert "Cure temperature" in chart.note
+
+
+def test_no_run_order_means_no_run_order_chart(rsm):
+    results, _ = rsm
+    stripped = {**results, "runs": [{**r, "run_order": None} for r in results["runs"]]}
+    assert charts.run_order(stripped) is None

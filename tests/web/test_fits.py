@@ -1,0 +1,244 @@
+"""Fit pages through the Flask client: build, exclusions with reasons, errors, stored snapshot."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import re
+
+import pytest
+from sqlalchemy import func, select
+
+from app.demo_data import rsm_study
+from app.ingest import read_upload, validate
+from app.store.models import AuditEvent, Fit, User
+from app.workflow import fits as fit_service
+from app.workflow import studies, uploads
+
+
+@pytest.fixture
+def version_id(db, users):
+    demo = rsm_study()
+    with db.transaction() as s:
+        erin = s.scalar(select(User).where(User.username == "erin"))
+        study = studies.create_study(s, erin, title="Cure study")
+        raw = read_upload(demo.csv_bytes, demo.filename)
+        v = uploads.add_data_version(s, erin, study, data=demo.csv_bytes, filename=demo.filename,
+                                     raw=raw, table=validate(raw, demo.roles))
+        return v.id
+
+
+def _fit(actions, version_id, **fields):
+    data = {"response": "Hardness", "mode": "named", "model": "quadratic", "hierarchy": "on",
+            "transform": "none"}
+    data.update(fields)
+    return actions.post(f"/data/{version_id}/fit", data=data)
+
+
+def _count_fits(db) -> int:
+    with db.session() as s:
+        return s.scalar(select(func.count()).select_from(Fit))
+
+
+def test_builder_lists_responses_terms_and_runs(actions, version_id):
+    actions.login("erin")
+    page = actions.client.get(f"/data/{version_id}/fit").get_data(as_text=True)
+    assert '<option value="Hardness"' in page and '<option value="Gloss"' in page
+    # The term picker offers squares and interactions with their parents for hierarchy.
+    terms = json.loads(re.search(r'id="term-data">(.*?)</script>', page, re.S).group(1))
+    by_name = {t["name"]: t for t in terms}
+    assert sorted(by_name["Cure temperature:Cure time"]["parents"]) == ["Cure temperature",
+                                                                       "Cure time"]
+    assert by_name["Catalyst^2"]["parents"] == ["Catalyst"]
+    assert page.count('name="exclude"') == 20
+    assert 'aria-label="Reason for leaving out row 7"' in page
+
+
+def test_data_page_links_to_the_builder(actions, version_id):
+    actions.login("erin")
+    page = actions.client.get(f"/data/{version_id}").get_data(as_text=True)
+    assert f'href="/data/{version_id}/fit"' in page
+
+
+def test_engineer_fits_quadratic_with_an_exclusion(actions, db, version_id):
+    actions.login("erin")
+    response = _fit(actions, version_id, exclude="3", reason_3="panel scratched in the oven")
+    assert response.status_code == 302
+    fit_id = int(response.headers["Location"].rsplit("/", 1)[1])
+    page = actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    assert "panel scratched in the oven" in page
+    assert "Runs left out of this fit (1)" in page
+    # Every check appears in the verdict panel with its verdict and a link to its chart.
+    with db.session() as s:
+        fit = s.get(Fit, fit_id)
+        results = fit_service.results_of(fit)
+        sha = fit.snapshot_sha256
+        assert json.loads(fit.spec_json)["exclusions"] == [[3, "panel scratched in the oven"]]
+    for check in results["checks"]:
+        assert f'data-check="{check["id"]}"' in page
+        assert check["message"].replace("'", "&#39;") in page
+    assert 'href="#chart-normal_probability"' in page
+    assert 'id="chart-residuals_vs_factor:Cure-temperature"' in page
+    assert sha in page
+    assert "Lack of fit" in page and "Pure error" in page
+    assert "Type III" in page
+    assert results["equation"]["actual"].replace("'", "&#39;") in page
+
+
+def test_exclusion_without_reason_is_refused_and_names_the_field(actions, db, version_id):
+    actions.login("erin")
+    response = _fit(actions, version_id, exclude="5", reason_5="   ")
+    assert response.status_code == 400
+    page = response.get_data(as_text=True)
+    assert "Excluding row 5 needs a written reason." in page
+    assert "(field: exclusions)" in page
+    # The builder comes back with the choice kept, and nothing was stored.
+    assert re.search(r'name="exclude" value="5"[^>]*checked', page)
+    assert _count_fits(db) == 0
+
+
+@pytest.mark.parametrize("fields, message, field", [
+    ({"response": "Nope"}, "'Nope' is not a response", "response"),
+    ({"mode": "terms"}, "Pick at least one term", "terms"),
+    ({"mode": "terms", "terms": ["Cure temperature", "Cure speed"]}, "'Cure speed' is not a "
+     "factor name", "model"),
+    ({"transform": "boxcox", "boxcox_lambda": "half"}, "Box–Cox λ must be a number",
+     "boxcox_lambda"),
+    ({"reduce": "on", "reduce_alpha": "2"}, "Reduction α must be between 0 and 1",
+     "reduce_alpha"),
+    ({"exclude": "99", "reason_99": "typo"}, "Excluded row 99 does not exist", "exclusions"),
+])
+def test_bad_choices_re_render_the_builder_naming_the_field(actions, db, version_id, fields,
+                                                            message, field):
+    actions.login("erin")
+    response = _fit(actions, version_id, **fields)
+    assert response.status_code == 400
+    page = response.get_data(as_text=True)
+    assert message.replace("'", "&#39;") in page
+    assert f"(field: {field})" in page
+    assert _count_fits(db) == 0
+
+
+def test_term_picker_keeps_parents_with_hierarchy(actions, db, version_id):
+    actions.login("erin")
+    response = _fit(actions, version_id, mode="terms", terms=["Cure temperature:Cure time"])
+    assert response.status_code == 302
+    with db.session() as s:
+        results = fit_service.results_of(s.scalar(select(Fit)))
+    assert results["terms"] == ["Cure temperature", "Cure time", "Cure temperature:Cure time"]
+
+
+def test_snapshot_is_served_from_storage(actions, db, version_id, monkeypatch):
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id).headers["Location"].rsplit("/", 1)[1])
+
+    def refuse(*_args, **_kwargs):
+        raise AssertionError("the stored snapshot must not be recomputed")
+
+    monkeypatch.setattr(fit_service, "run_analysis", refuse)
+    monkeypatch.setattr("app.analysis.analyse", refuse)
+    monkeypatch.setattr("app.analysis.engine.analyse", refuse)
+    assert actions.client.get(f"/fits/{fit_id}").status_code == 200
+    assert actions.client.get(f"/fits/{fit_id}/charts.json").status_code == 200
+    download = actions.client.get(f"/fits/{fit_id}/results.json")
+    assert download.status_code == 200
+    assert download.headers["Content-Disposition"] == (f'attachment; filename="fit-{fit_id}'
+                                                       '-results.json"')
+    with db.session() as s:
+        fit = s.get(Fit, fit_id)
+        # Byte for byte what was stored (and hashed) at creation.
+        assert download.get_data(as_text=True) == fit.results_json
+        assert download.headers["X-Snapshot-SHA256"] == fit.snapshot_sha256
+        assert hashlib.sha256(fit_service.canonical_json(
+            fit_service.snapshot_document(fit)).encode()).hexdigest() == fit.snapshot_sha256
+
+
+def test_running_again_makes_a_new_fit_and_audits_it(actions, db, version_id):
+    actions.login("erin")
+    first = _fit(actions, version_id, model="linear").headers["Location"]
+    second = _fit(actions, version_id, model="quadratic").headers["Location"]
+    assert first != second
+    with db.session() as s:
+        assert s.scalar(select(func.count()).select_from(AuditEvent)
+                        .where(AuditEvent.action == "fit.create")) == 2
+
+
+def test_charts_json_has_every_chart_named_like_the_checks(actions, db, version_id):
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id).headers["Location"].rsplit("/", 1)[1])
+    body = actions.client.get(f"/fits/{fit_id}/charts.json").get_json()
+    names = [c["name"] for c in body["charts"]]
+    with db.session() as s:
+        results = fit_service.results_of(s.get(Fit, fit_id))
+    for check in results["checks"]:
+        if check["id"] != "curvature":  # not applicable to a central composite design
+            assert check["chart"] in names
+    assert "contour" in names and "boxcox_profile" in names
+    contour = next(c for c in body["charts"] if c["name"] == "contour")
+    # By default the first two factors of the fit; a query picks the pair.
+    first = results["factors"][0]["name"]
+    assert contour["spec"]["layer"][0]["encoding"]["x"]["title"] == first
+    pair = actions.client.get(f"/fits/{fit_id}/charts.json?x=Cure+time&y=Catalyst").get_json()
+    contour = next(c for c in pair["charts"] if c["name"] == "contour")
+    assert contour["spec"]["layer"][0]["encoding"]["x"]["title"] == "Cure time"
+    assert contour["spec"]["layer"][0]["encoding"]["y"]["title"] == "Catalyst"
+    bad = actions.client.get(f"/fits/{fit_id}/charts.json?x=Catalyst&y=Catalyst")
+    assert bad.status_code == 400
+
+
+def test_compare_two_fits(actions, db, version_id):
+    actions.login("erin")
+    a = int(_fit(actions, version_id, model="linear").headers["Location"].rsplit("/", 1)[1])
+    b = int(_fit(actions, version_id, exclude="3", reason_3="scratched").headers["Location"]
+            .rsplit("/", 1)[1])
+    actions.logout()
+    actions.login("abel")  # approvers read fits too
+    page = actions.client.get(f"/fits/compare?a={a}&b={b}").get_data(as_text=True)
+    assert f"Fit {a} beside fit {b}" in page
+    assert "Cure temperature^2" in page and "not in model" in page
+    assert "scratched" in page
+    with db.session() as s:
+        cmp = fit_service.compare(s.get(Fit, a), s.get(Fit, b))
+    r2 = next(x for x in cmp["statistics"] if x["key"] == "r_squared")
+    assert r2["a"] < r2["b"]  # the quadratic explains more of this curved response
+    square = next(t for t in cmp["terms"] if t["term"] == "Catalyst^2")
+    assert square["a"] is None and square["b"] is not None
+    assert cmp["excluded"] == [{"row": 3, "label": "CV40-R03", "a": None, "b": "scratched"}]
+    assert actions.client.get("/fits/compare?a=1").status_code == 400
+
+
+def test_builder_and_create_are_for_engineers_only(actions, db, version_id):
+    actions.login("abel")
+    assert actions.client.get(f"/data/{version_id}/fit").status_code == 403
+    assert _fit(actions, version_id).status_code == 403
+    assert _count_fits(db) == 0
+
+
+def test_change_and_fit_again_prefills_the_builder(actions, version_id):
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id, exclude="4", reason_4="oven door opened")
+                 .headers["Location"].rsplit("/", 1)[1])
+    page = actions.client.get(f"/data/{version_id}/fit?from={fit_id}").get_data(as_text=True)
+    assert 'value="oven door opened"' in page
+    assert re.search(r'name="exclude" value="4"[^>]*checked', page)
+
+
+def test_saturated_two_level_fit_shows_the_half_normal_plot(actions, db, users):
+    from app.demo_data import screening_study
+
+    demo = screening_study()
+    with db.transaction() as s:
+        erin = s.scalar(select(User).where(User.username == "erin"))
+        study = studies.create_study(s, erin, title="Spray screening")
+        raw = read_upload(demo.csv_bytes, demo.filename)
+        v = uploads.add_data_version(s, erin, study, data=demo.csv_bytes, filename=demo.filename,
+                                     raw=raw, table=validate(raw, demo.roles))
+        vid = v.id
+    actions.login("erin")
+    response = _fit(actions, vid, response="Film thickness", model="interaction")
+    fit_id = int(response.headers["Location"].rsplit("/", 1)[1])
+    page = actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    assert 'data-chart="half_normal"' in page and "Lenth: PSE" in page
+    # No residual degrees of freedom: the residual charts are not drawn, the checks say why.
+    assert 'data-chart="normal_probability"' not in page
+    assert "the model is saturated" in page

@@ -1,0 +1,233 @@
+"""The auditor's history: timeline filters, event detail, exports, integrity, reproduce, package."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+import zipfile
+
+import pytest
+from click.testing import CliRunner
+from sqlalchemy import text
+
+from app.cli_audit import audit_group
+from app.store.models import Fit
+from app.workflow import accounts, studies
+from app.workflow.history import neutralise
+from app.workflow.package import verify_package
+from tests.conftest import PASSWORD
+from tests.workflow import helpers as h
+
+
+@pytest.fixture
+def signed(db, users):
+    """A study with an approved fit, logged in as the auditor is up to each test."""
+    return h.approved_fit(db, model="quadratic")
+
+
+def _auditor(actions):
+    assert actions.login("otto").status_code == 302
+
+
+def _events_table(client, url: str) -> str:
+    page = client.get(url).get_data(as_text=True)
+    return page[page.index('<table class="events">'):]
+
+
+def test_timeline_filters_by_object_person_action_and_date(db, actions, client, signed):
+    study_id, _version, fit_id = signed
+    _auditor(actions)
+    base = f"/history/studies/{study_id}"
+    page = client.get(base).get_data(as_text=True)
+    for action in ("study.create", "data.upload", "fit.create", "fit.submit", "fit.approve"):
+        assert f"<td>{action}</td>" in page
+    assert "submitted → approved" in page and "Audit chain head #" in page
+    only_fits = _events_table(client, base + "?object_type=fit")
+    assert "fit.approve" in only_fits and "data.upload" not in only_fits
+    by_abel = _events_table(client, base + "?person=abel")
+    assert "fit.approve" in by_abel and "fit.create" not in by_abel
+    by_action = _events_table(client, base + "?action=fit.submit")
+    assert "fit.submit" in by_action and "fit.approve" not in by_action
+    by_prefix = _events_table(client, base + "?action=fit.")
+    assert "fit.submit" in by_prefix and "study.create" not in by_prefix
+    assert "No events match." in _events_table(client, base + "?date_from=2999-01-01")
+    assert "fit.approve" in _events_table(client, base + "?date_to=2999-01-01")
+    bad = client.get(base + "?date_to=yesterday")
+    assert bad.status_code == 400 and "yesterday" in bad.get_data(as_text=True)
+
+
+def test_event_detail_shows_before_and_after(db, actions, client, signed):
+    study_id, _version, fit_id = signed
+    _auditor(actions)
+    with db.session() as s:
+        event_id = s.execute(text("SELECT id FROM audit_events WHERE action = 'fit.approve'")
+                             ).scalar_one()
+    page = client.get(f"/history/events/{event_id}").get_data(as_text=True)
+    assert "Before" in page and "After" in page
+    assert "submitted" in page and "approved" in page and "manifest_sha256" in page
+
+
+def test_exports_neutralise_formula_cells_and_carry_the_chain_head(db, actions, client, users):
+    with db.transaction() as s:
+        accounts.create_user(s, None, username="mal", full_name="-Mallory Minus",
+                             roles="engineer", password=PASSWORD)
+        study = studies.create_study(s, h.user(s, "mal"), title="=HYPERLINK(\"x\")")
+        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.1, fail_below=0.02,
+                               reason="=cmd|' /C calc'!A0")
+        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.05, fail_below=0.01,
+                               reason="+44 line supervisor asked")
+        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.06, fail_below=0.01,
+                               reason="@SUM(A1:A9)")
+        study_id = study.id
+    _auditor(actions)
+    response = client.get(f"/history/studies/{study_id}/export.csv")
+    assert response.status_code == 200
+    assert response.headers["Content-Disposition"].startswith("attachment;")
+    rows = list(csv.reader(io.StringIO(response.get_data(as_text=True))))
+    assert rows[0][2] == "'=HYPERLINK(\"x\")"
+    assert rows[1][0] == "chain head" and len(rows[1][2]) == 64
+    header = rows[3]
+    events = [dict(zip(header, r, strict=True)) for r in rows[4:]]
+    assert [e["action"] for e in events] == ["study.create"] + ["study.set_thresholds"] * 3
+    assert events[0]["actor_name"] == "'-Mallory Minus (mal)"
+    assert events[1]["reason"] == "'=cmd|' /C calc'!A0"
+    assert events[2]["reason"] == "'+44 line supervisor asked"
+    assert events[3]["reason"] == "'@SUM(A1:A9)"
+    for event in events:
+        for cell in event.values():
+            assert not cell.startswith(("=", "+", "-", "@", "\t", "\r")), cell
+    exported = client.get(f"/history/studies/{study_id}/export.json")
+    assert exported.headers["Content-Disposition"].startswith("attachment;")
+    doc = exported.json
+    assert doc["chain_head"]["seq"] == int(rows[1][1])
+    # JSON keeps the recorded values exactly (no spreadsheet is involved).
+    assert doc["events"][1]["reason"] == "=cmd|' /C calc'!A0"
+
+
+@pytest.mark.parametrize("cell, shown", [("=1+1", "'=1+1"), ("+1", "'+1"), ("-1", "'-1"),
+                                         ("@x", "'@x"), ("\tx", "'\tx"), ("\rx", "'\rx"),
+                                         ("1-1", "1-1"), (None, ""), (7, "7")])
+def test_neutralise(cell, shown):
+    assert neutralise(cell) == shown
+
+
+def test_integrity_page_names_an_altered_snapshot(db, actions, client, signed):
+    _study, _version, fit_id = signed
+    _auditor(actions)
+    page = client.get("/history/integrity").get_data(as_text=True)
+    assert "Everything checked holds." in page and "intact" in page
+    with db.transaction() as s:
+        s.execute(text("UPDATE fits SET thresholds_json = :t WHERE id = :i"),
+                  {"t": json.dumps({"review": 0.2, "fail": 0.01}), "i": fit_id})
+    page = client.get("/history/integrity").get_data(as_text=True)
+    assert "Something does not hold" in page
+    assert "altered" in page and "signature-status invalid" in page
+
+
+def test_reproduce_matches_then_names_an_altered_coefficient(db, actions, client, signed):
+    _study, _version, fit_id = signed
+    _auditor(actions)
+    page = client.get(f"/history/fits/{fit_id}/reproduce").get_data(as_text=True)
+    assert "match the stored ones, term by term and check by check" in page
+    assert "differs" not in page
+    with db.transaction() as s:
+        doc = json.loads(s.get(Fit, fit_id).results_json)
+        doc["coefficients"][2]["estimate"] *= 1 + 1e-6
+        doc["checks"][0]["verdict"] = "fail"
+        s.execute(text("UPDATE fits SET results_json = :j WHERE id = :i"),
+                  {"j": json.dumps(doc), "i": fit_id})
+    page = client.get(f"/history/fits/{fit_id}/reproduce").get_data(as_text=True)
+    assert "differ from the stored ones" in page and page.count(">differs<") == 2
+
+
+def _package(actions, client, study_id) -> bytes:
+    response = client.get(f"/history/studies/{study_id}/package.zip")
+    assert response.status_code == 200 and response.mimetype == "application/zip"
+    assert response.headers["Content-Disposition"].startswith("attachment;")
+    return response.data
+
+
+def _rewrite(data: bytes, changes: dict[str, bytes], *, fix_manifest: bool) -> bytes:
+    import hashlib
+
+    src = zipfile.ZipFile(io.BytesIO(data))
+    files = {n: src.read(n) for n in src.namelist()}
+    files.update(changes)
+    if fix_manifest:
+        manifest = json.loads(files["manifest.json"])
+        for name in changes:
+            manifest["files"][name] = hashlib.sha256(files[name]).hexdigest()
+        files["manifest.json"] = json.dumps(manifest).encode()
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w") as zf:
+        for name, content in files.items():
+            zf.writestr(name, content)
+    return out.getvalue()
+
+
+def test_package_verifies_offline_and_a_tampered_one_is_named(db, actions, client, signed,
+                                                              tmp_path):
+    study_id, _version, fit_id = signed
+    _auditor(actions)
+    data = _package(actions, client, study_id)
+    from app.demo_data import rsm_study
+
+    demo = rsm_study()
+    names = zipfile.ZipFile(io.BytesIO(data)).namelist()
+    original = zipfile.ZipFile(io.BytesIO(data)).read(f"data/v1/original/{demo.filename}")
+    assert original == demo.csv_bytes
+    assert {f"fits/{fit_id}/snapshot.json", "audit/chain.json", "audit/chain_head.json",
+            "manifest.json"} <= set(names)
+    good = tmp_path / "good.zip"
+    good.write_bytes(data)
+    runner = CliRunner()
+    result = runner.invoke(audit_group, ["verify", "--package", str(good)])
+    assert result.exit_code == 0, result.output
+    assert "package intact" in result.output and "1 signatures" in result.output
+
+    # One byte of the canonical table changed: the manifest names the file.
+    zf = zipfile.ZipFile(io.BytesIO(data))
+    table = zf.read("data/v1/canonical.csv")
+    flipped = table.replace(b"1", b"2", 1)
+    bad = tmp_path / "bad.zip"
+    bad.write_bytes(_rewrite(data, {"data/v1/canonical.csv": flipped}, fix_manifest=False))
+    result = runner.invoke(audit_group, ["verify", "--package", str(bad)])
+    assert result.exit_code == 1
+    assert "data/v1/canonical.csv does not match its SHA-256" in result.output
+
+    # The snapshot rewritten and the manifest fixed up to match: the signature names it.
+    snapshot = json.loads(zf.read(f"fits/{fit_id}/snapshot.json"))
+    snapshot["results"]["coefficients"][1]["estimate"] += 0.5
+    forged = _rewrite(data, {f"fits/{fit_id}/snapshot.json": json.dumps(snapshot).encode()},
+                      fix_manifest=True)
+    report = verify_package(forged)
+    assert not report.ok
+    assert any(f"on fit {fit_id} (Abel Approver): the signed snapshot" in p
+               for p in report.problems), report.problems
+
+    # An event of the packaged chain altered: the chain check names it.
+    events = json.loads(zf.read("audit/chain.json"))
+    events[2]["reason"] = "inserted later"
+    report = verify_package(_rewrite(data, {"audit/chain.json": json.dumps(events).encode()},
+                                     fix_manifest=True))
+    assert any(f"chain broken at event #{events[2]['seq']}" in p for p in report.problems)
+
+
+def test_cli_verify_against_the_database(app, db, signed, backend, monkeypatch):
+    monkeypatch.setenv("PLUMBLINE_DATABASE_URL", app.config["DATABASE_URL"])
+    monkeypatch.setenv("PLUMBLINE_SECRET_KEY", "cli-test-only")
+    monkeypatch.setenv("PLUMBLINE_INSTANCE_PATH", app.instance_path)
+    runner = CliRunner()
+    result = runner.invoke(audit_group, ["verify"])
+    assert result.exit_code == 0, result.output
+    assert result.output.startswith("chain intact:") and "head #" in result.output
+    with db.transaction() as s:
+        if backend == "sqlite":
+            s.execute(text("DROP TRIGGER audit_events_no_update"))
+        else:
+            s.execute(text("DROP TRIGGER audit_events_no_update ON audit_events"))
+        s.execute(text("UPDATE audit_events SET actor_name = 'someone else' WHERE seq = 3"))
+    result = runner.invoke(audit_group, ["verify"])
+    assert result.exit_code == 1
+    assert "chain broken at event #3" in result.output and "altered" in result.output

@@ -1,0 +1,64 @@
+"""Building studies, data versions and fits through the services, for sign-off tests."""
+
+from __future__ import annotations
+
+from sqlalchemy import select
+
+from app.analysis import Thresholds
+from app.demo_data import rsm_study
+from app.ingest import read_upload, validate
+from app.store.models import User
+from app.workflow import fits, reviews, studies, uploads
+from tests.conftest import PASSWORD
+
+
+def user(s, username: str) -> User:
+    return s.scalar(select(User).where(User.username == username))
+
+
+def make_study(db, title: str = "Cure study") -> int:
+    with db.transaction() as s:
+        return studies.create_study(s, user(s, "erin"), title=title).id
+
+
+def add_version(db, study_id: int, reason: str | None = None) -> int:
+    """Upload the demo cure-oven data (again) as the study's next data version."""
+    demo = rsm_study()
+    with db.transaction() as s:
+        study = studies.get_study(s, study_id)
+        raw = read_upload(demo.csv_bytes, demo.filename)
+        return uploads.add_data_version(s, user(s, "erin"), study, data=demo.csv_bytes,
+                                        filename=demo.filename, raw=raw,
+                                        table=validate(raw, demo.roles), reason=reason).id
+
+
+def make_fit(db, version_id: int, *, model: str = "quadratic", response: str = "Hardness",
+             exclusions: dict[int, str] | None = None, author: str = "erin") -> int:
+    with db.transaction() as s:
+        version = uploads.get_data_version(s, version_id)
+        spec = fits.build_spec(version, response=response, model=model, exclusions=exclusions,
+                               thresholds=Thresholds())
+        return fits.create_fit(s, user(s, author), version, spec).id
+
+
+def submit(db, fit_id: int, who: str = "erin") -> None:
+    with db.transaction() as s:
+        reviews.submit(s, user(s, who), fits.get_fit(s, fit_id))
+
+
+def sign(db, fit_id: int, who: str = "abel", meaning: str = reviews.APPROVE,
+         password: str = PASSWORD, comment: str | None = None, expected_row_version=None):
+    with db.transaction() as s:
+        return reviews.sign(s, user(s, who), fits.get_fit(s, fit_id), meaning=meaning,
+                            password=password, comment=comment,
+                            expected_row_version=expected_row_version).id
+
+
+def approved_fit(db, *, model: str = "quadratic") -> tuple[int, int, int]:
+    """A study with one data version and an approved fit: (study, version, fit) ids."""
+    study_id = make_study(db)
+    version_id = add_version(db, study_id)
+    fit_id = make_fit(db, version_id, model=model)
+    submit(db, fit_id)
+    sign(db, fit_id)
+    return study_id, version_id, fit_id
