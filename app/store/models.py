@@ -219,3 +219,53 @@ class ChainHead(Base):
     id: Mapped[int] = mapped_column(primary_key=True)
     seq: Mapped[int] = mapped_column(Integer, default=0)
     hash: Mapped[str] = mapped_column(String(64))
+
+
+SETPOINT_STATES = ("draft", "released", "withdrawn")
+
+
+class SetpointProposal(Base):
+    """Settings proposed from approved fits: inputs, the search result, and their SHA-256.
+
+    Only ``state`` and ``row_version`` change later, by conditional updates on both. The hash
+    covers the inputs, the result and the snapshot hashes of the fits it came from.
+    """
+
+    __tablename__ = "setpoint_proposals"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    fit_ids_json: Mapped[str] = mapped_column(Text)
+    goals_json: Mapped[str] = mapped_column(Text)
+    bounds_json: Mapped[str] = mapped_column(Text)
+    fixed_json: Mapped[str] = mapped_column(Text)
+    result_json: Mapped[str] = mapped_column(Text)
+    snapshot_sha256: Mapped[str] = mapped_column(String(64))
+    state: Mapped[str] = mapped_column(String(16), default="draft")
+    row_version: Mapped[int] = mapped_column(Integer, default=1)
+    created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    study: Mapped[Study] = relationship()
+    created_by: Mapped[User] = relationship()
+    confirmations: Mapped[list[ConfirmationRun]] = relationship(
+        back_populates="setpoint", order_by="ConfirmationRun.id"
+    )
+
+
+class ConfirmationRun(Base):
+    """An uploaded file of runs made at released setpoints, with the verdict per response."""
+
+    __tablename__ = "confirmation_runs"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    setpoint_id: Mapped[int] = mapped_column(ForeignKey("setpoint_proposals.id"), index=True)
+    filename: Mapped[str] = mapped_column(String(255))
+    original_bytes: Mapped[bytes] = mapped_column(LargeBinary)
+    original_sha256: Mapped[str] = mapped_column(String(64))
+    results_json: Mapped[str] = mapped_column(Text)
+    created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    setpoint: Mapped[SetpointProposal] = relationship(back_populates="confirmations")
+    created_by: Mapped[User] = relationship()

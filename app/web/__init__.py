@@ -56,11 +56,13 @@ def register(app: Flask) -> None:
         admin,
         api,
         api_reviews,
+        api_setpoints,
         auth,
         data,
         fits,
         history,
         reviews,
+        setpoints,
         studies,
     )
 
@@ -70,7 +72,8 @@ def register(app: Flask) -> None:
     app.register_error_handler(HTTPException, _error)
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
-    for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews):
+    for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
+                   setpoints, api_setpoints):
         app.register_blueprint(module.bp)
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")

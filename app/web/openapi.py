@@ -162,6 +162,8 @@ def _access_text(view: Callable) -> tuple[str, frozenset[str]]:
         return "Access: anyone, no sign-in needed.", roles
     if SIGNED_IN in roles:
         return "Access: any signed-in user or API token.", roles
+    if not roles:
+        return "Access: refused to everyone (the view declares no access rule).", roles
     return "Access: users with the role " + " or ".join(sorted(roles)) + ".", roles
 
 
@@ -169,7 +171,8 @@ def _operation_object(op: Operation) -> dict[str, Any]:
     access, roles = _access_text(op.view)
     doc = (op.view.__doc__ or "").strip()
     out: dict[str, Any] = {
-        "operationId": op.view.__name__,
+        # Blueprint modules may reuse view names; the module keeps the id unique.
+        "operationId": f"{op.view.__module__.rsplit('.', 1)[-1]}_{op.view.__name__}",
         "summary": op.summary,
         "description": (doc + "\n\n" if doc else "") + access,
         "x-access": sorted(roles),

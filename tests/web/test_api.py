@@ -515,3 +515,17 @@ def test_openapi_document_is_valid(client, db, users):
     doc = client.get(f"{API_PREFIX}/openapi.json",
                      headers=bearer(service_token(db, "otto"))).get_json()
     validator.validate(doc)
+
+
+def test_registry_refuses_a_second_view_for_one_operation():
+    from app.web import openapi
+
+    def other_view():
+        return None
+
+    with pytest.raises(ValueError, match="already documented"):
+        openapi.document("GET", "/fits/{fit_id}", "again", responses={200: ("x", None)})(
+            other_view)
+    with pytest.raises(ValueError, match="relative to /api/v1"):
+        openapi.document("GET", "/api/v1/fits", "prefixed", responses={200: ("x", None)})
+    assert sum(op.path == "/fits/{fit_id}" for op in openapi.OPERATIONS) == 1

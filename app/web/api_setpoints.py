@@ -1,0 +1,179 @@
+"""Setpoints through the JSON API: propose from approved fits, read, release (signed), export.
+
+Errors are JSON ``{error, status, field}``: 409 when a fit is not approved, its approval is
+superseded, withdrawn, no longer applies or its signature is invalid, or when the request
+leaves the design region; 403 for the author's own proposal, a missing role or a wrong
+password; 400 naming the field.
+"""
+
+from __future__ import annotations
+
+import json
+
+from flask import Blueprint, Response, jsonify, request, url_for
+
+from app.analysis.optimize import CAUTION
+from app.store.db import get_session
+from app.web.access import SIGNED_IN, allow
+from app.web.common import me, tx
+from app.web.openapi import document, json_body, ref, schema
+from app.workflow import WorkflowError, fits, setpoint_export, setpoints
+
+bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
+
+NUMBER_OR_NULL = {"type": ["number", "null"]}
+schema("SetpointGoal", {
+    "type": "object", "additionalProperties": False, "required": ["goal"],
+    "properties": {
+        "goal": {"type": "string", "enum": ["maximize", "minimize", "target", "in_range"]},
+        "target": {**NUMBER_OR_NULL, "description": "Goal target only"},
+        "low": {**NUMBER_OR_NULL, "description": "Lower goal limit (observed minimum if omitted)"},
+        "high": {**NUMBER_OR_NULL,
+                 "description": "Upper goal limit (observed maximum if omitted)"},
+        "weight": {"type": ["number", "array", "null"], "items": {"type": "number"},
+                   "description": "Derringer–Suich shape; [below, above] for a target"},
+        "importance": {**NUMBER_OR_NULL, "description": "Importance in the composite D"},
+        "spec": {"type": "object", "additionalProperties": False,
+                 "properties": {"lower": NUMBER_OR_NULL, "upper": NUMBER_OR_NULL},
+                 "description": "Specification limits for the design-space map (optional)"},
+    },
+})
+schema("SetpointCreate", {
+    "type": "object", "additionalProperties": False, "required": ["fits", "goals"],
+    "properties": {
+        "fits": {"type": "array", "minItems": 1, "items": {"type": "integer"},
+                 "description": "Approved fit ids of one study, one per response"},
+        "goals": {"type": "object", "additionalProperties": ref("SetpointGoal"),
+                  "description": "Response name to its goal"},
+        "bounds": {"type": "object", "additionalProperties": {
+            "type": "array", "items": NUMBER_OR_NULL},
+            "description": "Factor to [low, high] in actual units, inside the design region"},
+        "fixed": {"type": "object", "additionalProperties": {"type": "number"},
+                  "description": "Factor to a fixed actual value"},
+    },
+})
+schema("SetpointRelease", {
+    "type": "object", "additionalProperties": False, "required": ["meaning", "password"],
+    "properties": {
+        "meaning": {"type": "string", "enum": list(setpoints.RELEASE_MEANINGS)},
+        "password": {"type": "string", "minLength": 1,
+                     "description": "The signer's password, entered again to sign"},
+        "comment": {"type": "string"},
+        "row_version": {"type": "integer", "minimum": 1,
+                        "description": "The version you looked at; 409 if it moved"},
+    },
+})
+schema("SetpointSheet", {
+    "type": "object",
+    "required": ["caution", "setpoint_id", "state", "snapshot_sha256", "fits", "optimum",
+                 "signatures", "confirmations", "chain_head"],
+    "properties": {
+        "caution": {"type": "string", "const": CAUTION},
+        "setpoint_id": {"type": "integer"}, "study_id": {"type": "integer"},
+        "state": {"type": "string", "enum": ["draft", "released", "withdrawn"]},
+        "snapshot_sha256": {"type": "string", "pattern": "^[0-9a-f]{64}$"},
+        "snapshot_intact": {"type": "boolean"},
+        "fits": {"type": "array", "items": {"type": "object"}},
+        "goals": {"type": "object"},
+        "optimum": {"type": "object", "description": "coded, settings, predicted, ci, pi, "
+                                                     "desirability, gradient"},
+        "stationary_point": {"type": "object"},
+        "signatures": {"type": "array", "items": {"type": "object"}},
+        "confirmations": {"type": "array", "items": {"type": "object"}},
+        "chain_head": {"type": "object"},
+    },
+})
+GUARDS = ("A fit is not approved, its approval was superseded, withdrawn or no longer applies, "
+          "its signature is invalid, or the request leaves the design region")
+
+
+def _sheet(proposal_id: int) -> dict:
+    session = get_session()
+    return setpoint_export.export_json(session, setpoints.get_proposal(session, proposal_id))
+
+
+@bp.route("/setpoints", methods=["POST"])
+@allow("engineer")
+@document("POST", "/setpoints", "Propose setpoints from approved fits",
+          request_schema="SetpointCreate", tags=("Setpoints",),
+          responses={201: ("The stored draft proposal", ref("SetpointSheet")),
+                      409: (GUARDS, ref("Error"))})
+def create():
+    """Searches the design region (cube, or sphere of a rotatable design) for the settings
+    with the highest composite desirability; bounds and fixed values are in actual units."""
+    body = json_body("SetpointCreate")
+    with tx() as s:
+        chosen = [fits.get_fit(s, i) for i in body["fits"]]
+        proposal = setpoints.propose(s, me(s), chosen, body["goals"], body.get("bounds"),
+                                     body.get("fixed"))
+        proposal_id = proposal.id
+        out = setpoint_export.export_json(s, proposal)
+    response = jsonify({"id": proposal_id, **out})
+    response.status_code = 201
+    response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)
+    return response
+
+
+@bp.route("/setpoints/<int:proposal_id>")
+@allow(SIGNED_IN)
+@document("GET", "/setpoints/{proposal_id}", "A setpoint sheet with its signatures",
+          tags=("Setpoints",), responses={200: ("The setpoint sheet", ref("SetpointSheet"))})
+def get(proposal_id: int):
+    return jsonify({"id": proposal_id, **_sheet(proposal_id)})
+
+
+@bp.route("/setpoints/<int:proposal_id>/signatures", methods=["POST"])
+@allow("approver")
+@document("POST", "/setpoints/{proposal_id}/signatures", "Release setpoints (signed)",
+          request_schema="SetpointRelease", tags=("Setpoints",),
+          responses={201: ("The release signature", {"type": "object"}),
+                     409: ("Not a draft, changed meanwhile, or " + GUARDS[0].lower() + GUARDS[1:],
+                           ref("Error"))})
+def release(proposal_id: int):
+    """The password is checked again; a wrong one is refused with 403 and recorded. Nobody
+    releases a proposal they made."""
+    body = json_body("SetpointRelease")
+    try:
+        with tx() as s:
+            proposal = setpoints.get_proposal(s, proposal_id)
+            sig = setpoints.release(s, me(s), proposal, password=body["password"],
+                                    meaning=body["meaning"], comment=body.get("comment"),
+                                    expected_row_version=body.get("row_version"))
+            out = setpoints.signature_json(s, proposal, sig)
+    except setpoints.SignatureRefused as exc:
+        with tx() as s:
+            setpoints.record_refusal(s, me(s), proposal_id, exc.message)
+        raise
+    response = jsonify(out)
+    response.status_code = 201
+    response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)
+    return response
+
+
+@bp.route("/setpoints/<int:proposal_id>/export")
+@allow(SIGNED_IN)
+@document("GET", "/setpoints/{proposal_id}/export", "Export the setpoint sheet",
+          tags=("Setpoints",),
+          parameters=({"name": "proposal_id", "in": "path", "required": True,
+                       "schema": {"type": "integer"}},
+                      {"name": "format", "in": "query", "required": False,
+                       "schema": {"type": "string", "enum": ["json", "csv"]}}),
+          responses={200: ("The sheet as an attachment (JSON, or CSV with format=csv)",
+                           ref("SetpointSheet"))})
+def export(proposal_id: int):
+    """Carries fit ids, snapshot hashes, signatures, the chain head and the caution text."""
+    kind = request.args.get("format", "json")
+    if kind not in ("json", "csv"):
+        raise WorkflowError("format must be json or csv.", field="format")
+    session = get_session()
+    proposal = setpoints.get_proposal(session, proposal_id)
+    if kind == "csv":
+        body, mimetype = setpoint_export.export_csv(session, proposal), "text/csv"
+    else:
+        body = json.dumps(setpoint_export.export_json(session, proposal), indent=2,
+                          ensure_ascii=False).encode()
+        mimetype = "application/json"
+    response = Response(body, mimetype=mimetype)
+    response.headers["Content-Disposition"] = (
+        f'attachment; filename="setpoints_{proposal_id}.{kind}"')
+    return response

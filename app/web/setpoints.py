@@ -1,0 +1,288 @@
+"""Setpoint pages: propose from approved fits, the setpoint sheet, design-space map, release,
+confirmation runs, exports. Refusals answer with the page, the plain message and its status
+(409 for the guards, 403 for the signer's own proposal or a wrong password)."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from flask import (
+    Blueprint,
+    Response,
+    current_app,
+    flash,
+    redirect,
+    render_template,
+    request,
+    url_for,
+)
+from sqlalchemy import select
+
+from app.analysis.optimize import CAUTION, SetpointError, design_space
+from app.store.db import get_session
+from app.store.models import Fit
+from app.web.access import SIGNED_IN, allow
+from app.web.common import me, tx
+from app.web.setpoint_charts import design_space_chart
+from app.workflow import WorkflowError, confirmations, fits, setpoint_export, setpoints, studies
+
+bp = Blueprint("setpoints", __name__)
+
+GOAL_CHOICES = (("maximize", "maximize"), ("minimize", "minimize"),
+                ("target", "target with limits"), ("in_range", "in range"),
+                ("none", "no goal (predict only)"))
+
+
+@bp.app_template_global("setpoint_proposals")
+def setpoint_proposals(study_id: int) -> list:
+    """The study's setpoint proposals, newest first (for templates/setpoints/_study_link.html)."""
+    return setpoints.proposals_of_study(get_session(), study_id)
+
+
+# ---- proposing -------------------------------------------------------------------------------
+
+def _candidates(session, study_id: int) -> list[dict[str, Any]]:
+    """Every fit of the study with the reason it may not drive setpoints (None when it may)."""
+    rows = session.scalars(select(Fit).where(Fit.study_id == study_id).order_by(Fit.id.desc()))
+    return [{"fit": f, "problem": setpoints.fit_problem(f)} for f in rows]
+
+
+def _factors(candidates: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    for c in candidates:
+        if c["problem"] is None:
+            return fits.results_of(c["fit"])["model"]["factors"]
+    return []
+
+
+def _number(form, name: str, label: str) -> float | None:
+    raw = (form.get(name) or "").strip()
+    if not raw:
+        return None
+    try:
+        return float(raw.replace(",", "."))
+    except ValueError:
+        raise WorkflowError(f"{label} must be a number (got '{raw}').", field=name) from None
+
+
+def parse_proposal_form(form, factors: list[dict[str, Any]]) -> dict[str, Any]:
+    """Fit ids, goals (with spec limits), bounds and fixed values from the proposal form."""
+    chosen = []
+    for raw in form.getlist("fit"):
+        try:
+            chosen.append(int(raw))
+        except ValueError:
+            raise WorkflowError(f"Fit '{raw}' is not a fit number.", field="fit") from None
+    if not chosen:
+        raise WorkflowError("Tick at least one approved fit.", field="fit")
+    chosen.sort()
+    goals: dict[int, dict[str, Any]] = {}
+    for fit_id in chosen:
+        goal = form.get(f"goal_{fit_id}", "none")
+        if goal == "none":
+            continue
+        spec = {"goal": goal}
+        for key, label in (("target", "Target"), ("low", "Lower goal limit"),
+                           ("high", "Upper goal limit"), ("weight", "Weight"),
+                           ("importance", "Importance")):
+            value = _number(form, f"{key}_{fit_id}", f"{label} of fit {fit_id}")
+            if value is not None:
+                spec[key] = value
+        limits = {k: _number(form, f"spec_{k}_{fit_id}", f"Specification {k} limit of fit "
+                             f"{fit_id}") for k in ("lower", "upper")}
+        if any(v is not None for v in limits.values()):
+            spec["spec"] = limits
+        goals[fit_id] = spec
+    bounds, fixed = {}, {}
+    for j, factor in enumerate(factors):
+        name = factor["name"]
+        value = _number(form, f"fixed_{j}", f"Fixed value of {name}")
+        if value is not None:
+            fixed[name] = value
+        low = _number(form, f"bound_low_{j}", f"Lower bound of {name}")
+        high = _number(form, f"bound_high_{j}", f"Upper bound of {name}")
+        if low is not None or high is not None:
+            bounds[name] = [low, high]
+    return {"fit_ids": chosen, "goals": goals, "bounds": bounds, "fixed": fixed}
+
+
+def _form_page(study_id: int, form=None, error: str | None = None, field: str | None = None,
+               status: int = 200):
+    session = get_session()
+    study = studies.get_study(session, study_id)
+    candidates = _candidates(session, study_id)
+    return render_template("setpoints/new.html", study=study, candidates=candidates,
+                           factors=_factors(candidates), goal_choices=GOAL_CHOICES,
+                           form=form or {}, error=error, error_field=field,
+                           chosen=form.getlist("fit") if form is not None else [],
+                           caution=CAUTION), status
+
+
+@bp.route("/studies/<int:study_id>/setpoints/new", methods=["GET", "POST"])
+@allow("engineer")
+def new(study_id: int):
+    if request.method == "GET":
+        return _form_page(study_id)
+    try:
+        factors = _factors(_candidates(get_session(), study_id))
+        parsed = parse_proposal_form(request.form, factors)
+        with tx() as s:
+            studies.get_study(s, study_id)
+            chosen = [fits.get_fit(s, i) for i in parsed["fit_ids"]]
+            if any(f.study_id != study_id for f in chosen):
+                raise WorkflowError("Every fit must belong to this study.", field="fit")
+            by_fit = {f.id: f.response for f in chosen}
+            goals = {by_fit[i]: g for i, g in parsed["goals"].items()}
+            proposal = setpoints.propose(s, me(s), chosen, goals, parsed["bounds"],
+                                         parsed["fixed"])
+            proposal_id = proposal.id
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        get_session().rollback()
+        return _form_page(study_id, request.form, exc.message, exc.field, exc.status)
+    flash(f"Setpoint proposal {proposal_id} stored as a draft; an approver releases it.")
+    return redirect(url_for("setpoints.view", proposal_id=proposal_id))
+
+
+# ---- the setpoint sheet ----------------------------------------------------------------------
+
+def sheet_context(session, proposal) -> dict[str, Any]:
+    result = setpoints.result_of(proposal)
+    chosen = setpoints.fits_of(session, proposal)
+    units = {f["name"]: f.get("units") for f in
+             fits.results_of(chosen[0])["model"]["factors"]} if chosen else {}
+    sigs = setpoints.release_signatures(session, proposal)
+    return {
+        "proposal": proposal, "study": proposal.study, "result": result,
+        "optimum": result["optimum"], "goals": setpoints.goals_of(proposal),
+        "fits": [{"fit": f, "problem": setpoints.fit_problem(f)} for f in chosen],
+        "units": units, "caution": CAUTION,
+        "intact": setpoints.proposal_intact(session, proposal),
+        "signatures": [(s, setpoints.signature_check(session, proposal, s)) for s in sigs],
+        "confirmations": [(run, confirmations.results_of(run))
+                          for run in proposal.confirmations],
+        "meanings": setpoints.RELEASE_MEANINGS,
+        # the fits' own factor order (the stored JSON has its keys sorted)
+        "factor_names": list(units) or list(result["optimum"]["settings"]),
+    }
+
+
+def _sheet(proposal_id: int, error: str | None = None, field: str | None = None,
+           status: int = 200):
+    session = get_session()
+    if error:
+        session.rollback()
+    proposal = setpoints.get_proposal(session, proposal_id)
+    return render_template("setpoints/view.html", error=error, error_field=field,
+                           **sheet_context(session, proposal)), status
+
+
+@bp.route("/setpoints/<int:proposal_id>")
+@allow(SIGNED_IN)
+def view(proposal_id: int):
+    return _sheet(proposal_id)
+
+
+@bp.route("/setpoints/<int:proposal_id>/design-space")
+@allow(SIGNED_IN)
+def design_space_page(proposal_id: int):
+    session = get_session()
+    proposal = setpoints.get_proposal(session, proposal_id)
+    result = setpoints.result_of(proposal)
+    settings = result["optimum"]["settings"]
+    chosen = setpoints.fits_of(session, proposal)
+    names = ([f["name"] for f in fits.results_of(chosen[0])["model"]["factors"]] if chosen
+             else list(settings))
+    x = request.args.get("x") or names[0]
+    y = request.args.get("y") or (names[1] if len(names) > 1 else names[0])
+    specs = {r: g["spec"] for r, g in setpoints.goals_of(proposal).items() if g.get("spec")}
+    context = {"proposal": proposal, "study": proposal.study, "caution": CAUTION,
+               "names": names, "x": x, "y": y, "specs": specs, "space": None, "spec": None}
+    if specs:
+        fixed = {n: v for n, v in settings.items() if n not in (x, y)}
+        try:
+            space = design_space({f.response: fits.results_of(f) for f in chosen}, specs, x, y,
+                                 fixed=fixed, points=41)
+        except SetpointError as exc:
+            raise WorkflowError(f"{exc}.", field=exc.field) from None
+        context["space"] = space
+        context["spec"] = design_space_chart(space, settings)
+    return render_template("setpoints/design_space.html", **context)
+
+
+def _refused(proposal_id: int, exc: setpoints.SignatureRefused) -> None:
+    with tx() as s:
+        setpoints.record_refusal(s, me(s), proposal_id, exc.message)
+
+
+@bp.route("/setpoints/<int:proposal_id>/release", methods=["POST"])
+@allow("approver")
+def release(proposal_id: int):
+    form = request.form
+    raw_version = (form.get("row_version") or "").strip()
+    try:
+        expected = int(raw_version) if raw_version else None
+        with tx() as s:
+            proposal = setpoints.get_proposal(s, proposal_id)
+            setpoints.release(s, me(s), proposal, password=form.get("password"),
+                              meaning=form.get("meaning", setpoints.RELEASE),
+                              comment=form.get("comment"), expected_row_version=expected)
+    except ValueError:
+        return _sheet(proposal_id, "row_version must be a whole number.", "row_version", 400)
+    except setpoints.SignatureRefused as exc:
+        get_session().rollback()
+        _refused(proposal_id, exc)
+        return _sheet(proposal_id, exc.message, exc.field, exc.status)
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        return _sheet(proposal_id, exc.message, exc.field, exc.status)
+    flash("Setpoints released for production use. Confirmation runs come next.")
+    return redirect(url_for("setpoints.view", proposal_id=proposal_id))
+
+
+@bp.route("/setpoints/<int:proposal_id>/confirmations", methods=["POST"])
+@allow("engineer")
+def confirm(proposal_id: int):
+    file = request.files.get("file")
+    cfg = current_app.config
+    try:
+        with tx() as s:
+            proposal = setpoints.get_proposal(s, proposal_id)
+            run = confirmations.record(
+                s, me(s), proposal, data=b"" if file is None else file.read(),
+                filename="" if file is None else (file.filename or ""),
+                max_bytes=int(cfg["MAX_UPLOAD_BYTES"]), max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
+            verdict = confirmations.results_of(run)["verdict"]
+    except WorkflowError as exc:
+        if exc.status == 404:
+            raise
+        return _sheet(proposal_id, exc.message, exc.field, exc.status)
+    flash(f"Confirmation runs recorded: {verdict}.")
+    return redirect(url_for("setpoints.view", proposal_id=proposal_id) + "#confirmations")
+
+
+def _attachment(body: bytes, filename: str, mimetype: str) -> Response:
+    response = Response(body, mimetype=mimetype)
+    response.headers["Content-Disposition"] = f'attachment; filename="{filename}"'
+    return response
+
+
+@bp.route("/setpoints/<int:proposal_id>/export.csv")
+@allow(SIGNED_IN)
+def export_csv(proposal_id: int):
+    session = get_session()
+    proposal = setpoints.get_proposal(session, proposal_id)
+    return _attachment(setpoint_export.export_csv(session, proposal),
+                       f"setpoints_{proposal_id}.csv", "text/csv")
+
+
+@bp.route("/setpoints/<int:proposal_id>/export.json")
+@allow(SIGNED_IN)
+def export_json(proposal_id: int):
+    session = get_session()
+    proposal = setpoints.get_proposal(session, proposal_id)
+    body = json.dumps(setpoint_export.export_json(session, proposal), indent=2,
+                      ensure_ascii=False).encode()
+    return _attachment(body, f"setpoints_{proposal_id}.json", "application/json")

@@ -1,0 +1,128 @@
+"""Confirmation runs at released setpoints, each observed value checked against its 95 % PI.
+
+The upload is a CSV or XLSX file read by app.ingest, one row per confirmation run, with a
+column named after each response of the proposal (other columns are kept in the file but not
+read). A response passes when every value recorded for it lies inside the prediction interval
+stored with the released proposal, and fails otherwise (DESIGN.md: "Confirmation runs at the
+released setpoints pass when they fall inside the prediction interval").
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+from typing import Any
+
+from sqlalchemy.orm import Session
+
+from app.ingest import IngestError, read_upload
+from app.ingest.raw import parse_number
+from app.store import audit
+from app.store.audit import canonical_json
+from app.store.models import ConfirmationRun, SetpointProposal, User
+from app.workflow import Conflict, WorkflowError
+from app.workflow.reviews import VALID, _require_role
+from app.workflow.setpoints import (
+    _check_current,
+    release_signatures,
+    result_of,
+    signature_check,
+)
+
+
+def judge(observed: dict[str, list[tuple[int, float]]], pi: dict[str, list]) -> dict[str, Any]:
+    """Verdict per response: ``pass`` when every observed value lies in [PI low, PI high].
+
+    Pure. ``observed`` maps a response to (row, value) pairs; ``pi`` to its [low, high].
+    A response whose interval is missing (a fit without residual df) cannot pass.
+    """
+    out: dict[str, Any] = {}
+    for response, values in observed.items():
+        low, high = (pi.get(response) or [None, None])
+        if low is None or high is None:
+            out[response] = {"rows": [r for r, _ in values], "observed": [v for _, v in values],
+                             "pi": [low, high], "inside": [False] * len(values),
+                             "verdict": "fail",
+                             "reason": "the fit has no prediction interval to check against"}
+            continue
+        inside = [bool(low <= v <= high) for _, v in values]
+        out[response] = {"rows": [r for r, _ in values], "observed": [v for _, v in values],
+                         "pi": [low, high], "inside": inside,
+                         "verdict": "pass" if all(inside) else "fail"}
+    return out
+
+
+def read_observations(data: bytes, filename: str, responses: list[str], *, max_bytes: int,
+                      max_cells: int) -> dict[str, list[tuple[int, float]]]:
+    """(row, value) pairs per response from the upload; errors name the row and column."""
+    try:
+        raw = read_upload(data, filename, None, max_bytes=max_bytes, max_cells=max_cells)
+    except IngestError as exc:
+        first = "; ".join(p.message for p in exc.problems[:3])
+        raise WorkflowError(f"The confirmation file was not stored: {first}", field="file") from None
+    missing = [r for r in responses if r not in raw.frame.columns]
+    if missing:
+        raise WorkflowError(f"The confirmation file has no column '{missing[0]}' (it needs one "
+                            f"column per response: {', '.join(responses)}).", field="file")
+    observed: dict[str, list[tuple[int, float]]] = {}
+    for response in responses:
+        values = []
+        for row, cell in raw.frame[response].items():
+            if cell is None:
+                continue
+            number = parse_number(cell, raw.decimal)
+            if number is None:
+                raise WorkflowError(f"Row {row}, column '{response}': '{cell}' is not a number.",
+                                    field="file")
+            values.append((int(row), number))
+        if not values:
+            raise WorkflowError(f"Column '{response}' holds no values; record at least one "
+                                "confirmation run per response.", field="file")
+        observed[response] = values
+    return observed
+
+
+def record(session: Session, actor: User, proposal: SetpointProposal, *, data: bytes,
+           filename: str, max_bytes: int = 20_000_000,
+           max_cells: int = 2_000_000) -> ConfirmationRun:
+    """Store confirmation runs at released setpoints with the verdict per response.
+
+    Raises Conflict (409) before release, when the proposal or its release signature no longer
+    holds, or a fit behind it is no longer approved; WorkflowError naming the row and column for
+    a file that cannot be read.
+    """
+    _require_role(actor, "engineer", "record confirmation runs")
+    if proposal.state != "released":
+        raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}: confirmation runs "
+                       "are recorded only at released setpoints.", field="state")
+    _check_current(session, proposal, "confirmed")
+    sigs = release_signatures(session, proposal)
+    if not sigs or signature_check(session, proposal, sigs[-1]).status != VALID:
+        raise Conflict(f"The release signature of setpoint proposal {proposal.id} is not valid.",
+                       field="signature")
+    if not filename:
+        raise WorkflowError("Choose a file of confirmation runs (field 'file').", field="file")
+    result = result_of(proposal)
+    pi = result["optimum"]["pi"]
+    observed = read_observations(data, filename, list(pi), max_bytes=max_bytes,
+                                 max_cells=max_cells)
+    verdicts = judge(observed, pi)
+    overall = "pass" if all(v["verdict"] == "pass" for v in verdicts.values()) else "fail"
+    doc = {"responses": verdicts, "verdict": overall,
+           "settings": result["optimum"]["settings"],
+           "setpoint_snapshot_sha256": proposal.snapshot_sha256}
+    run = ConfirmationRun(setpoint_id=proposal.id, filename=filename[:255], original_bytes=data,
+                          original_sha256=hashlib.sha256(data).hexdigest(),
+                          results_json=canonical_json(doc), created_by_id=actor.id)
+    session.add(run)
+    session.flush()
+    audit.record(session, actor=actor, action="setpoint.confirmation", object_type="setpoint",
+                 object_id=proposal.id, study_id=proposal.study_id,
+                 new={"confirmation_run": run.id, "filename": run.filename,
+                      "original_sha256": run.original_sha256, "verdict": overall,
+                      "verdicts": {r: v["verdict"] for r, v in verdicts.items()}})
+    return run
+
+
+def results_of(run: ConfirmationRun) -> dict[str, Any]:
+    return json.loads(run.results_json)

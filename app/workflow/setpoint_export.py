@@ -1,0 +1,127 @@
+"""The setpoint sheet as JSON and CSV: settings, predictions, fits, signatures, caution.
+
+Both carry the fit ids with their snapshot hashes, the proposal's own hash, every signature
+(printed name, UTC time, meaning) with its current validity, the confirmation verdicts, the
+audit chain head at export time and the caution text (DESIGN.md "Where this can hurt someone").
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+from typing import Any
+
+from sqlalchemy.orm import Session
+
+from app.analysis.optimize import CAUTION
+from app.ingest.raw import parse_number
+from app.store import audit
+from app.store.models import SetpointProposal
+from app.workflow import confirmations
+from app.workflow.reviews import APPROVE, check_signature
+from app.workflow.setpoints import (
+    fits_of,
+    goals_of,
+    proposal_intact,
+    release_signatures,
+    result_of,
+    signature_json,
+)
+
+# A spreadsheet treats a cell starting with one of these as a formula (OWASP "CSV injection").
+FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise(cell: Any) -> str:
+    """A CSV cell a spreadsheet shows as text; plain numbers (-1.5, +2e3) stay numbers."""
+    text = "" if cell is None else str(cell)
+    if text.startswith(FORMULA_STARTS) and parse_number(text) is None:
+        return "'" + text
+    return text
+
+
+def _when(moment) -> str | None:
+    return None if moment is None else moment.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
+    """The setpoint sheet as one JSON-able document."""
+    result = result_of(proposal)
+    fits = fits_of(session, proposal)
+    seq, head = audit.chain_head(session)
+    return {
+        "caution": CAUTION,
+        "setpoint_id": proposal.id, "study_id": proposal.study_id,
+        "study_title": proposal.study.title, "state": proposal.state,
+        "row_version": proposal.row_version,
+        "created_by": proposal.created_by.full_name, "created_at": _when(proposal.created_at),
+        "snapshot_sha256": proposal.snapshot_sha256,
+        "snapshot_intact": proposal_intact(session, proposal),
+        "fits": [{"id": f.id, "response": f.response, "state": f.state,
+                  "data_version": f.data_version.version, "snapshot_sha256": f.snapshot_sha256,
+                  "approvals": [{"printed_name": s.printed_name, "signed_at": _when(s.signed_at),
+                                 "meaning": s.meaning, "status": check_signature(f, s).status}
+                                for s in f.signatures if s.meaning == APPROVE]}
+                 for f in fits],
+        "goals": goals_of(proposal),
+        "optimum": result["optimum"], "stationary_point": result["stationary_point"],
+        "region": result["region"], "grid_check": result["grid_check"],
+        "signatures": [signature_json(session, proposal, s)
+                       for s in release_signatures(session, proposal)],
+        "confirmations": [{"id": run.id, "filename": run.filename,
+                           "original_sha256": run.original_sha256,
+                           "created_at": _when(run.created_at),
+                           "created_by": run.created_by.full_name,
+                           **confirmations.results_of(run)}
+                          for run in proposal.confirmations],
+        "chain_head": {"seq": seq, "hash": head},
+    }
+
+
+def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
+    """The setpoint sheet as CSV sections (caution first), every text cell neutralised."""
+    doc = export_json(session, proposal)
+    opt = doc["optimum"]
+    rows: list[list[Any]] = [
+        ["caution", CAUTION],
+        ["setpoint proposal", doc["setpoint_id"]],
+        ["study", doc["study_id"], doc["study_title"]],
+        ["state", doc["state"]],
+        ["proposed by", doc["created_by"], doc["created_at"]],
+        ["snapshot sha256", doc["snapshot_sha256"],
+         "intact" if doc["snapshot_intact"] else "ALTERED"],
+        ["chain head", doc["chain_head"]["seq"], doc["chain_head"]["hash"]],
+        [],
+        ["factor", "setting (actual)", "setting (coded)"],
+    ]
+    rows += [[name, opt["settings"][name], opt["coded"][name]] for name in opt["settings"]]
+    rows += [[], ["response", "predicted", "95% CI low", "95% CI high", "95% PI low",
+                  "95% PI high", "desirability"]]
+    each = opt.get("individual_desirability") or {}
+    for response, value in opt["predicted"].items():
+        ci, pi = opt["ci"][response], opt["pi"][response]
+        rows.append([response, value, ci[0], ci[1], pi[0], pi[1], each.get(response, "")])
+    rows += [["composite desirability", opt["desirability"]], [],
+             ["fit id", "response", "data version", "snapshot sha256", "approved by",
+              "approved at (UTC)", "meaning"]]
+    for fit in doc["fits"]:
+        approval = fit["approvals"][-1] if fit["approvals"] else {}
+        rows.append([fit["id"], fit["response"], fit["data_version"], fit["snapshot_sha256"],
+                     approval.get("printed_name"), approval.get("signed_at"),
+                     approval.get("meaning")])
+    rows += [[], ["signed by", "signed at (UTC)", "meaning", "comment", "status",
+                  "manifest sha256"]]
+    rows += [[s["printed_name"], s["signed_at"], s["meaning"], s["comment"], s["status"],
+              s["manifest_sha256"]] for s in doc["signatures"]] or [["not released"]]
+    rows += [[], ["confirmation", "file", "response", "observed", "95% PI low", "95% PI high",
+                  "verdict"]]
+    for run in doc["confirmations"]:
+        for response, v in run["responses"].items():
+            rows.append([run["id"], run["filename"], response,
+                         " ".join(f"{x:g}" for x in v["observed"]), v["pi"][0], v["pi"][1],
+                         v["verdict"]])
+    out = io.StringIO(newline="")
+    writer = csv.writer(out, lineterminator="\r\n")
+    for row in rows:
+        writer.writerow([neutralise(c) for c in row])
+    return out.getvalue().encode("utf-8")

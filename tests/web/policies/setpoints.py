@@ -1,0 +1,15 @@
+"""Setpoints: engineers propose and record confirmation runs, approvers release, anyone signed in reads."""
+
+POLICY = {
+    "setpoints.new": {"engineer"},
+    "setpoints.view": "signed-in",
+    "setpoints.design_space_page": "signed-in",
+    "setpoints.release": {"approver"},
+    "setpoints.confirm": {"engineer"},
+    "setpoints.export_csv": "signed-in",
+    "setpoints.export_json": "signed-in",
+    "api_setpoints.create": {"engineer"},
+    "api_setpoints.get": "signed-in",
+    "api_setpoints.release": {"approver"},
+    "api_setpoints.export": "signed-in",
+}

@@ -1,0 +1,299 @@
+"""Setpoint pages and API (issue 6): the happy path, and every refusal answering 409/403 with
+a plain message, through the web form and through the JSON API."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+
+import pytest
+from sqlalchemy import func, select, text
+
+from app.analysis.optimize import CAUTION
+from app.store.models import AuditEvent, Fit, SetpointProposal
+from app.workflow import accounts, fits, reviews, setpoints
+from tests.conftest import PASSWORD
+from tests.workflow import helpers as h
+
+
+def bearer(db, username: str) -> dict[str, str]:
+    with db.transaction() as s:
+        _row, raw = accounts.create_token(s, None, h.user(s, username), "tests")
+    return {"Authorization": f"Bearer {raw}"}
+
+
+@pytest.fixture
+def approved(db, users):
+    return h.approved_fit(db)
+
+
+def form_for(fit_id: int, **extra) -> dict[str, str]:
+    data = {"fit": str(fit_id), f"goal_{fit_id}": "maximize", f"spec_lower_{fit_id}": "120"}
+    data.update({k: str(v) for k, v in extra.items()})
+    return data
+
+
+def web_propose(actions, study_id: int, fit_id: int, **extra):
+    actions.login("erin")
+    return actions.post(f"/studies/{study_id}/setpoints/new", form_for(fit_id, **extra))
+
+
+def api_propose(client, db, fit_id: int, **body):
+    payload = {"fits": [fit_id], "goals": {"Hardness": {"goal": "maximize"}}, **body}
+    return client.post("/api/v1/setpoints", json=payload, headers=bearer(db, "erin"))
+
+
+def _proposal_count(db) -> int:
+    with db.session() as s:
+        return s.scalar(select(func.count()).select_from(SetpointProposal))
+
+
+def test_engineer_proposes_approver_releases_engineer_confirms(db, approved, client, actions):
+    study_id, _, fit_id = approved
+    actions.login("erin")
+    page = client.get(f"/studies/{study_id}/setpoints/new").get_data(as_text=True)
+    assert CAUTION in page and f'name="fit" value="{fit_id}"' in page
+    response = actions.post(f"/studies/{study_id}/setpoints/new", form_for(fit_id))
+    assert response.status_code == 302
+    url = response.headers["Location"]
+    sheet = client.get(url).get_data(as_text=True)
+    for words in (CAUTION, "Predicted responses", "95 % PI", "Composite desirability",
+                  "Stationary point", "maximum", "Eigenvalues", "Not released"):
+        assert words in sheet
+    pid = int(url.rsplit("/", 1)[1])
+    actions.logout()
+    actions.login("abel")
+    refused = actions.post(f"/setpoints/{pid}/release", {"password": "wrong", "row_version": "1"})
+    assert refused.status_code == 403 and "password is wrong" in refused.get_data(as_text=True)
+    ok = actions.post(f"/setpoints/{pid}/release", {"password": PASSWORD, "row_version": "1",
+                                                     "meaning": setpoints.RELEASE})
+    assert ok.status_code == 302
+    assert "Abel Approver" in client.get(url).get_data(as_text=True)
+    actions.logout()
+    actions.login("erin")
+    with db.session() as s:
+        low, high = setpoints.result_of(s.get(SetpointProposal, pid))["optimum"]["pi"]["Hardness"]
+    upload = {"file": (io.BytesIO(f"Run,Hardness\nC1,{(low + high) / 2:.2f}\n".encode()),
+                       "confirm.csv")}
+    done = actions.post(f"/setpoints/{pid}/confirmations", upload,
+                        content_type="multipart/form-data")
+    assert done.status_code == 302
+    final = client.get(url).get_data(as_text=True)
+    assert '<span class="verdict pass">pass</span>' in final
+    exported = client.get(f"/setpoints/{pid}/export.csv")
+    assert exported.headers["Content-Disposition"].startswith("attachment;")
+    rows = list(csv.reader(io.StringIO(exported.get_data(as_text=True))))
+    assert rows[0] == ["caution", CAUTION]
+    doc = json.loads(client.get(f"/setpoints/{pid}/export.json").get_data())
+    assert doc["signatures"][0]["printed_name"] == "Abel Approver"
+    assert doc["confirmations"][0]["verdict"] == "pass"
+    with db.session() as s:
+        actions_seen = set(s.scalars(select(AuditEvent.action)))
+    assert {"setpoint.propose", "setpoint.release", "setpoint.confirmation",
+            "signature.refused"} <= actions_seen
+
+
+def test_design_space_map_page(db, approved, client, actions):
+    study_id, _, fit_id = approved
+    url = web_propose(actions, study_id, fit_id).headers["Location"]
+    page = client.get(url + "/design-space?x=Cure+temperature&y=Catalyst")
+    body = page.get_data(as_text=True)
+    assert page.status_code == 200 and CAUTION in body
+    spec = json.loads(body.split('id="design-space-spec">', 1)[1].split("</script>", 1)[0])
+    layers = spec["layer"]
+    assert len(layers) == 3  # grid cells, design runs, the setpoint
+    statuses = {d["status"] for d in layers[0]["data"]["values"]}
+    assert statuses <= {"PI inside all limits", "PI outside a limit"} and statuses
+    same = client.get(url + "/design-space?x=Catalyst&y=Catalyst")
+    assert same.status_code == 400 and "two different factors" in same.get_data(as_text=True)
+
+
+# ---- refusals: each set-up makes the approved fit unusable in one way -------------------------
+
+def _superseded(db, study_id, version_id, fit_id):
+    newer = h.make_fit(db, version_id)
+    h.submit(db, newer)
+    h.sign(db, newer)
+    return "superseded"
+
+
+def _withdrawn(db, study_id, version_id, fit_id):
+    with db.transaction() as s:
+        reviews.withdraw(s, h.user(s, "abel"), fits.get_fit(s, fit_id), password=PASSWORD,
+                         reason="gauge out of calibration")
+    return "withdrawn"
+
+
+def _new_data(db, study_id, version_id, fit_id):
+    h.add_version(db, study_id, reason="row 4 transcribed wrongly")
+    return "no longer applies"
+
+
+def _altered(db, study_id, version_id, fit_id):
+    with db.transaction() as s:
+        doc = json.loads(s.get(Fit, fit_id).results_json)
+        doc["model"]["coefficients"][0] += 3.0
+        s.execute(text("UPDATE fits SET results_json = :j WHERE id = :i"),
+                  {"j": json.dumps(doc), "i": fit_id})
+    return "is invalid"
+
+
+def _draft(db, study_id, version_id, fit_id):
+    return "not approved"
+
+
+SETUPS = {"superseded": _superseded, "withdrawn": _withdrawn, "new data version": _new_data,
+          "signature invalid": _altered, "not approved": _draft}
+
+
+@pytest.mark.parametrize("how", list(SETUPS))
+@pytest.mark.parametrize("via", ["web", "api"])
+def test_unusable_fit_is_refused_with_409(db, approved, client, actions, how, via):
+    study_id, version_id, fit_id = approved
+    if how == "not approved":
+        fit_id = h.make_fit(db, version_id)
+    words = SETUPS[how](db, study_id, version_id, fit_id)
+    if via == "web":
+        response = web_propose(actions, study_id, fit_id)
+        message = response.get_data(as_text=True)
+    else:
+        response = api_propose(client, db, fit_id)
+        message = response.get_json()["error"]
+        assert response.get_json()["field"] == "fits"
+    assert response.status_code == 409
+    assert words in message
+    assert _proposal_count(db) == 0
+
+
+@pytest.mark.parametrize("via", ["web", "api"])
+def test_request_leaving_the_design_region_is_409(db, approved, client, actions, via):
+    study_id, _, fit_id = approved
+    if via == "web":
+        # bound_high_0: the first factor, Cure temperature (cube 150-170, axial to about 177)
+        response = web_propose(actions, study_id, fit_id, bound_high_0=220)
+        message = response.get_data(as_text=True)
+    else:
+        response = api_propose(client, db, fit_id, bounds={"Cure temperature": [150, 220]})
+        message = response.get_json()["error"]
+        assert response.get_json()["field"] == "Cure temperature"
+    assert response.status_code == 409
+    assert "leaves the design region" in message and "Cure temperature" in message
+    assert _proposal_count(db) == 0
+
+
+def _draft_proposal(db, fit_id, who="erin") -> int:
+    with db.transaction() as s:
+        return setpoints.propose(s, h.user(s, who), [fits.get_fit(s, fit_id)],
+                                 {"Hardness": {"goal": "maximize"}}, None, None).id
+
+
+@pytest.fixture
+def both_roles(db, users):
+    with db.transaction() as s:
+        accounts.create_user(s, None, username="bea", full_name="Bea Both",
+                             roles="engineer,approver", password=PASSWORD)
+
+
+@pytest.mark.parametrize("via", ["web", "api"])
+def test_author_cannot_release_own_proposal(db, approved, both_roles, client, actions, via):
+    pid = _draft_proposal(db, approved[2], who="bea")
+    if via == "web":
+        actions.login("bea")
+        response = actions.post(f"/setpoints/{pid}/release", {"password": PASSWORD})
+        message = response.get_data(as_text=True)
+    else:
+        response = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "bea"),
+                               json={"meaning": setpoints.RELEASE, "password": PASSWORD})
+        message = response.get_json()["error"]
+    assert response.status_code == 403
+    assert "someone else must release" in message
+
+
+@pytest.mark.parametrize("via", ["web", "api"])
+def test_wrong_password_is_403_and_recorded(db, approved, client, actions, via):
+    pid = _draft_proposal(db, approved[2])
+    if via == "web":
+        actions.login("abel")
+        response = actions.post(f"/setpoints/{pid}/release", {"password": "guess"})
+        message = response.get_data(as_text=True)
+    else:
+        response = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "abel"),
+                               json={"meaning": setpoints.RELEASE, "password": "guess"})
+        message = response.get_json()["error"]
+    assert response.status_code == 403 and "password is wrong" in message
+    with db.session() as s:
+        assert s.get(SetpointProposal, pid).state == "draft"
+        refused = s.scalars(select(AuditEvent).where(AuditEvent.action == "signature.refused"))
+        assert [e.object_type for e in refused] == ["setpoint"]
+
+
+@pytest.mark.parametrize("via", ["web", "api"])
+def test_confirmation_before_release_is_409(db, approved, client, actions, via):
+    pid = _draft_proposal(db, approved[2])
+    actions.login("erin")
+    response = actions.post(f"/setpoints/{pid}/confirmations",
+                            {"file": (io.BytesIO(b"Hardness\n130\n"), "c.csv")},
+                            content_type="multipart/form-data")
+    assert response.status_code == 409
+    assert "only at released setpoints" in response.get_data(as_text=True)
+    if via == "api":
+        # The API has no confirmation upload; its sheet shows none recorded.
+        sheet = client.get(f"/api/v1/setpoints/{pid}", headers=bearer(db, "otto")).get_json()
+        assert sheet["confirmations"] == [] and sheet["state"] == "draft"
+
+
+def test_api_round_trip_and_export(db, approved, client):
+    created = api_propose(client, db, approved[2], fixed={"Catalyst": 1.0})
+    assert created.status_code == 201
+    body = created.get_json()
+    pid = body["id"]
+    assert created.headers["Location"].endswith(f"/api/v1/setpoints/{pid}")
+    assert body["caution"] == CAUTION and body["state"] == "draft"
+    assert body["optimum"]["settings"]["Catalyst"] == pytest.approx(1.0, abs=1e-9)
+    signed = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "abel"),
+                         json={"meaning": setpoints.RELEASE, "password": PASSWORD})
+    assert signed.status_code == 201 and signed.get_json()["status"] == "valid"
+    again = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "ada"),
+                        json={"meaning": setpoints.RELEASE, "password": PASSWORD})
+    assert again.status_code == 409 and "only a draft" in again.get_json()["error"]
+    reader = bearer(db, "otto")
+    sheet = client.get(f"/api/v1/setpoints/{pid}", headers=reader).get_json()
+    assert sheet["state"] == "released"
+    assert sheet["fits"][0]["id"] == approved[2]
+    exported = client.get(f"/api/v1/setpoints/{pid}/export?format=csv", headers=reader)
+    assert exported.status_code == 200
+    assert "attachment" in exported.headers["Content-Disposition"]
+    assert CAUTION in exported.get_data(as_text=True)
+    bad = client.get(f"/api/v1/setpoints/{pid}/export?format=pdf", headers=reader)
+    assert bad.status_code == 400 and bad.get_json()["field"] == "format"
+
+
+@pytest.mark.parametrize("payload, field", [
+    ({"fits": [], "goals": {}}, "fits"),
+    ({"fits": [1], "goals": {"Hardness": {"goal": "best"}}}, "goals.Hardness.goal"),
+    ({"fits": [1], "goals": {"Hardness": {"goal": "maximize", "colour": "red"}}},
+     "goals.Hardness.colour"),
+    ({"fits": [1], "goals": {"Gloss": {"goal": "maximize"}}}, "goals"),
+    ({"fits": [1], "goals": {"Hardness": {"goal": "target", "target": 500}}}, "target"),
+])
+def test_api_bad_requests_name_the_field(db, approved, client, payload, field):
+    response = client.post("/api/v1/setpoints", json=payload, headers=bearer(db, "erin"))
+    assert response.status_code == 400
+    assert response.get_json()["field"] == field
+    assert _proposal_count(db) == 0
+
+
+def test_study_link_snippet_lists_proposals(app, db, approved):
+    from flask import g, render_template_string
+
+    from app.workflow import studies
+
+    pid = _draft_proposal(db, approved[2])
+    with app.test_request_context("/"):
+        with db.session() as s:
+            g.user = h.user(s, "erin")
+            study = studies.get_study(s, approved[0])
+            html = render_template_string('{% include "setpoints/_study_link.html" %}',
+                                          study=study)
+    assert f"/setpoints/{pid}" in html and "Propose setpoints" in html and "draft" in html
