@@ -15,13 +15,12 @@ from typing import Any
 from flask import Blueprint, current_app, jsonify, request, url_for
 from werkzeug.exceptions import RequestEntityTooLarge
 
-from app.analysis import Thresholds
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.ingest import ColumnRole, IngestError, UploadTooLarge, format_size
 from app.store.db import database, get_session
 from app.store.models import DataVersion, Fit, Study, User
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
+from app.web.common import me, read_session, tx
 from app.web.openapi import build_document, check, document, json_body, ref, schema
 from app.workflow import WorkflowError, fits, reviews, studies, uploads
 
@@ -360,12 +359,11 @@ def _fit_choices(body: dict[str, Any]) -> dict[str, Any]:
 def create_fit(version_id: int):
     """The study's current thresholds are used and stored with the snapshot."""
     choices = _fit_choices(json_body("FitCreate"))
+    with read_session() as rs:
+        spec, results = fits.plan_fit(uploads.get_data_version(rs, version_id), **choices)
     with tx() as s:
-        version = uploads.get_data_version(s, version_id)
-        study = version.study
-        spec = fits.build_spec(version, thresholds=Thresholds(review=study.review_below,
-                                                              fail=study.fail_below), **choices)
-        fit = fits.create_fit(s, me(s), version, spec)
+        fit = fits.create_fit(s, me(s), uploads.get_data_version(s, version_id), spec,
+                              results=results)
         out = _fit(fit)
     return _created(out, url_for("api.get_fit", fit_id=fit.id))
 

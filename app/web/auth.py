@@ -8,6 +8,7 @@ from urllib.parse import urlsplit
 from flask import Blueprint, flash, g, redirect, render_template, request, session, url_for
 
 from app.store.db import database
+from app.store.models import User
 from app.web.access import PUBLIC, SIGNED_IN, allow
 from app.workflow import accounts
 
@@ -36,9 +37,10 @@ def login():
     addr = request.remote_addr
     db = database()
     try:
-        with db.transaction() as s:
+        with db.session(write=False) as s:
             user = accounts.authenticate(s, username, password, addr)
-            token = accounts.start_session(s, user, addr)
+        with db.transaction() as s:
+            token = accounts.start_session(s, s.get(User, user.id), addr)
     except accounts.LoginThrottled as exc:
         return render_template("auth/login.html", error=exc.message, username=username,
                                next=request.form.get("next", "")), 429

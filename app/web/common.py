@@ -21,6 +21,15 @@ def tx() -> Iterator[Session]:
         yield session
 
 
+@contextmanager
+def read_session() -> Iterator[Session]:
+    """A short read-only session (no write lock), e.g. for work done before a write."""
+    from app.store.db import database
+
+    with database().session(write=False) as session:
+        yield session
+
+
 def current_user():
     return g.user
 

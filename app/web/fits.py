@@ -20,14 +20,13 @@ from flask import (
 )
 from sqlalchemy import select
 
-from app.analysis import Thresholds
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.analysis.terms import Term, named_model, sort_key
 from app.store.db import get_session
 from app.store.models import Fit
 from app.web import charts
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
+from app.web.common import me, read_session, tx
 from app.workflow import WorkflowError, fits, uploads
 
 bp = Blueprint("fits", __name__)
@@ -165,20 +164,20 @@ def _echo(form) -> dict[str, Any]:
 @bp.route("/data/<int:version_id>/fit", methods=["POST"])
 @allow("engineer")
 def create(version_id: int):
-    version = uploads.get_data_version(get_session(), version_id)
-    try:
-        choices = parse_builder_form(request.form)
-        with tx() as s:
-            v = uploads.get_data_version(s, version_id)
-            thresholds = Thresholds(review=v.study.review_below, fail=v.study.fail_below)
-            spec = fits.build_spec(v, thresholds=thresholds, **choices)
-            fit = fits.create_fit(s, me(s), v, spec)
-    except WorkflowError as exc:
-        if exc.status >= 500 or exc.status == 404:
-            raise
-        context = _builder_context(version, _echo(request.form))
-        return render_template("fits/builder.html", error=exc.message, field=exc.field,
-                               **context), 400
+    with read_session() as rs:
+        version = uploads.get_data_version(rs, version_id)
+        try:
+            choices = parse_builder_form(request.form)
+            spec, results = fits.plan_fit(version, **choices)
+            with tx() as s:
+                fit = fits.create_fit(s, me(s), uploads.get_data_version(s, version_id), spec,
+                                      results=results)
+        except WorkflowError as exc:
+            if exc.status >= 500 or exc.status == 404:
+                raise
+            context = _builder_context(version, _echo(request.form))
+            return render_template("fits/builder.html", error=exc.message, field=exc.field,
+                                   **context), 400
     return redirect(url_for("fits.view", fit_id=fit.id))
 
 

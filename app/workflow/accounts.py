@@ -162,10 +162,11 @@ class LoginThrottled(WorkflowError):
 
 def authenticate(session: Session, username: str, password: str,
                  remote_addr: str | None) -> User:
-    """Check a password; record the login or the failure. Raises LoginRefused/LoginThrottled.
+    """Check a password; only reads. Raises LoginRefused/LoginThrottled.
 
-    The caller must commit even when this raises, so the failure is kept: use
-    :func:`record_failed_login` in its own transaction (the web layer does).
+    Run it in a read session: the deliberately slow argon2 verify must not hold a write lock.
+    Then :func:`start_session` (success) or :func:`record_failed_login` (failure) writes, each
+    in its own short transaction.
     """
     username = (username or "").strip().lower()
     now = utcnow()
@@ -178,7 +179,6 @@ def authenticate(session: Session, username: str, password: str,
         raise LoginRefused("User name or password is wrong.")
     if not verify_password(user.password_hash, password) or not user.active:
         raise LoginRefused("User name or password is wrong.")
-    session.execute(delete(LoginFailure).where(LoginFailure.username == username))
     return user
 
 
@@ -195,6 +195,7 @@ def record_failed_login(session: Session, username: str, remote_addr: str | None
 def start_session(session: Session, user: User, remote_addr: str | None) -> str:
     """Create a server-side session; returns the raw token for the cookie."""
     token = secrets.token_urlsafe(32)
+    session.execute(delete(LoginFailure).where(LoginFailure.username == user.username))
     session.add(UserSession(token_sha256=sha256_hex(token), user_id=user.id,
                             remote_addr=remote_addr))
     audit.record(session, actor=user, action="auth.login", object_type="user",

@@ -91,9 +91,23 @@ def run_analysis(version: DataVersion, spec: FitSpec) -> dict[str, Any]:
         raise WorkflowError(str(exc), field="model") from None
 
 
-def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpec) -> Fit:
-    """Analyse and store the snapshot with its hash; one audit event."""
-    results = run_analysis(version, spec)
+def plan_fit(version: DataVersion, **choices: Any) -> tuple[FitSpec, dict[str, Any]]:
+    """Spec and results for a fit with the study's current thresholds, without writing.
+
+    Callers run this before opening their write transaction, so the analysis does not hold the
+    database's write lock while it computes."""
+    study = version.study
+    spec = build_spec(version, thresholds=Thresholds(review=study.review_below,
+                                                     fail=study.fail_below), **choices)
+    return spec, run_analysis(version, spec)
+
+
+def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpec,
+               results: dict[str, Any] | None = None) -> Fit:
+    """Store the snapshot with its hash; one audit event. ``results`` from :func:`plan_fit`
+    (computed outside the transaction) or, when None, computed here."""
+    if results is None:
+        results = run_analysis(version, spec)
     fit = Fit(study_id=version.study_id, data_version_id=version.id, data_version=version,
               response=spec.response, spec_json=canonical_json(spec.to_dict()),
               results_json=canonical_json(results),
