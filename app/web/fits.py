@@ -71,11 +71,11 @@ def candidate_terms(factor_names: list[str], two_level: bool) -> list[dict[str, 
 def _builder_context(version, form: dict[str, Any]) -> dict[str, Any]:
     roles = json.loads(version.roles_json)
     table = uploads.design_table(version)
-    factor_names = [n for n, r in roles.items() if r["role"] == "factor"]
+    factor_names = list(table.factors)  # the upload's column order, not the sorted roles JSON
     # Two levels plus perhaps a centre: higher interactions are worth offering.
     two_level = all(len(set(table.frame[n])) <= 3 for n in factor_names)
     return {"version": version, "study": version.study, "roles": roles, "table": table,
-            "responses": [n for n, r in roles.items() if r["role"] == "response"],
+            "responses": list(table.responses),
             "factors": factor_names, "terms": candidate_terms(factor_names, two_level),
             "models": [(m, MODEL_LABELS[m]) for m in NAMED_MODELS],
             "transforms": [(t, TRANSFORM_LABELS[t]) for t in TRANSFORMS], "form": form}

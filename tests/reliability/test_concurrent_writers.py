@@ -18,14 +18,23 @@ OPERATIONS = 100
 
 
 def test_eight_writers_hundred_operations_each(app, users, db):
-    barrier = threading.Barrier(WRITERS)
+    barrier = threading.Barrier(WRITERS, timeout=120)
+    errors: list[BaseException] = []
     statuses: list[int] = []
     bodies: list[str] = []
     lock = threading.Lock()
 
     def writer(index: int) -> None:
+        try:
+            write(index)
+        except BaseException as exc:  # reported below; a dead writer must not hang the others
+            errors.append(exc)
+            barrier.abort()
+
+    def write(index: int) -> None:
         actions = Actions(app.test_client())
-        assert actions.login("erin").status_code == 302
+        login = actions.login("erin")
+        assert login.status_code == 302, (login.status_code, login.get_data(as_text=True)[:300])
         token = actions.csrf()
         barrier.wait()
         for op in range(OPERATIONS):
@@ -42,6 +51,7 @@ def test_eight_writers_hundred_operations_each(app, users, db):
     for t in threads:
         t.join()
 
+    assert not errors, errors[:3]
     assert not any("locked" in b for b in bodies), bodies[:3]
     assert statuses.count(302) == WRITERS * OPERATIONS, set(statuses)
     with db.session() as s:
