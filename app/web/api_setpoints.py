@@ -10,12 +10,12 @@ from __future__ import annotations
 
 import json
 
-from flask import Blueprint, Response, jsonify, request, url_for
+from flask import Blueprint, jsonify, request, url_for
 
 from app.analysis.optimize import CAUTION
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
+from app.web.common import attachment, me, tx
 from app.web.openapi import document, json_body, ref, schema
 from app.workflow import WorkflowError, fits, setpoint_export, setpoints
 
@@ -173,7 +173,4 @@ def export(proposal_id: int):
         body = json.dumps(setpoint_export.export_json(session, proposal), indent=2,
                           ensure_ascii=False).encode()
         mimetype = "application/json"
-    response = Response(body, mimetype=mimetype)
-    response.headers["Content-Disposition"] = (
-        f'attachment; filename="setpoints_{proposal_id}.{kind}"')
-    return response
+    return attachment(body, f"setpoints_{proposal_id}.{kind}", mimetype)

@@ -5,7 +5,7 @@ from __future__ import annotations
 from collections.abc import Iterator
 from contextlib import contextmanager
 
-from flask import g
+from flask import Response, g
 from sqlalchemy.orm import Session
 
 from app.store.db import get_session
@@ -28,6 +28,14 @@ def read_session() -> Iterator[Session]:
 
     with database().session(write=False) as session:
         yield session
+
+
+def attachment(body: bytes | str, filename: str, mimetype: str) -> Response:
+    """A download: always ``Content-Disposition: attachment`` with a safe file name."""
+    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in filename) or "download"
+    response = Response(body, mimetype=mimetype)
+    response.headers["Content-Disposition"] = f'attachment; filename="{safe}"'
+    return response
 
 
 def current_user():

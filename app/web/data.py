@@ -6,7 +6,6 @@ import json
 
 from flask import (
     Blueprint,
-    Response,
     abort,
     current_app,
     flash,
@@ -23,8 +22,9 @@ from app.store.db import get_session
 from app.store.models import DataVersion, Fit
 from app.web import staging
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
+from app.web.common import attachment, me, tx
 from app.workflow import WorkflowError, studies, uploads
+from app.workflow.csvsafe import safe_csv
 
 bp = Blueprint("data", __name__)
 
@@ -176,18 +176,11 @@ def view(version_id: int):
                            fit_url=url_for("fits.builder", version_id=version.id))
 
 
-def _download(body: bytes, filename: str, mimetype: str) -> Response:
-    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in filename) or "download"
-    response = Response(body, mimetype=mimetype)
-    response.headers["Content-Disposition"] = f'attachment; filename="{safe}"'
-    return response
-
-
 @bp.route("/data/<int:version_id>/original")
 @allow(SIGNED_IN)
 def original(version_id: int):
     version = uploads.get_data_version(get_session(), version_id)
-    return _download(version.original_bytes, version.filename, "application/octet-stream")
+    return attachment(version.original_bytes, version.filename, "application/octet-stream")
 
 
 @bp.route("/data/<int:version_id>/canonical.csv")
@@ -195,4 +188,6 @@ def original(version_id: int):
 def canonical(version_id: int):
     version = uploads.get_data_version(get_session(), version_id)
     name = f"study{version.study_id}_v{version.version}_canonical.csv"
-    return _download(version.canonical_csv, name, "text/csv")
+    # Text cells that a spreadsheet would run as formulas get a leading apostrophe; the stored
+    # bytes (and their SHA-256) are unchanged and are in the record package as they are.
+    return attachment(safe_csv(version.canonical_csv), name, "text/csv")

@@ -10,7 +10,6 @@ from typing import Any
 
 from flask import (
     Blueprint,
-    Response,
     abort,
     jsonify,
     redirect,
@@ -26,7 +25,7 @@ from app.store.db import get_session
 from app.store.models import Fit
 from app.web import charts
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, read_session, tx
+from app.web.common import attachment, me, read_session, tx
 from app.workflow import WorkflowError, fits, uploads
 
 bp = Blueprint("fits", __name__)
@@ -251,9 +250,7 @@ def charts_json(fit_id: int):
 def results_json(fit_id: int):
     fit = fits.get_fit(get_session(), fit_id)
     # The stored bytes themselves: what the snapshot hash covers, not a re-serialisation.
-    response = Response(fit.results_json, mimetype="application/json")
-    response.headers["Content-Disposition"] = (f'attachment; filename="fit-{fit.id}-results'
-                                               '.json"')
+    response = attachment(fit.results_json, f"fit-{fit.id}-results.json", "application/json")
     response.headers["X-Snapshot-SHA256"] = fit.snapshot_sha256
     return response
 

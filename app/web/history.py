@@ -6,23 +6,19 @@ own history on its review page.
 
 from __future__ import annotations
 
-from flask import Blueprint, Response, current_app, render_template, request
+from flask import Blueprint, current_app, render_template, request
 
 from app.store import audit
 from app.store.db import get_session
 from app.store.models import Study
 from app.web.access import allow
+from app.web.common import attachment
 from app.workflow import fits, studies
 from app.workflow import history as trail
 from app.workflow.compare import reproduce as rerun
 from app.workflow.package import build_package
 
 bp = Blueprint("history", __name__, url_prefix="/history")
-
-
-def _download(data: bytes, mimetype: str, filename: str) -> Response:
-    return Response(data, mimetype=mimetype,
-                    headers={"Content-Disposition": f'attachment; filename="{filename}"'})
 
 
 @bp.route("/studies/<int:study_id>")
@@ -52,8 +48,8 @@ def export_csv(study_id: int):
     session = get_session()
     record = studies.get_study(session, study_id)
     events = trail.timeline(session, record, trail.Filters.from_args(request.args))
-    return _download(trail.export_csv(record, events, audit.chain_head(session)),
-                     "text/csv; charset=utf-8", f"study-{study_id}-history.csv")
+    return attachment(trail.export_csv(record, events, audit.chain_head(session)),
+                      f"study-{study_id}-history.csv", "text/csv; charset=utf-8")
 
 
 @bp.route("/studies/<int:study_id>/export.json")
@@ -62,8 +58,8 @@ def export_json(study_id: int):
     session = get_session()
     record = studies.get_study(session, study_id)
     events = trail.timeline(session, record, trail.Filters.from_args(request.args))
-    return _download(trail.export_json(record, events, audit.chain_head(session)),
-                     "application/json", f"study-{study_id}-history.json")
+    return attachment(trail.export_json(record, events, audit.chain_head(session)),
+                      f"study-{study_id}-history.json", "application/json")
 
 
 @bp.route("/integrity")
@@ -86,4 +82,4 @@ def package(study_id: int):
     session = get_session()
     record = studies.get_study(session, study_id)
     data = build_package(session, record, current_app.config.get("SOFTWARE_VERSION", ""))
-    return _download(data, "application/zip", f"study-{study_id}-record-package.zip")
+    return attachment(data, f"study-{study_id}-record-package.zip", "application/zip")

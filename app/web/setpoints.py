@@ -9,7 +9,6 @@ from typing import Any
 
 from flask import (
     Blueprint,
-    Response,
     current_app,
     flash,
     redirect,
@@ -23,7 +22,7 @@ from app.analysis.optimize import CAUTION, SetpointError, design_space
 from app.store.db import get_session
 from app.store.models import Fit
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
+from app.web.common import attachment, me, tx
 from app.web.setpoint_charts import design_space_chart
 from app.workflow import WorkflowError, confirmations, fits, setpoint_export, setpoints, studies
 
@@ -263,18 +262,12 @@ def confirm(proposal_id: int):
     return redirect(url_for("setpoints.view", proposal_id=proposal_id) + "#confirmations")
 
 
-def _attachment(body: bytes, filename: str, mimetype: str) -> Response:
-    response = Response(body, mimetype=mimetype)
-    response.headers["Content-Disposition"] = f'attachment; filename="{filename}"'
-    return response
-
-
 @bp.route("/setpoints/<int:proposal_id>/export.csv")
 @allow(SIGNED_IN)
 def export_csv(proposal_id: int):
     session = get_session()
     proposal = setpoints.get_proposal(session, proposal_id)
-    return _attachment(setpoint_export.export_csv(session, proposal),
+    return attachment(setpoint_export.export_csv(session, proposal),
                        f"setpoints_{proposal_id}.csv", "text/csv")
 
 
@@ -285,4 +278,4 @@ def export_json(proposal_id: int):
     proposal = setpoints.get_proposal(session, proposal_id)
     body = json.dumps(setpoint_export.export_json(session, proposal), indent=2,
                       ensure_ascii=False).encode()
-    return _attachment(body, f"setpoints_{proposal_id}.json", "application/json")
+    return attachment(body, f"setpoints_{proposal_id}.json", "application/json")

@@ -15,6 +15,7 @@ from sqlalchemy.orm import Session
 from app.store import audit
 from app.store.models import AuditEvent, DataVersion, Fit, Study
 from app.workflow import NotFound, WorkflowError
+from app.workflow.csvsafe import neutralise_all as neutralise
 from app.workflow.fits import snapshot_intact
 from app.workflow.reviews import check_signature
 from app.workflow.uploads import sha256_bytes
@@ -22,7 +23,6 @@ from app.workflow.uploads import sha256_bytes
 EXPORT_COLUMNS = ("seq", "at", "actor_name", "action", "object_type", "object_id", "reason",
                   "old_json", "new_json", "prev_hash", "hash")
 # A spreadsheet treats a cell starting with one of these as a formula (OWASP "CSV injection").
-FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
 
 
 @dataclass(frozen=True)
@@ -90,12 +90,6 @@ def events_of_fit(session: Session, fit: Fit) -> list[AuditEvent]:
 
 def decoded(text: str | None) -> Any:
     return None if text is None else json.loads(text)
-
-
-def neutralise(cell: Any) -> str:
-    """A CSV cell that a spreadsheet will show as text, never evaluate as a formula."""
-    text = "" if cell is None else str(cell)
-    return "'" + text if text.startswith(FORMULA_STARTS) else text
 
 
 def export_csv(study: Study, events: list[AuditEvent], head: tuple[int, str]) -> bytes:

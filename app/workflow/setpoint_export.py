@@ -14,10 +14,10 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from app.analysis.optimize import CAUTION
-from app.ingest.raw import parse_number
 from app.store import audit
 from app.store.models import SetpointProposal
 from app.workflow import confirmations
+from app.workflow.csvsafe import neutralise
 from app.workflow.reviews import APPROVE, check_signature
 from app.workflow.setpoints import (
     fits_of,
@@ -29,15 +29,6 @@ from app.workflow.setpoints import (
 )
 
 # A spreadsheet treats a cell starting with one of these as a formula (OWASP "CSV injection").
-FORMULA_STARTS = ("=", "+", "-", "@", "\t", "\r")
-
-
-def neutralise(cell: Any) -> str:
-    """A CSV cell a spreadsheet shows as text; plain numbers (-1.5, +2e3) stay numbers."""
-    text = "" if cell is None else str(cell)
-    if text.startswith(FORMULA_STARTS) and parse_number(text) is None:
-        return "'" + text
-    return text
 
 
 def _when(moment) -> str | None:

@@ -206,3 +206,23 @@ def test_someone_elses_staged_upload_is_not_found(app, client, actions, db, stud
     other = Actions(app.test_client())
     other.login("root")  # admin: not an engineer → refused before the staging lookup
     assert other.client.get(location).status_code == 403
+
+
+def test_canonical_download_neutralises_formula_text_but_keeps_numbers(client, actions, db,
+                                                                      study_id):
+    data = _edit(GOOD, "Panel ID", 2, "=HYPERLINK(\"http://x\")")
+    response = _upload(actions, study_id, data, "cure.csv")
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    stored = actions.post(response.headers["Location"], _confirm_form(html))
+    assert stored.status_code == 302
+    version_id = int(stored.headers["Location"].rsplit("/", 1)[1])
+    download = client.get(f"/data/{version_id}/canonical.csv")
+    assert download.headers["Content-Disposition"].startswith("attachment;")
+    text = download.get_data(as_text=True)
+    assert "'=HYPERLINK" in text
+    with db.session() as s:
+        assert b"'=HYPERLINK" not in s.get(DataVersion, version_id).canonical_csv
+    # Negative numbers stay numbers.
+    from app.workflow.csvsafe import neutralise
+
+    assert neutralise("-1.5") == "-1.5" and neutralise("-x") == "'-x"
