@@ -3,15 +3,37 @@
 from __future__ import annotations
 
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import click
 
 from app import create_app
 
+if TYPE_CHECKING:
+    from flask import Flask
+
 
 def _app():
     return create_app()
+
+
+@contextmanager
+def _application() -> Iterator[Flask]:
+    """The application for one command; its database engines are disposed when it ends.
+
+    An engine left to the garbage collector closes its pooled connections late, which on
+    PostgreSQL shows as a ResourceWarning when a command runs in-process (tests, scripts).
+    """
+    from app.store.db import database
+
+    app = _app()
+    try:
+        yield app
+    finally:
+        database(app).dispose()
 
 
 @click.group(help="Plumbline: designed-experiment models, residual checks and sign-off.")
@@ -31,9 +53,9 @@ def db() -> None:
 def db_upgrade(revision: str) -> None:
     from app.store.migrate import upgrade
 
-    app = _app()
-    upgrade(app.config["DATABASE_URL"], revision)
-    click.echo(f"database at {revision}: {_redacted(app.config['DATABASE_URL'])}")
+    with _application() as app:
+        upgrade(app.config["DATABASE_URL"], revision)
+        click.echo(f"database at {revision}: {_redacted(app.config['DATABASE_URL'])}")
 
 
 def _redacted(url: str) -> str:
@@ -69,9 +91,8 @@ def users_add(username: str, full_name: str, roles: str, password_stdin: bool,
         password = sys.stdin.readline().rstrip("\r\n")
     else:
         password = click.prompt("Password", hide_input=True, confirmation_prompt=True)
-    app = _app()
     try:
-        with database(app).transaction() as s:
+        with _application() as app, database(app).transaction() as s:
             user = accounts.create_user(s, None, username=username, full_name=full_name,
                                         roles=roles, password=password, one_time=one_time)
             click.echo(f"added {user.username} ({user.full_name}): {user.roles}")
@@ -86,8 +107,7 @@ def users_list() -> None:
     from app.store.db import database
     from app.store.models import User
 
-    app = _app()
-    with database(app).session(write=False) as s:
+    with _application() as app, database(app).session(write=False) as s:
         for u in s.scalars(select(User).order_by(User.username)):
             state = "active" if u.active else "deactivated"
             click.echo(f"{u.username}\t{u.full_name}\t{u.roles}\t{state}")
@@ -101,7 +121,7 @@ def users_set_roles(username: str, roles: str) -> None:
     from app.workflow import WorkflowError, accounts
 
     try:
-        with database(_app()).transaction() as s:
+        with _application() as app, database(app).transaction() as s:
             user = accounts.set_roles(s, None, username, roles)
             click.echo(f"{user.username}: {user.roles}")
     except WorkflowError as exc:
@@ -115,7 +135,7 @@ def users_deactivate(username: str) -> None:
     from app.workflow import WorkflowError, accounts
 
     try:
-        with database(_app()).transaction() as s:
+        with _application() as app, database(app).transaction() as s:
             accounts.set_active(s, None, username, False)
             click.echo(f"{username}: deactivated; sessions and tokens revoked")
     except WorkflowError as exc:
@@ -137,7 +157,7 @@ def tokens_create(username: str, name: str) -> None:
     from app.workflow import WorkflowError, accounts
 
     try:
-        with database(_app()).transaction() as s:
+        with _application() as app, database(app).transaction() as s:
             user = accounts.get_user(s, username)
             _token, raw = accounts.create_token(s, None, user, name)
     except WorkflowError as exc:
@@ -157,8 +177,8 @@ def demo() -> None:
 def demo_load(if_empty: bool) -> None:
     from app.demo import load_demo
 
-    app = _app()
-    lines = load_demo(app, only_if_empty=if_empty)
+    with _application() as app:
+        lines = load_demo(app, only_if_empty=if_empty)
     for line in lines:
         click.echo(line)
 
@@ -170,14 +190,14 @@ def demo_load(if_empty: bool) -> None:
 def serve(host: str, port: int, threads: int) -> None:
     import waitress
 
-    app = _app()
-    app.debug = False
-    if app.config.get("BEHIND_PROXY"):
-        from werkzeug.middleware.proxy_fix import ProxyFix
+    with _application() as app:
+        app.debug = False
+        if app.config.get("BEHIND_PROXY"):
+            from werkzeug.middleware.proxy_fix import ProxyFix
 
-        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
-    click.echo(f"Plumbline on http://{host}:{port}/")
-    waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
+            app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
+        click.echo(f"Plumbline on http://{host}:{port}/")
+        waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
 
 
 # ---- backup -------------------------------------------------------------------------------
@@ -187,8 +207,10 @@ def serve(host: str, port: int, threads: int) -> None:
 def backup_command(file: Path) -> None:
     from app.store.backup import BackupError, backup
 
+    with _application() as app:
+        url = app.config["DATABASE_URL"]
     try:
-        report = backup(_app().config["DATABASE_URL"], file)
+        report = backup(url, file)
     except BackupError as exc:
         _fail(str(exc))
     click.echo(f"backup {report.path}: integrity {report.integrity}; {report.chain.describe()}")
@@ -200,7 +222,8 @@ def backup_command(file: Path) -> None:
 def restore_command(file: Path, yes: bool) -> None:
     from app.store.backup import BackupError, restore
 
-    url = _app().config["DATABASE_URL"]
+    with _application() as app:
+        url = app.config["DATABASE_URL"]
     if not yes:
         click.confirm(f"Replace {_redacted(url)} with {file}?", abort=True)
     try:
