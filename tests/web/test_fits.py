@@ -9,23 +9,16 @@ import re
 import pytest
 from sqlalchemy import func, select
 
-from app.demo_data import rsm_study
 from app.ingest import read_upload, validate
 from app.store.models import AuditEvent, Fit, User
 from app.workflow import fits as fit_service
 from app.workflow import studies, uploads
+from tests.workflow.helpers import add_version, make_study
 
 
 @pytest.fixture
 def version_id(db, users):
-    demo = rsm_study()
-    with db.transaction() as s:
-        erin = s.scalar(select(User).where(User.username == "erin"))
-        study = studies.create_study(s, erin, title="Cure study")
-        raw = read_upload(demo.csv_bytes, demo.filename)
-        v = uploads.add_data_version(s, erin, study, data=demo.csv_bytes, filename=demo.filename,
-                                     raw=raw, table=validate(raw, demo.roles))
-        return v.id
+    return add_version(db, make_study(db))
 
 
 def _fit(actions, version_id, **fields):
