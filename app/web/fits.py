@@ -21,12 +21,13 @@ from sqlalchemy import select
 
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.analysis.terms import Term, named_model, sort_key
+from app.store import audit
 from app.store.db import get_session
 from app.store.models import Fit
 from app.web import charts
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, read_session, tx
-from app.workflow import WorkflowError, fits, uploads
+from app.workflow import WorkflowError, fits, reviews, uploads
 
 bp = Blueprint("fits", __name__)
 
@@ -253,6 +254,27 @@ def results_json(fit_id: int):
     response = attachment(fit.results_json, f"fit-{fit.id}-results.json", "application/json")
     response.headers["X-Snapshot-SHA256"] = fit.snapshot_sha256
     return response
+
+
+@bp.route("/fits/<int:fit_id>/record.json")
+@allow(SIGNED_IN)
+def record_json(fit_id: int):
+    """The fit as a record: snapshot hash and its check, signatures (name, UTC time, meaning,
+    validity), the chain head, and the stored inputs and results."""
+    session = get_session()
+    fit = fits.get_fit(session, fit_id)
+    seq, head = audit.chain_head(session)
+    record = {
+        "fit": fit.id, "study": fit.study_id, "data_version": fit.data_version.version,
+        "response": fit.response, "state": fit.state,
+        "created_at": fit.created_at.isoformat(), "created_by": fit.created_by.full_name,
+        "snapshot_sha256": fit.snapshot_sha256, "snapshot_intact": fits.snapshot_intact(fit),
+        "signatures": reviews.signatures_json(fit),
+        "chain_head": {"seq": seq, "hash": head},
+        "snapshot": fits.snapshot_document(fit),
+    }
+    body = json.dumps(record, indent=2, sort_keys=True, ensure_ascii=False)
+    return attachment(body, f"fit-{fit.id}-record.json", "application/json")
 
 
 @bp.route("/fits/compare")

@@ -143,3 +143,22 @@ def test_signoff_endpoints_are_documented(app):
     assert "post" in paths["/fits/{fit_id}/submit"]
     operation = paths["/fits/{fit_id}/signatures"]["post"]
     assert operation["x-access"] == ["approver"] and "409" in operation["responses"]
+
+
+def test_fit_record_export_carries_signatures_and_chain_head(db, client, actions, users):
+    from tests.workflow.helpers import approved_fit
+
+    _study, _version, fit_id = approved_fit(db)
+    actions.login("otto")
+    response = client.get(f"/fits/{fit_id}/record.json")
+    assert response.status_code == 200
+    assert response.headers["Content-Disposition"].startswith("attachment;")
+    import json as _json
+
+    record = _json.loads(response.get_data(as_text=True))
+    assert record["snapshot_intact"] is True
+    (signature,) = record["signatures"]
+    assert signature["printed_name"] == "Abel Approver"
+    assert signature["meaning"] == "approved for setpoint use"
+    assert signature["signed_at"] and signature["status"] == "valid"
+    assert record["chain_head"]["seq"] > 0 and len(record["chain_head"]["hash"]) == 64

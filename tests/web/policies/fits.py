@@ -6,5 +6,6 @@ POLICY = {
     "fits.view": "signed-in",
     "fits.charts_json": "signed-in",
     "fits.results_json": "signed-in",
+    "fits.record_json": "signed-in",
     "fits.compare": "signed-in",
 }
