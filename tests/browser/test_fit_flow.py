@@ -121,9 +121,9 @@ def test_builder_term_picker_keeps_parents(page):
     while checked.count():
         checked.first.uncheck()
     page.check("#f-hierarchy")
-    page.check("input[name=terms][value='Catalyst:Cure time']")
+    page.check("input[name=terms][value='Cure time:Catalyst']")
     needed = page.locator("label.term[data-term='Cure time'] .needed")
-    assert needed.inner_text() == "needed by Catalyst:Cure time"
+    assert needed.inner_text() == "needed by Cure time:Catalyst"
     assert page.is_checked("input[name=terms][value='Catalyst']")
     # A needed parent stays while hierarchy is on, and is released when it is turned off.
     page.click("input[name=terms][value='Catalyst']")
