@@ -17,6 +17,7 @@ from flask import (
     request,
     url_for,
 )
+from markupsafe import Markup
 from sqlalchemy import select
 
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
@@ -37,9 +38,10 @@ MODEL_LABELS = {"linear": "Main effects", "interaction": "Main effects and two-f
 TRANSFORM_LABELS = {"none": "None", "log": "Natural log", "sqrt": "Square root",
                     "inverse": "Reciprocal (1/y)", "boxcox": "Box–Cox with a chosen λ"}
 # Snapshots never change, so the charts built from one can be kept (keyed on its hash).
-_CHART_CACHE: OrderedDict[tuple, list[charts.Chart]] = OrderedDict()
+_CHART_CACHE: OrderedDict[tuple, Any] = OrderedDict()
 _CHART_CACHE_SIZE = 32
 _CHART_LOCK = Lock()
+_BUILD_LOCK = Lock()
 
 
 def chart_id(name: str) -> str:
@@ -204,16 +206,29 @@ def _covariate_values(fit: Fit, results: dict) -> dict[str, dict[int, Any]]:
 def fit_charts(fit: Fit, results: dict, pair: tuple[str, str] | None) -> list[charts.Chart]:
     """Charts of a stored snapshot, built once per (snapshot hash, factor pair)."""
     key = (fit.id, fit.snapshot_sha256, pair)
+    cached = _cached_charts(key)
+    if cached is not None:
+        return cached
+    # One build at a time: requests arriving during a build wait and then find it cached,
+    # instead of each building the same charts (CPU-bound, so parallel builds only queue).
+    with _BUILD_LOCK:
+        cached = _cached_charts(key)
+        if cached is not None:
+            return cached
+        built = charts.all_charts(results, pair=pair, covariates=_covariate_values(fit, results))
+        with _CHART_LOCK:
+            _CHART_CACHE[key] = built
+            while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
+                _CHART_CACHE.popitem(last=False)
+    return built
+
+
+def _cached_charts(key: tuple) -> Any:
     with _CHART_LOCK:
         if key in _CHART_CACHE:
             _CHART_CACHE.move_to_end(key)
             return _CHART_CACHE[key]
-    built = charts.all_charts(results, pair=pair, covariates=_covariate_values(fit, results))
-    with _CHART_LOCK:
-        _CHART_CACHE[key] = built
-        while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
-            _CHART_CACHE.popitem(last=False)
-    return built
+    return None
 
 
 def _other_fits(fit: Fit) -> list[Fit]:
@@ -229,12 +244,28 @@ def view(fit_id: int):
     built = fit_charts(fit, results, pair)
     names = {c.name for c in built}
     query = {} if pair is None else {"x": pair[0], "y": pair[1]}
+    context = dict(fit=fit, results=results, study=fit.study, version=fit.data_version,
+                   charts=built, chart_names=names, pair=pair or (None, None),
+                   charts_url=url_for("fits.charts_json", fit_id=fit.id, **query))
     return render_template(
-        "fits/view.html", fit=fit, results=results, study=fit.study, version=fit.data_version,
-        charts=built, chart_names=names, pair=pair or (None, None),
-        charts_url=url_for("fits.charts_json", fit_id=fit.id, **query),
-        intact=fits.snapshot_intact(fit), others=_other_fits(fit),
-        thresholds=json.loads(fit.thresholds_json))
+        "fits/view.html", body=_snapshot_body(context), intact=fits.snapshot_intact(fit),
+        others=_other_fits(fit), thresholds=json.loads(fit.thresholds_json), **context)
+
+
+def _snapshot_body(context: dict[str, Any]) -> Markup:
+    """The snapshot-only part of the fit page (tables and charts), rendered once per
+    (fit, snapshot hash, contour pair): a stored snapshot never changes."""
+    fit = context["fit"]
+    key = ("body", fit.id, fit.snapshot_sha256, tuple(context["pair"]))
+    cached = _cached_charts(key)
+    if cached is None:
+        # Safe: the output of an autoescaping Jinja template, not raw user text.
+        cached = Markup(render_template("fits/_body.html", **context))  # noqa: S704
+        with _CHART_LOCK:
+            _CHART_CACHE[key] = cached
+            while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
+                _CHART_CACHE.popitem(last=False)
+    return cached
 
 
 @bp.route("/fits/<int:fit_id>/charts.json")

@@ -7,7 +7,7 @@ import json
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 
 from app.store import audit
-from app.store.db import database, get_session
+from app.store.db import get_session
 from app.web.access import allow
 from app.web.common import me, tx
 from app.workflow import WorkflowError, fits, reviews
@@ -19,9 +19,12 @@ bp = Blueprint("reviews", __name__)
 
 @bp.app_template_global("chain_head")
 def chain_head() -> dict:
-    """The audit chain head (seq and hash) for every printed record."""
-    with database().session(write=False) as s:
-        seq, head_hash = audit.chain_head(s)
+    """The audit chain head (seq and hash) for every printed record.
+
+    Read through the request's own session: a second session per request would hold two pooled
+    connections at once, and enough concurrent requests then wait on each other until the pool
+    times out."""
+    seq, head_hash = audit.chain_head(get_session())
     return {"seq": seq, "hash": head_hash}
 
 

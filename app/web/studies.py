@@ -4,9 +4,10 @@ from __future__ import annotations
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 from sqlalchemy import select
+from sqlalchemy.orm import joinedload, selectinload
 
 from app.store.db import get_session
-from app.store.models import Fit
+from app.store.models import DataVersion, Fit, Study
 from app.web.access import SIGNED_IN, allow
 from app.web.common import float_field, me, tx
 from app.workflow import WorkflowError, studies
@@ -44,8 +45,14 @@ def create():
 @allow(SIGNED_IN)
 def view(study_id: int):
     session = get_session()
-    study = studies.get_study(session, study_id)
+    study = session.scalar(select(Study).where(Study.id == study_id).options(
+        joinedload(Study.owner),
+        selectinload(Study.data_versions).joinedload(DataVersion.created_by)))
+    if study is None:
+        studies.get_study(session, study_id)  # raises the plain 404
     fits = list(session.scalars(select(Fit).where(Fit.study_id == study.id)
+                                .options(joinedload(Fit.created_by),
+                                         joinedload(Fit.data_version))
                                 .order_by(Fit.created_at.desc())))
     return render_template("studies/view.html", study=study, fits=fits)
 

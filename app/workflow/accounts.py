@@ -214,13 +214,15 @@ def end_session(session: Session, token: str, user: User | None) -> None:
 def session_user(session: Session, token: str, *, idle: timedelta, max_age: timedelta,
                  now: datetime) -> tuple[User, UserSession] | None:
     """The active user behind a session token, or None when revoked, idle or too old."""
-    row = session.scalar(select(UserSession).where(UserSession.token_sha256 == sha256_hex(token)))
-    if row is None or row.revoked_at is not None:
+    found = session.execute(
+        select(UserSession, User).join(User, User.id == UserSession.user_id)
+        .where(UserSession.token_sha256 == sha256_hex(token))).first()
+    if found is None:
+        return None
+    row, user = found
+    if row.revoked_at is not None or not user.active:
         return None
     if now - row.last_seen_at > idle or now - row.created_at > max_age:
-        return None
-    user = session.get(User, row.user_id)
-    if user is None or not user.active:
         return None
     return user, row
 

@@ -21,7 +21,7 @@ import math
 from typing import Any
 
 from sqlalchemy import select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, joinedload
 
 from app.analysis import AnalysisError
 from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError
@@ -197,6 +197,7 @@ def get_proposal(session: Session, proposal_id: int) -> SetpointProposal:
 def proposals_of_study(session: Session, study_id: int) -> list[SetpointProposal]:
     return list(session.scalars(select(SetpointProposal)
                                 .where(SetpointProposal.study_id == study_id)
+                                .options(joinedload(SetpointProposal.created_by))
                                 .order_by(SetpointProposal.id.desc())))
 
 

@@ -82,6 +82,7 @@ class Client:
         return resp.status, data
 
     def login(self) -> int:
+        self.cookie = ""  # a fresh visitor each time: the login page shows its form
         _, page = self.request("GET", "/login")
         token = re.search(rb'name="csrf_token" value="([^"]+)"', page).group(1).decode()
         status, _ = self.request("POST", "/login", urlencode(
@@ -102,7 +103,11 @@ def _drive(clients: list[Client], total: int, action) -> dict:
                 if next(counter, None) is None:
                     return
             t0 = time.perf_counter()
-            status = action(client)
+            try:
+                status = action(client)
+            except (OSError, http.client.HTTPException) as exc:
+                status = f"{type(exc).__name__}: {exc}"
+                client.conn.close()
             dt = time.perf_counter() - t0
             with lock:
                 latencies.append(dt)
@@ -117,6 +122,10 @@ def _drive(clients: list[Client], total: int, action) -> dict:
         t.join()
     elapsed = time.perf_counter() - start
     latencies.sort()
+    if errors:
+        print(f"  first errors: {errors[:3]}", flush=True)
+    if not latencies:
+        raise SystemExit("no request completed")
     return {"n": len(latencies), "errors": len(errors),
             "p50_ms": 1000 * statistics.median(latencies),
             "p95_ms": 1000 * latencies[max(0, int(0.95 * len(latencies)) - 1)],
