@@ -42,24 +42,25 @@ def event(event_id: int):
                            old=trail.decoded(item.old_json), new=trail.decoded(item.new_json))
 
 
-@bp.route("/studies/<int:study_id>/export.csv")
-@allow("auditor")
-def export_csv(study_id: int):
+def _export(study_id: int, render, suffix: str, mimetype: str):
+    """The study's (filtered) trail with the chain head, as a download."""
     session = get_session()
     record = studies.get_study(session, study_id)
     events = trail.timeline(session, record, trail.Filters.from_args(request.args))
-    return attachment(trail.export_csv(record, events, audit.chain_head(session)),
-                      f"study-{study_id}-history.csv", "text/csv; charset=utf-8")
+    return attachment(render(record, events, audit.chain_head(session)),
+                      f"study-{study_id}-history.{suffix}", mimetype)
+
+
+@bp.route("/studies/<int:study_id>/export.csv")
+@allow("auditor")
+def export_csv(study_id: int):
+    return _export(study_id, trail.export_csv, "csv", "text/csv; charset=utf-8")
 
 
 @bp.route("/studies/<int:study_id>/export.json")
 @allow("auditor")
 def export_json(study_id: int):
-    session = get_session()
-    record = studies.get_study(session, study_id)
-    events = trail.timeline(session, record, trail.Filters.from_args(request.args))
-    return attachment(trail.export_json(record, events, audit.chain_head(session)),
-                      f"study-{study_id}-history.json", "application/json")
+    return _export(study_id, trail.export_json, "json", "application/json")
 
 
 @bp.route("/integrity")
