@@ -21,7 +21,7 @@ from app.store import audit
 from app.store.audit import canonical_json
 from app.store.models import ConfirmationRun, SetpointProposal, User
 from app.workflow import Conflict, WorkflowError
-from app.workflow.reviews import VALID, _require_role
+from app.workflow.reviews import VALID, require_role
 from app.workflow.setpoints import (
     _check_current,
     release_signatures,
@@ -91,7 +91,7 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     holds, or a fit behind it is no longer approved; WorkflowError naming the row and column for
     a file that cannot be read.
     """
-    _require_role(actor, "engineer", "record confirmation runs")
+    require_role(actor, "engineer", "record confirmation runs")
     if proposal.state != "released":
         raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}: confirmation runs "
                        "are recorded only at released setpoints.", field="state")

@@ -46,7 +46,9 @@ class SignatureRefused(Forbidden):
     """
 
 
-def _require_role(actor: User, role: str, doing: str) -> None:
+# The signing rules below are shared by fit sign-off and setpoint release.
+
+def require_role(actor: User, role: str, doing: str) -> None:
     if not actor.has_role(role):
         raise Forbidden(f"Only a user with the {role} role may {doing}.", field="role")
 
@@ -99,7 +101,7 @@ def _expect(fit: Fit, state: str, expected_row_version: int | None, step: str) -
 def submit(session: Session, actor: User, fit: Fit,
            expected_row_version: int | None = None) -> Fit:
     """Submit a draft fit for review (draft → submitted); the snapshot is frozen from here on."""
-    _require_role(actor, "engineer", "submit a fit for review")
+    require_role(actor, "engineer", "submit a fit for review")
     version = _expect(fit, "draft", expected_row_version, "be submitted")
     _check_current(session, fit, "submitted")
     _move(session, fit, from_state="draft", to_state="submitted", row_version=version,
@@ -124,7 +126,8 @@ def manifest_sha256(signature: Signature) -> str:
     return hashlib.sha256(canonical_json(manifest_fields(signature)).encode()).hexdigest()
 
 
-def _verify_password(actor: User, password: str | None) -> None:
+def verify_signer_password(actor: User, password: str | None) -> None:
+    """Password re-entry at the moment of signing (21 CFR 11.200(a))."""
     if not password or not verify_password(actor.password_hash, password):
         raise SignatureRefused("The password is wrong; nothing was signed.", field="password")
 
@@ -140,7 +143,7 @@ def _add_signature(session: Session, actor: User, fit: Fit, meaning: str,
     return sig
 
 
-def _clean_comment(comment: str | None) -> str:
+def clean_comment(comment: str | None) -> str:
     text = (comment or "").strip()
     if len(text) > MAX_COMMENT:
         raise WorkflowError(f"The comment is longer than {MAX_COMMENT} characters.",
@@ -156,11 +159,11 @@ def sign(session: Session, actor: User, fit: Fit, *, meaning: str, password: str
     transaction. Raises Forbidden (role, own fit), SignatureRefused (wrong password), Conflict
     (wrong state, stale version, altered snapshot, newer data), WorkflowError (meaning, comment).
     """
-    _require_role(actor, "approver", "sign a fit")
+    require_role(actor, "approver", "sign a fit")
     if meaning not in SIGN_MEANINGS:
         raise WorkflowError(f"Choose a meaning for the signature: {APPROVE!r} or {RETURN!r}.",
                             field="meaning")
-    comment = _clean_comment(comment)
+    comment = clean_comment(comment)
     if meaning == RETURN and not comment:
         raise WorkflowError("Returning a fit needs a comment saying what to rework.",
                             field="comment")
@@ -169,7 +172,7 @@ def sign(session: Session, actor: User, fit: Fit, *, meaning: str, password: str
                         field="signer")
     version = _expect(fit, "submitted", expected_row_version, "be signed")
     _check_current(session, fit, "signed")
-    _verify_password(actor, password)
+    verify_signer_password(actor, password)
     new_state = SIGN_MEANINGS[meaning]
     _move(session, fit, from_state="submitted", to_state=new_state, row_version=version)
     sig = _add_signature(session, actor, fit, meaning, comment)
@@ -204,12 +207,12 @@ def _supersede_others(session: Session, actor: User, fit: Fit) -> None:
 def withdraw(session: Session, actor: User, fit: Fit, *, password: str | None, reason: str,
              expected_row_version: int | None = None) -> Signature:
     """Withdraw an approved fit from use (approved → withdrawn), signed with a reason."""
-    _require_role(actor, "approver", "withdraw an approved fit")
-    reason = _clean_comment(reason)
+    require_role(actor, "approver", "withdraw an approved fit")
+    reason = clean_comment(reason)
     if not reason:
         raise WorkflowError("Withdrawing a fit needs a reason.", field="reason")
     version = _expect(fit, "approved", expected_row_version, "be withdrawn")
-    _verify_password(actor, password)
+    verify_signer_password(actor, password)
     _move(session, fit, from_state="approved", to_state="withdrawn", row_version=version)
     sig = _add_signature(session, actor, fit, WITHDRAW, reason)
     audit.record(session, actor=actor, action="fit.withdraw", object_type="fit",

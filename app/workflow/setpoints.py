@@ -39,11 +39,11 @@ from app.workflow.reviews import (
     VALID,
     SignatureCheck,
     SignatureRefused,
-    _clean_comment,
-    _require_role,
-    _verify_password,
     check_signature,
+    clean_comment,
     manifest_fields,
+    require_role,
+    verify_signer_password,
 )
 
 RELEASE = "released for production use"
@@ -220,7 +220,7 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
     units. Raises Conflict (409) when a fit may not drive setpoints or a bound or fixed value
     leaves the design region, WorkflowError naming the field for other bad input.
     """
-    _require_role(actor, "engineer", "propose setpoints")
+    require_role(actor, "engineer", "propose setpoints")
     _check_fit_set(fits)
     _guard(fits)
     responses = [f.response for f in fits]
@@ -302,11 +302,11 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
     draft, changed meanwhile, altered snapshot, a fit no longer approved), WorkflowError
     (meaning, comment).
     """
-    _require_role(actor, "approver", "release setpoints")
+    require_role(actor, "approver", "release setpoints")
     if meaning not in RELEASE_MEANINGS:
         raise WorkflowError(f"Choose the meaning {RELEASE!r} to release setpoints.",
                             field="meaning")
-    comment = _clean_comment(comment)
+    comment = clean_comment(comment)
     if actor.id == proposal.created_by_id:
         raise Forbidden("You proposed these setpoints; someone else must release them.",
                         field="signer")
@@ -318,7 +318,7 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
         raise Conflict(f"Setpoint proposal {proposal.id} changed since you opened it; reload "
                        "it and look again.", field="row_version")
     _check_current(session, proposal, "released")
-    _verify_password(actor, password)
+    verify_signer_password(actor, password)
     moved = session.execute(
         update(SetpointProposal)
         .where(SetpointProposal.id == proposal.id, SetpointProposal.state == "draft",
