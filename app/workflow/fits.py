@@ -75,7 +75,25 @@ def snapshot_document(fit: Fit) -> dict[str, Any]:
 
 
 def snapshot_sha256(fit: Fit) -> str:
-    return hashlib.sha256(canonical_json(snapshot_document(fit)).encode()).hexdigest()
+    """SHA-256 of the canonical snapshot document, recomputed from the stored columns.
+
+    Pages check a snapshot once per signature shown; parsing and re-serialising the results
+    each time is the costly part, so the canonical hash is remembered per digest of the raw
+    stored values. Any change to a stored column changes that digest and forces a recompute.
+    """
+    raw = hashlib.sha256("\x1f".join((
+        str(fit.data_version_id), fit.data_version.canonical_sha256, fit.spec_json,
+        fit.results_json, fit.thresholds_json, fit.software_version)).encode()).hexdigest()
+    known = _SNAPSHOT_HASHES.get(raw)
+    if known is None:
+        known = hashlib.sha256(canonical_json(snapshot_document(fit)).encode()).hexdigest()
+        if len(_SNAPSHOT_HASHES) >= 1024:
+            _SNAPSHOT_HASHES.clear()
+        _SNAPSHOT_HASHES[raw] = known
+    return known
+
+
+_SNAPSHOT_HASHES: dict[str, str] = {}
 
 
 def snapshot_intact(fit: Fit) -> bool:
@@ -204,3 +222,8 @@ def compare(fit_a: Fit, fit_b: Fit) -> dict[str, Any]:
                      for r in rows if run_field(runs_a, r, "excluded")
                      or run_field(runs_b, r, "excluded")],
     }
+
+
+def fits_of_version(session: Session, version_id: int) -> list[Fit]:
+    return list(session.scalars(select(Fit).where(Fit.data_version_id == version_id)
+                                .order_by(Fit.created_at.desc())))
