@@ -325,8 +325,7 @@ def upload_data(study_id: int):
 def get_data(version_id: int):
     session = get_session()
     version = uploads.get_data_version(session, version_id)
-    made = [f for f in fits.fits_of_study(session, version.study_id)
-            if f.data_version_id == version.id]
+    made = fits.fits_of_version(session, version.id)
     return jsonify({**_data_version(version), "fits": [_fit_summary(f) for f in made]})
 
 

@@ -19,11 +19,11 @@ from sqlalchemy import select
 
 from app.ingest import ColumnRole, IngestError, RawTable, UploadTooLarge, read_upload, suggest_roles
 from app.store.db import get_session
-from app.store.models import DataVersion, Fit
+from app.store.models import DataVersion
 from app.web import staging
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, tx
-from app.workflow import WorkflowError, studies, uploads
+from app.workflow import WorkflowError, fits, studies, uploads
 from app.workflow.csvsafe import safe_csv
 
 bp = Blueprint("data", __name__)
@@ -168,10 +168,9 @@ def view(version_id: int):
     session = get_session()
     version = uploads.get_data_version(session, version_id)
     table = uploads.design_table(version)
-    fits = list(session.scalars(select(Fit).where(Fit.data_version_id == version.id)
-                                .order_by(Fit.created_at.desc())))
+    version_fits = fits.fits_of_version(session, version.id)
     return render_template("data/view.html", version=version, study=version.study, table=table,
-                           roles=json.loads(version.roles_json), fits=fits,
+                           roles=json.loads(version.roles_json), fits=version_fits,
                            read_info=json.loads(version.read_info_json),
                            fit_url=url_for("fits.builder", version_id=version.id))
 
