@@ -22,4 +22,6 @@ DEFAULTS: dict[str, object] = {
     "SESSION_COOKIE_SECURE": False,
     "BEHIND_PROXY": False,
     "SQLITE_BUSY_TIMEOUT_MS": 15000,
+    # Rendered study and fit pages kept per process (app.web.pagecache); 0 turns it off.
+    "PAGE_CACHE_MB": 64,
 }

@@ -11,7 +11,7 @@ from flask import abort, current_app, flash, g, jsonify, redirect, request, sess
 from sqlalchemy import update
 
 from app.store.base import utcnow
-from app.store.db import WRITE_METHODS, database
+from app.store.db import WRITE_METHODS, database, get_session
 from app.store.models import UserSession
 from app.workflow import accounts
 
@@ -76,10 +76,15 @@ def _load_user() -> None:
         return
     cfg = current_app.config
     now = utcnow()
-    with db.session(write=False) as s:
-        found = accounts.session_user(
-            s, token, idle=timedelta(minutes=int(cfg["SESSION_IDLE_MINUTES"])),
-            max_age=timedelta(hours=int(cfg["SESSION_MAX_HOURS"])), now=now)
+    idle = timedelta(minutes=int(cfg["SESSION_IDLE_MINUTES"]))
+    max_age = timedelta(hours=int(cfg["SESSION_MAX_HOURS"]))
+    if request.method in WRITE_METHODS:
+        # Not the request's session: that one writes, and would take the write lock now.
+        with db.session(write=False) as s:
+            found = accounts.session_user(s, token, idle=idle, max_age=max_age, now=now)
+    else:
+        # A read: the request's own read session, one connection for the whole request.
+        found = accounts.session_user(get_session(), token, idle=idle, max_age=max_age, now=now)
     if found is None:
         session.pop("sid", None)
         return

@@ -25,7 +25,7 @@ from app.analysis.terms import Term, named_model, sort_key
 from app.store import audit
 from app.store.db import get_session
 from app.store.models import Fit
-from app.web import charts
+from app.web import charts, pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, read_session, tx
 from app.workflow import WorkflowError, fits, reviews, uploads
@@ -238,6 +238,14 @@ def _other_fits(fit: Fit) -> list[Fit]:
 @bp.route("/fits/<int:fit_id>")
 @allow(SIGNED_IN)
 def view(fit_id: int):
+    rows = fits.checked_rows(get_session(), fit_id)
+    if rows is None:
+        fits.get_fit(get_session(), fit_id)  # raises the plain 404
+    return pagecache.render(("fit", fit_id), lambda: _render_view(fit_id),
+                            live=pagecache.rows_digest(rows))
+
+
+def _render_view(fit_id: int) -> str:
     fit = fits.get_fit(get_session(), fit_id)
     results = fits.results_of(fit)
     pair = _pair(results)

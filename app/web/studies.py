@@ -8,6 +8,7 @@ from sqlalchemy.orm import joinedload, selectinload
 
 from app.store.db import get_session
 from app.store.models import DataVersion, Fit, Study
+from app.web import pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import float_field, me, tx
 from app.workflow import WorkflowError, studies
@@ -44,6 +45,10 @@ def create():
 @bp.route("/<int:study_id>")
 @allow(SIGNED_IN)
 def view(study_id: int):
+    return pagecache.render(("study", study_id), lambda: _render_view(study_id))
+
+
+def _render_view(study_id: int) -> str:
     session = get_session()
     study = session.scalar(select(Study).where(Study.id == study_id).options(
         joinedload(Study.owner),

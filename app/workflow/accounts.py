@@ -8,7 +8,7 @@ import secrets
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 
-from sqlalchemy import delete, func, select, update
+from sqlalchemy import bindparam, delete, func, select, update
 from sqlalchemy.orm import Session
 
 from app.store import audit
@@ -211,12 +211,16 @@ def end_session(session: Session, token: str, user: User | None) -> None:
                      object_id=row.user_id)
 
 
+# Built once: every signed-in request runs it, and building the statement costs as much as
+# running it.
+_SESSION_LOOKUP = (select(UserSession, User).join(User, User.id == UserSession.user_id)
+                   .where(UserSession.token_sha256 == bindparam("token_sha256")))
+
+
 def session_user(session: Session, token: str, *, idle: timedelta, max_age: timedelta,
                  now: datetime) -> tuple[User, UserSession] | None:
     """The active user behind a session token, or None when revoked, idle or too old."""
-    found = session.execute(
-        select(UserSession, User).join(User, User.id == UserSession.user_id)
-        .where(UserSession.token_sha256 == sha256_hex(token))).first()
+    found = session.execute(_SESSION_LOOKUP, {"token_sha256": sha256_hex(token)}).first()
     if found is None:
         return None
     row, user = found

@@ -6,13 +6,13 @@ import hashlib
 import json
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
 from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse
 from app.store import audit
 from app.store.audit import canonical_json
-from app.store.models import DataVersion, Fit, User
+from app.store.models import DataVersion, Fit, Signature, User
 from app.workflow import NotFound, WorkflowError
 from app.workflow.uploads import design_table
 
@@ -151,6 +151,27 @@ def get_fit(session: Session, fit_id: int) -> Fit:
     if fit is None:
         raise NotFound(f"No fit {fit_id}.", field="fit")
     return fit
+
+
+_FITS, _VERSIONS, _SIGNATURES = Fit.__table__, DataVersion.__table__, Signature.__table__
+_FIT_ROW = select(_FITS).where(_FITS.c.id == bindparam("fit_id"))
+_STUDY_VERSIONS = (select(_VERSIONS.c.id, _VERSIONS.c.version, _VERSIONS.c.canonical_sha256)
+                   .where(_VERSIONS.c.study_id == bindparam("study_id"))
+                   .order_by(_VERSIONS.c.id))
+_FIT_SIGNATURES = (select(_SIGNATURES).where(_SIGNATURES.c.fit_id == bindparam("fit_id"))
+                   .order_by(_SIGNATURES.c.id))
+
+
+def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
+    """The stored rows the fit page's live checks read (snapshot hash, signature validity):
+    the fit, its study's data versions and the fit's signatures; None when there is no fit.
+    Core queries, no objects: pages use them as a cache key (``app.web.pagecache``)."""
+    fit = session.execute(_FIT_ROW, {"fit_id": fit_id}).first()
+    if fit is None:
+        return None
+    versions = session.execute(_STUDY_VERSIONS, {"study_id": fit.study_id}).all()
+    signatures = session.execute(_FIT_SIGNATURES, {"fit_id": fit_id}).all()
+    return [tuple(fit), *map(tuple, versions), *map(tuple, signatures)]
 
 
 def results_of(fit: Fit) -> dict[str, Any]:

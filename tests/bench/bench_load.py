@@ -27,6 +27,8 @@ CLIENTS = 16
 REQUESTS_PER_ROUTE = int(os.environ.get("BENCH_REQUESTS", "800"))
 LOGIN_REQUESTS = int(os.environ.get("BENCH_LOGINS", "64"))
 MAX_SECONDS_PER_ROUTE = 60.0
+ROUNDS = 4
+THREADS = int(os.environ.get("BENCH_THREADS", "16"))
 PASSWORD = "bench pass phrase for loopback only"  # noqa: S105
 
 
@@ -91,11 +93,12 @@ class Client:
 
 
 def _drive(clients: list[Client], total: int, action) -> dict:
+    """``total`` requests of ``action`` spread over the clients; latencies and elapsed time."""
     latencies: list[float] = []
     errors = []
     lock = threading.Lock()
     counter = iter(range(total))
-    deadline = time.perf_counter() + MAX_SECONDS_PER_ROUTE
+    deadline = time.perf_counter() + MAX_SECONDS_PER_ROUTE / ROUNDS
 
     def work(client: Client):
         while time.perf_counter() < deadline:
@@ -120,8 +123,12 @@ def _drive(clients: list[Client], total: int, action) -> dict:
         t.start()
     for t in threads:
         t.join()
-    elapsed = time.perf_counter() - start
-    latencies.sort()
+    return {"latencies": latencies, "errors": errors, "elapsed": time.perf_counter() - start}
+
+
+def _summary(parts: list[dict]) -> dict:
+    latencies = sorted(x for p in parts for x in p["latencies"])
+    errors = [e for p in parts for e in p["errors"]]
     if errors:
         print(f"  first errors: {errors[:3]}", flush=True)
     if not latencies:
@@ -129,7 +136,7 @@ def _drive(clients: list[Client], total: int, action) -> dict:
     return {"n": len(latencies), "errors": len(errors),
             "p50_ms": 1000 * statistics.median(latencies),
             "p95_ms": 1000 * latencies[max(0, int(0.95 * len(latencies)) - 1)],
-            "throughput": len(latencies) / elapsed}
+            "throughput": len(latencies) / sum(p["elapsed"] for p in parts)}
 
 
 def main() -> int:
@@ -138,9 +145,12 @@ def main() -> int:
                "PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp}/bench.db"}
         study_id, fit_id = _prepare(env)
         port = _free_port()
+        # A file, not a pipe: nobody reads a pipe during the run, and once its buffer is full
+        # the server's next log line (waitress warns when requests queue) blocks every thread.
+        server_log = open(Path(tmp) / "server.log", "wb")  # noqa: SIM115
         server = subprocess.Popen([str(ROOT / ".venv" / "bin" / "plumbline"), "serve", "--host",
-                                   "127.0.0.1", "--port", str(port), "--threads", "16"],
-                                  env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+                                   "127.0.0.1", "--port", str(port), "--threads", str(THREADS)],
+                                  env=env, stdout=subprocess.DEVNULL, stderr=server_log)
         try:
             for _ in range(100):
                 try:
@@ -149,21 +159,33 @@ def main() -> int:
                 except OSError:
                     time.sleep(0.1)
             clients = [Client(port) for _ in range(CLIENTS)]
-            results = {"baseline /healthz": _drive(
-                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", "/healthz")[0])}
-            results["login (argon2id)"] = _drive(clients, LOGIN_REQUESTS, Client.login)
+            # The baseline is the cheapest request there is: anonymous clients (no session to
+            # look up) on a route that answers a constant. Pages are asked by signed-in clients.
+            anonymous = [Client(port) for _ in range(CLIENTS)]
+            routes = {
+                "baseline /healthz": (anonymous, lambda c: c.request("GET", "/healthz")[0]),
+                "study page": (clients, lambda c: c.request("GET", f"/studies/{study_id}")[0]),
+                "fit page": (clients, lambda c: c.request("GET", f"/fits/{fit_id}")[0]),
+            }
+            login = _summary([_drive(clients, LOGIN_REQUESTS, Client.login)])
             for c in clients:
                 if c.login() != 302:
                     raise SystemExit("bench user could not sign in")
-            results["study page"] = _drive(
-                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", f"/studies/{study_id}")[0])
-            results["fit page"] = _drive(
-                clients, REQUESTS_PER_ROUTE, lambda c: c.request("GET", f"/fits/{fit_id}")[0])
+            # Rounds take turns, so that a slow spell of the machine falls on every route
+            # alike instead of on whichever route was running at the time.
+            parts: dict[str, list[dict]] = {name: [] for name in routes}
+            for _ in range(ROUNDS):
+                for name, (who, action) in routes.items():
+                    parts[name].append(_drive(who, REQUESTS_PER_ROUTE // ROUNDS, action))
+            results = {name: _summary(p) for name, p in parts.items()}
+            results["login (argon2id)"] = login
         finally:
             server.terminate()
             server.wait(timeout=10)
+            server_log.close()
     base = results["baseline /healthz"]["p95_ms"]
-    print(f"load benchmark: {CLIENTS} concurrent clients on 127.0.0.1 (waitress, 16 threads)")
+    print(f"load benchmark: {CLIENTS} concurrent clients on 127.0.0.1 (waitress, {THREADS} "
+          f"threads), {ROUNDS} rounds taking turns")
     print(f"{'route':<20}{'requests':>9}{'errors':>8}{'p50 ms':>9}{'p95 ms':>9}"
           f"{'req/s':>9}{'p95/base':>10}")
     for name, r in results.items():

@@ -1,0 +1,121 @@
+"""Rendered pages remembered between requests, keyed by everything they show.
+
+A page is a function of the stored records and of who asks. Every change to the stored records
+goes through a service that appends an audit event in the same transaction, and every event
+advances the chain head; so the chain head's sequence number, the viewer (id, name, roles, form
+token) and the address identify one rendering. Pages that show a live integrity check (the fit
+page's snapshot hash and signature validity) add a digest of the rows they check, so a change
+made behind the services' back shows on the next request whether the page was cached or not.
+
+Not cached: a request with flashed messages waiting (they are shown once), and anything that
+raises (a 404 stays a 404). The cache is per process, bounded in bytes
+(``PAGE_CACHE_MB``, 0 turns it off), least recently used first out.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Iterable
+
+from flask import current_app, g, request, session
+from sqlalchemy import select
+
+from app.store.db import get_session
+from app.store.models import ChainHead
+from app.web.access import csrf_token
+
+
+class PageCache:
+    """A byte-bounded LRU of rendered pages (thread-safe)."""
+
+    def __init__(self, max_bytes: int):
+        self.max_bytes = max_bytes
+        self._pages: OrderedDict[tuple, str] = OrderedDict()
+        self._bytes = 0
+        self._lock = threading.Lock()
+        self.hits = self.misses = 0
+
+    def get(self, key: tuple) -> str | None:
+        with self._lock:
+            page = self._pages.get(key)
+            if page is None:
+                self.misses += 1
+                return None
+            self._pages.move_to_end(key)
+            self.hits += 1
+            return page
+
+    def put(self, key: tuple, page: str) -> None:
+        size = len(page)
+        if size > self.max_bytes:
+            return
+        with self._lock:
+            old = self._pages.pop(key, None)
+            if old is not None:
+                self._bytes -= len(old)
+            self._pages[key] = page
+            self._bytes += size
+            while self._bytes > self.max_bytes:
+                _, dropped = self._pages.popitem(last=False)
+                self._bytes -= len(dropped)
+
+    def __len__(self) -> int:
+        return len(self._pages)
+
+
+def _cache() -> PageCache | None:
+    app = current_app._get_current_object()
+    cache = app.extensions.get("plumbline.page_cache")
+    if cache is None:
+        megabytes = float(app.config.get("PAGE_CACHE_MB", 64))
+        if megabytes <= 0:
+            return None
+        cache = app.extensions.setdefault("plumbline.page_cache",
+                                          PageCache(int(megabytes * 1024 * 1024)))
+    return cache
+
+
+_CHAIN_SEQ = select(ChainHead.__table__.c.seq).where(ChainHead.__table__.c.id == 1)
+
+
+def chain_seq() -> int:
+    """The audit chain head's sequence number: it advances with every stored change."""
+    return get_session().execute(_CHAIN_SEQ).scalar() or 0
+
+
+def rows_digest(rows: Iterable[Iterable]) -> str:
+    """SHA-256 over rows of stored values (for pages that show a live integrity check)."""
+    digest = hashlib.sha256()
+    for row in rows:
+        for value in row:
+            # Type and length before each value: no two different rows share an encoding.
+            raw = value if isinstance(value, bytes) else str(value).encode()
+            digest.update(f"{type(value).__name__}:{len(raw)}:".encode())
+            digest.update(raw)
+        digest.update(b"\x1e")
+    return digest.hexdigest()
+
+
+def render(page: tuple, build: Callable[[], str], live: str = "") -> str:
+    """The page ``build()`` renders, reused while nothing it shows can have changed.
+
+    ``page`` names the page (e.g. ``("study", 3)``); ``live`` is a digest of rows a live check
+    reads, for pages that show one.
+    """
+    cache = _cache()
+    if cache is None or session.get("_flashes"):
+        return build()
+    user = g.user
+    token = csrf_token()  # made before the key, so every page of a session carries the same one
+    key = (page, request.full_path, chain_seq(), live,
+           None if user is None else (user.id, user.full_name, user.roles,
+                                      user.must_change_password),
+           token)
+    found = cache.get(key)
+    if found is not None:
+        return found
+    built = build()
+    cache.put(key, built)
+    return built
