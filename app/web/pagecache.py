@@ -32,12 +32,12 @@ class PageCache:
 
     def __init__(self, max_bytes: int):
         self.max_bytes = max_bytes
-        self._pages: OrderedDict[tuple, str] = OrderedDict()
+        self._pages: OrderedDict[tuple, bytes] = OrderedDict()
         self._bytes = 0
         self._lock = threading.Lock()
         self.hits = self.misses = 0
 
-    def get(self, key: tuple) -> str | None:
+    def get(self, key: tuple) -> bytes | None:
         with self._lock:
             page = self._pages.get(key)
             if page is None:
@@ -47,7 +47,7 @@ class PageCache:
             self.hits += 1
             return page
 
-    def put(self, key: tuple, page: str) -> None:
+    def put(self, key: tuple, page: bytes) -> None:
         size = len(page)
         if size > self.max_bytes:
             return
@@ -98,8 +98,9 @@ def rows_digest(rows: Iterable[Iterable]) -> str:
     return digest.hexdigest()
 
 
-def render(page: tuple, build: Callable[[], str], live: str = "") -> str:
-    """The page ``build()`` renders, reused while nothing it shows can have changed.
+def render(page: tuple, build: Callable[[], str], live: str = "") -> bytes | str:
+    """The page ``build()`` renders, reused while nothing it shows can have changed (kept
+    encoded, as it is sent).
 
     ``page`` names the page (e.g. ``("study", 3)``); ``live`` is a digest of rows a live check
     reads, for pages that show one.
@@ -116,6 +117,6 @@ def render(page: tuple, build: Callable[[], str], live: str = "") -> str:
     found = cache.get(key)
     if found is not None:
         return found
-    built = build()
+    built = build().encode()
     cache.put(key, built)
     return built

@@ -7,6 +7,7 @@ import re
 import secrets
 from dataclasses import dataclass
 from datetime import datetime, timedelta
+from typing import Any
 
 from sqlalchemy import bindparam, delete, func, select, update
 from sqlalchemy.orm import Session
@@ -212,18 +213,23 @@ def end_session(session: Session, token: str, user: User | None) -> None:
 
 
 # Built once: every signed-in request runs it, and building the statement costs as much as
-# running it.
-_SESSION_LOOKUP = (select(UserSession, User).join(User, User.id == UserSession.user_id)
-                   .where(UserSession.token_sha256 == bindparam("token_sha256")))
+# running it. The session row comes back as plain columns (no object to track).
+_SESSIONS = UserSession.__table__
+_SESSION_LOOKUP = (select(User, _SESSIONS.c.id, _SESSIONS.c.revoked_at, _SESSIONS.c.last_seen_at,
+                          _SESSIONS.c.created_at)
+                   .join(_SESSIONS, _SESSIONS.c.user_id == User.id)
+                   .where(_SESSIONS.c.token_sha256 == bindparam("token_sha256")))
 
 
 def session_user(session: Session, token: str, *, idle: timedelta, max_age: timedelta,
-                 now: datetime) -> tuple[User, UserSession] | None:
-    """The active user behind a session token, or None when revoked, idle or too old."""
+                 now: datetime) -> tuple[User, Any] | None:
+    """The active user behind a session token, or None when revoked, idle or too old.
+    Returns the user and the session row (``id``, ``revoked_at``, ``last_seen_at``,
+    ``created_at``)."""
     found = session.execute(_SESSION_LOOKUP, {"token_sha256": sha256_hex(token)}).first()
     if found is None:
         return None
-    row, user = found
+    user, row = found[0], found
     if row.revoked_at is not None or not user.active:
         return None
     if now - row.last_seen_at > idle or now - row.created_at > max_age:

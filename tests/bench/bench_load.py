@@ -1,10 +1,15 @@
 """Load benchmark against the real server (waitress) on loopback.
 
-Starts `plumbline serve` on a free 127.0.0.1 port with a fresh SQLite database holding the demo
-scenario and one fit, then drives it with 16 concurrent keep-alive clients. Request counts and
-duration are bounded. Reports p50, p95 and throughput for login, the study page and the fit page
-beside a trivial baseline route (/healthz) measured in the same run, and the p95 ratios.
+Starts `plumbline serve` (its default thread count) on a free 127.0.0.1 port with a fresh SQLite
+database holding the demo scenario and one fit, then drives it with 16 concurrent keep-alive
+clients. Request counts and duration are bounded. Reports p50, p95, throughput and the server's
+CPU time per request for login, the study page and the fit page beside a trivial baseline route
+(/healthz, asked by anonymous clients) measured in the same run, and the p95 ratios. The routes
+take turns in rounds, so a slow spell of a shared machine falls on all of them alike.
 Target (issue): study and fit pages' p95 ≤ 5 × the baseline's p95 at 16 clients.
+
+Knobs: BENCH_REQUESTS (per route, 800), BENCH_LOGINS (64), BENCH_CLIENTS (16), BENCH_THREADS
+(server threads; default: what `plumbline serve` uses).
 """
 
 from __future__ import annotations
@@ -23,12 +28,13 @@ from pathlib import Path
 from urllib.parse import urlencode
 
 ROOT = Path(__file__).resolve().parents[2]
-CLIENTS = 16
+CLIENTS = int(os.environ.get("BENCH_CLIENTS", "16"))
 REQUESTS_PER_ROUTE = int(os.environ.get("BENCH_REQUESTS", "800"))
 LOGIN_REQUESTS = int(os.environ.get("BENCH_LOGINS", "64"))
 MAX_SECONDS_PER_ROUTE = 60.0
 ROUNDS = 4
-THREADS = int(os.environ.get("BENCH_THREADS", "16"))
+# The server as `plumbline serve` runs it (8 threads) unless BENCH_THREADS says otherwise.
+THREADS = os.environ.get("BENCH_THREADS")
 PASSWORD = "bench pass phrase for loopback only"  # noqa: S105
 
 
@@ -136,7 +142,17 @@ def _summary(parts: list[dict]) -> dict:
     return {"n": len(latencies), "errors": len(errors),
             "p50_ms": 1000 * statistics.median(latencies),
             "p95_ms": 1000 * latencies[max(0, int(0.95 * len(latencies)) - 1)],
-            "throughput": len(latencies) / sum(p["elapsed"] for p in parts)}
+            "throughput": len(latencies) / sum(p["elapsed"] for p in parts),
+            "cpu_ms": 1000 * sum(p.get("server_cpu", 0.0) for p in parts) / len(latencies)}
+
+
+def _cpu_seconds(pid: int) -> float:
+    """User + system CPU time of a process so far (Linux /proc; 0 where there is none)."""
+    try:
+        fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    except OSError:
+        return 0.0
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
 def main() -> int:
@@ -148,9 +164,9 @@ def main() -> int:
         # A file, not a pipe: nobody reads a pipe during the run, and once its buffer is full
         # the server's next log line (waitress warns when requests queue) blocks every thread.
         server_log = open(Path(tmp) / "server.log", "wb")  # noqa: SIM115
-        server = subprocess.Popen([str(ROOT / ".venv" / "bin" / "plumbline"), "serve", "--host",
-                                   "127.0.0.1", "--port", str(port), "--threads", str(THREADS)],
-                                  env=env, stdout=subprocess.DEVNULL, stderr=server_log)
+        command = [str(ROOT / ".venv" / "bin" / "plumbline"), "serve", "--host", "127.0.0.1",
+                   "--port", str(port)] + (["--threads", THREADS] if THREADS else [])
+        server = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=server_log)
         try:
             for _ in range(100):
                 try:
@@ -176,7 +192,10 @@ def main() -> int:
             parts: dict[str, list[dict]] = {name: [] for name in routes}
             for _ in range(ROUNDS):
                 for name, (who, action) in routes.items():
-                    parts[name].append(_drive(who, REQUESTS_PER_ROUTE // ROUNDS, action))
+                    cpu = _cpu_seconds(server.pid)
+                    part = _drive(who, REQUESTS_PER_ROUTE // ROUNDS, action)
+                    part["server_cpu"] = _cpu_seconds(server.pid) - cpu
+                    parts[name].append(part)
             results = {name: _summary(p) for name, p in parts.items()}
             results["login (argon2id)"] = login
         finally:
@@ -184,13 +203,13 @@ def main() -> int:
             server.wait(timeout=10)
             server_log.close()
     base = results["baseline /healthz"]["p95_ms"]
-    print(f"load benchmark: {CLIENTS} concurrent clients on 127.0.0.1 (waitress, {THREADS} "
-          f"threads), {ROUNDS} rounds taking turns")
+    print(f"load benchmark: {CLIENTS} concurrent clients on 127.0.0.1 (plumbline serve, "
+          f"{THREADS or 'default'} threads), {ROUNDS} rounds taking turns")
     print(f"{'route':<20}{'requests':>9}{'errors':>8}{'p50 ms':>9}{'p95 ms':>9}"
-          f"{'req/s':>9}{'p95/base':>10}")
+          f"{'req/s':>9}{'p95/base':>10}{'server CPU ms/req':>19}")
     for name, r in results.items():
         print(f"{name:<20}{r['n']:>9}{r['errors']:>8}{r['p50_ms']:>9.1f}{r['p95_ms']:>9.1f}"
-              f"{r['throughput']:>9.1f}{r['p95_ms'] / base:>10.2f}")
+              f"{r['throughput']:>9.1f}{r['p95_ms'] / base:>10.2f}{r['cpu_ms']:>19.2f}")
     ok = all(results[k]["p95_ms"] <= 5 * base for k in ("study page", "fit page"))
     print(f"target study/fit p95 <= 5 x baseline p95: {'met' if ok else 'NOT met'}")
     return 0

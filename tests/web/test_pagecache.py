@@ -127,12 +127,12 @@ def test_the_cache_can_be_turned_off(app, actions, fit_ids):
 
 def test_the_cache_keeps_within_its_byte_budget_dropping_the_oldest():
     cache = PageCache(max_bytes=10)
-    cache.put(("a",), "aaaa")
-    cache.put(("b",), "bbbb")
-    assert cache.get(("a",)) == "aaaa"  # now the most recently used
-    cache.put(("c",), "cccc")
-    assert cache.get(("b",)) is None and cache.get(("a",)) == "aaaa" and len(cache) == 2
-    cache.put(("big",), "x" * 11)  # larger than the whole budget: not kept
+    cache.put(("a",), b"aaaa")
+    cache.put(("b",), b"bbbb")
+    assert cache.get(("a",)) == b"aaaa"  # now the most recently used
+    cache.put(("c",), b"cccc")
+    assert cache.get(("b",)) is None and cache.get(("a",)) == b"aaaa" and len(cache) == 2
+    cache.put(("big",), b"x" * 11)  # larger than the whole budget: not kept
     assert cache.get(("big",)) is None
 
 
