@@ -60,13 +60,15 @@ MIN_INSIDE = 15           # ... of which this many inside an operation, each kin
 MAX_OPERATIONS = 400      # but never more operations than this
 SEED = 7_2024
 KILL_CHANCE = 0.18        # per operation without a kill pending
-MAX_KILLS = 36            # bounds the restarts (each costs a server start-up)
+MAX_KILLS = 48            # bounds the restarts (each costs a server start-up)
 KILL_DELAY_S = (0.020, 0.600)
 # Operations take 20-100 ms, so a 20-600 ms delay mostly lands in a later operation or between
 # two. Half of the kills instead fall within the operation just started, at a random fraction
 # of the time that kind has taken so far (parse, analysis, argon2id, commit or the answer).
 SCALED_SHARE = 0.5
 SCALED_FRACTION = (0.05, 1.1)
+AIMED_CHANCE = 0.5        # per operation of a kind not yet interrupted inside
+AIMED_FRACTION = (0.1, 0.8)
 UPLOAD_SHARE = 0.3        # when no fit waits for a step: upload a new version instead of a fit
 HTTP_TIMEOUT_S = 60
 START_TIMEOUT_S = 90
@@ -301,10 +303,12 @@ class Driver:
                        content_type="application/json")
 
 
-def kill_delay(rng: random.Random, seen: list[float]) -> float:
-    """Seconds from an operation's start to the SIGKILL (see SCALED_SHARE)."""
+def kill_delay(rng: random.Random, seen: list[float], aim: bool = False) -> float:
+    """Seconds from an operation's start to the SIGKILL (see SCALED_SHARE and AIMED_FRACTION)."""
     scaled, fraction = rng.random() < SCALED_SHARE, rng.uniform(*SCALED_FRACTION)
     fixed = rng.uniform(*KILL_DELAY_S)
+    if aim:
+        return rng.uniform(*AIMED_FRACTION) * sorted(seen)[len(seen) // 2]
     if scaled and len(seen) >= 3:
         return fraction * sorted(seen)[len(seen) // 2]
     return fixed
@@ -362,8 +366,12 @@ def test_sigkill_during_upload_fit_and_sign_operations(tmp_path):
             if enough or done >= MAX_OPERATIONS or time.monotonic() > hang_guard:
                 break
             kind, target = driver.choose(state)
-            if not server.armed and kills < MAX_KILLS and rng.random() < KILL_CHANCE:
-                server.arm(kill_delay(rng, latency[kind]))
+            # A kind that no kill has caught inside yet (uploads are short and rarer) gets an
+            # aimed kill: a fraction of its own median duration, so every kind is interrupted.
+            aim = interrupted[kind] == 0 and len(latency[kind]) >= 3
+            if (not server.armed and kills < MAX_KILLS
+                    and rng.random() < (AIMED_CHANCE if aim else KILL_CHANCE)):
+                server.arm(kill_delay(rng, latency[kind], aim=aim))
             attempted[kind] += 1
             before, t0 = state, time.perf_counter()
             try:
