@@ -4,10 +4,11 @@ The server is ``plumbline serve`` (waitress) on a free 127.0.0.1 port with its o
 An engineer uploads the demo data, fits a quadratic model of Hardness and submits it; an approver
 approves each submitted fit (which supersedes the one approved before it). A seeded killer sends
 SIGKILL at random points after some operations start (a random 20–600 ms, or a random fraction of
-that kind's usual duration), so kills land inside requests: in the upload's parse and write, the
-analysis of a fit, the argon2id check of the signer's password, and in the commits. After every
-kill the file is checked while the server is down (the run goes on for at least 200 operations and
-20 kills, 15 of them inside an operation):
+that kind's usual duration; aimed within the usual duration for a kind no kill has caught yet),
+so kills land inside requests: in the upload's parse and write, the analysis of a fit, the
+argon2id check of the signer's password, and in the commits. After every kill the file is checked
+while the server is down (the run goes on for at least 200 operations and 20 kills, 15 of them
+inside an operation and each kind caught at least once):
 
 - ``PRAGMA integrity_check`` answers "ok";
 - the audit chain verifies (:func:`app.store.audit.verify`);
