@@ -216,10 +216,7 @@ def fit_charts(fit: Fit, results: dict, pair: tuple[str, str] | None) -> list[ch
         if cached is not None:
             return cached
         built = charts.all_charts(results, pair=pair, covariates=_covariate_values(fit, results))
-        with _CHART_LOCK:
-            _CHART_CACHE[key] = built
-            while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
-                _CHART_CACHE.popitem(last=False)
+        _remember(key, built)
     return built
 
 
@@ -229,6 +226,13 @@ def _cached_charts(key: tuple) -> Any:
             _CHART_CACHE.move_to_end(key)
             return _CHART_CACHE[key]
     return None
+
+
+def _remember(key: tuple, value: Any) -> None:
+    with _CHART_LOCK:
+        _CHART_CACHE[key] = value
+        while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
+            _CHART_CACHE.popitem(last=False)
 
 
 def _other_fits(fit: Fit) -> list[Fit]:
@@ -269,10 +273,7 @@ def _snapshot_body(context: dict[str, Any]) -> Markup:
     if cached is None:
         # Safe: the output of an autoescaping Jinja template, not raw user text.
         cached = Markup(render_template("fits/_body.html", **context))  # noqa: S704
-        with _CHART_LOCK:
-            _CHART_CACHE[key] = cached
-            while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
-                _CHART_CACHE.popitem(last=False)
+        _remember(key, cached)
     return cached
 
 

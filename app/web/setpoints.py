@@ -268,7 +268,7 @@ def export_csv(proposal_id: int):
     session = get_session()
     proposal = setpoints.get_proposal(session, proposal_id)
     return attachment(setpoint_export.export_csv(session, proposal),
-                       f"setpoints_{proposal_id}.csv", "text/csv")
+                      f"setpoints_{proposal_id}.csv", "text/csv")
 
 
 @bp.route("/setpoints/<int:proposal_id>/export.json")
