@@ -6,7 +6,7 @@ HOST   ?= 127.0.0.1
 PORT   ?= 5000
 STAMP  := $(VENV)/.installed
 
-.PHONY: serve test test-fast lint bench venv vendor clean
+.PHONY: serve test check lint bench dist wheel-smoke venv vendor clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -30,11 +30,24 @@ test: $(STAMP)
 lint: $(STAMP)
 	$(BIN)/ruff check app tests migrations
 
+# Lint, then the whole suite.
+check: lint test
+
+# The wheel carries templates/, static/ and migrations/ inside the package (see DEVELOPERS.md).
+dist: $(STAMP)
+	rm -rf dist build
+	$(BIN)/python -m pip wheel --quiet --no-deps --wheel-dir dist .
+
+# Install the wheel into a fresh venv outside the checkout, migrate, load the demo, serve it
+# and fetch the login page, its stylesheet and a chart library.
+wheel-smoke: dist
+	PYTHON=$(PYTHON) bash .ci/wheel-smoke dist/plumbline-*.whl
+
 bench: $(STAMP)
 	$(BIN)/python tests/bench/run.py
 
 clean:
-	rm -rf $(VENV) instance/plumbline.db* .pytest_cache
+	rm -rf $(VENV) instance/plumbline.db* .pytest_cache dist build
 
 # Re-fetch the chart libraries from the npm registry (only when upgrading them).
 vendor:

@@ -10,7 +10,21 @@ from typing import TYPE_CHECKING, Any
 if TYPE_CHECKING:  # flask is imported lazily so that `import app.analysis` stays flask-free
     from flask import Flask
 
-ROOT = Path(__file__).resolve().parent.parent
+# Resources live beside the modules: app/templates, app/static and app/migrations are symlinks
+# to the top-level folders in a checkout and real folders in an installed wheel.
+PACKAGE = Path(__file__).parent
+TEMPLATES = PACKAGE / "templates"
+STATIC = PACKAGE / "static"
+MIGRATIONS = PACKAGE / "migrations"
+
+
+def default_instance_path() -> Path:
+    """``PLUMBLINE_INSTANCE_PATH``, else ``./instance`` under the working directory.
+
+    Never inside the installed package: site-packages is no place for a database or a key.
+    """
+    configured = os.environ.get("PLUMBLINE_INSTANCE_PATH")
+    return Path(configured) if configured else Path.cwd() / "instance"
 
 
 def _load_secret_key(app: Flask) -> None:
@@ -45,9 +59,9 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     app = Flask(
         __name__,
         instance_relative_config=True,
-        template_folder=str(ROOT / "templates"),
-        static_folder=str(ROOT / "static"),
-        instance_path=os.environ.get("PLUMBLINE_INSTANCE_PATH") or str(ROOT / "instance"),
+        template_folder=str(TEMPLATES),
+        static_folder=str(STATIC),
+        instance_path=str(default_instance_path().resolve()),
     )
     from app.config import DEFAULTS
 
@@ -69,6 +83,14 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
                         int(app.config["ARGON2_PARALLELISM"]))
     if not app.config.get("SOFTWARE_VERSION"):
         app.config["SOFTWARE_VERSION"] = software_version()
+
+    if app.config.get("BEHIND_PROXY"):
+        # Whatever server runs the app (plumbline serve, gunicorn, a WSGI host), trust exactly
+        # one proxy's X-Forwarded-* headers, so the audit trail and the login throttle see the
+        # client's address, not the proxy's.
+        from werkzeug.middleware.proxy_fix import ProxyFix
+
+        app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
 
     from app.store import db
 

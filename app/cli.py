@@ -192,10 +192,6 @@ def serve(host: str, port: int, threads: int) -> None:
 
     with _application() as app:
         app.debug = False
-        if app.config.get("BEHIND_PROXY"):
-            from werkzeug.middleware.proxy_fix import ProxyFix
-
-            app.wsgi_app = ProxyFix(app.wsgi_app, x_for=1, x_proto=1, x_host=1)
         click.echo(f"Plumbline on http://{host}:{port}/")
         waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
 

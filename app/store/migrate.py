@@ -5,12 +5,12 @@ from __future__ import annotations
 from alembic import command
 from alembic.config import Config
 
-from app import ROOT
+from app import MIGRATIONS
 
 
 def alembic_config(url: str) -> Config:
-    cfg = Config(str(ROOT / "migrations" / "alembic.ini"))
-    cfg.set_main_option("script_location", str(ROOT / "migrations"))
+    cfg = Config(str(MIGRATIONS / "alembic.ini"))
+    cfg.set_main_option("script_location", str(MIGRATIONS))
     cfg.set_main_option("sqlalchemy.url", url.replace("%", "%%"))
     return cfg
 

@@ -9,7 +9,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-REFERENCE = Path("/work/shared/reference")
+# Published reference files with their sources: tests/data/reference/README.md
+REFERENCE = Path(__file__).resolve().parents[1] / "data" / "reference"
 
 
 def load_json(name: str) -> dict:

@@ -1,6 +1,6 @@
 """Diagnostic statistics against published values and scipy/statsmodels cross-checks.
 
-Sources: /work/shared/reference/diagnostics_reference_values.json (R nortest / R Box.test /
+Sources: tests/data/reference/diagnostics_reference_values.json (R nortest / R Box.test /
 Julia HypothesisTests values, NIST e-Handbook GEAR), GEAR.DAT, and scipy/statsmodels on the
 same arrays where they compute the same statistic.
 """

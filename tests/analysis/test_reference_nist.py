@@ -1,6 +1,6 @@
 """NIST StRD reference checks: every linear-regression set and every one-way ANOVA set.
 
-Source: /work/shared/reference/nist_strd_linear_regression.json and nist_strd_anova.json
+Source: tests/data/reference/nist_strd_linear_regression.json and nist_strd_anova.json
 (certified values as printed by NIST); tolerances sized to what QR in double precision reaches.
 """
 

@@ -27,7 +27,8 @@ import time
 from pathlib import Path
 from urllib.parse import urlencode
 
-ROOT = Path(__file__).resolve().parents[2]
+# The CLI and interpreter of the environment running the benchmark.
+BIN = Path(sys.executable).parent
 CLIENTS = int(os.environ.get("BENCH_CLIENTS", "16"))
 REQUESTS_PER_ROUTE = int(os.environ.get("BENCH_REQUESTS", "800"))
 LOGIN_REQUESTS = int(os.environ.get("BENCH_LOGINS", "64"))
@@ -64,10 +65,9 @@ with database(app).transaction() as s:
     f = fits.create_fit(s, u, v, spec)
     print(v.study_id, f.id)
 """
-    bin_dir = ROOT / ".venv" / "bin"
-    subprocess.run([str(bin_dir / "plumbline"), "db", "upgrade"], env=env, check=True,
+    subprocess.run([str(BIN / "plumbline"), "db", "upgrade"], env=env, check=True,
                    capture_output=True)
-    out = subprocess.run([str(bin_dir / "python"), "-c", code], env=env, check=True,
+    out = subprocess.run([sys.executable, "-c", code], env=env, check=True,
                          capture_output=True, text=True).stdout.split()
     return int(out[-2]), int(out[-1])
 
@@ -164,7 +164,7 @@ def main() -> int:
         # A file, not a pipe: nobody reads a pipe during the run, and once its buffer is full
         # the server's next log line (waitress warns when requests queue) blocks every thread.
         server_log = open(Path(tmp) / "server.log", "wb")  # noqa: SIM115
-        command = [str(ROOT / ".venv" / "bin" / "plumbline"), "serve", "--host", "127.0.0.1",
+        command = [str(BIN / "plumbline"), "serve", "--host", "127.0.0.1",
                    "--port", str(port)] + (["--threads", THREADS] if THREADS else [])
         server = subprocess.Popen(command, env=env, stdout=subprocess.DEVNULL, stderr=server_log)
         try:

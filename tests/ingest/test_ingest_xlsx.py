@@ -238,3 +238,19 @@ def test_damaged_workbook_is_an_ingest_error():
     data = replace_member(base, "xl/workbook.xml", b"<not-a-workbook")
     with pytest.raises(IngestError, match="cannot be read as an XLSX workbook"):
         read_upload(data, "study.xlsx")
+
+
+def test_entity_expansion_in_a_sheet_is_refused_by_defusedxml():
+    # openpyxl parses through defusedxml when it is installed (a runtime dependency): a
+    # document type with entity declarations ("billion laughs") is refused before expansion.
+    from openpyxl.xml import DEFUSEDXML
+
+    assert DEFUSEDXML
+    base = workbook_bytes({"Runs": RUNS})
+    sheet = zipfile.ZipFile(io.BytesIO(base)).read("xl/worksheets/sheet1.xml").decode()
+    entities = '<!ENTITY a "' + "x" * 100 + '">' + "".join(
+        f'<!ENTITY {c} "{("&" + p + ";") * 10}">' for p, c in zip("abcdefg", "bcdefgh"))
+    bomb = sheet.replace("<worksheet", f"<!DOCTYPE worksheet [{entities}]><worksheet", 1)
+    bomb = bomb.replace("<v>1</v>", "<v>&h;</v>", 1)
+    with pytest.raises(IngestError, match="cannot be read as an XLSX workbook"):
+        read_upload(replace_member(base, "xl/worksheets/sheet1.xml", bomb.encode()), "study.xlsx")

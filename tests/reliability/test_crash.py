@@ -29,6 +29,7 @@ import signal
 import socket
 import sqlite3
 import subprocess
+import sys
 import threading
 import time
 import uuid
@@ -39,16 +40,16 @@ from typing import Any
 
 import pytest
 
-from app import create_app
+from app import PACKAGE, create_app
 from app.demo_data import rsm_roles
 from app.store.backup import check_file
 from app.store.db import database
 from app.workflow import accounts, reviews, studies
 from tests.conftest import TEST_ARGON2
 
-ROOT = Path(__file__).resolve().parents[2]
-PLUMBLINE = ROOT / ".venv" / "bin" / "plumbline"
-DEMO_CSV = ROOT / "app" / "demo" / "rsm_demo.csv"
+# The CLI installed beside the interpreter running the tests (a venv's bin/ or Scripts/).
+PLUMBLINE = Path(sys.executable).parent / "plumbline"
+DEMO_CSV = PACKAGE / "demo" / "rsm_demo.csv"
 ROLES_JSON = json.dumps({name: role.to_dict() for name, role in rsm_roles().items()})
 PASSWORDS = {"erin": "erin crash test pass phrase", "abel": "abel crash test pass phrase"}
 KINDS = ("upload", "fit", "submit", "sign")

@@ -2,14 +2,18 @@
 
 from __future__ import annotations
 
+import shutil
 from datetime import timedelta
 
+import pytest
 from sqlalchemy import func, select, update
 
+from app import create_app
 from app.store.base import utcnow
+from app.store.db import database
 from app.store.models import AuditEvent, LoginFailure, UserSession
 from app.workflow import accounts
-from tests.conftest import PASSWORD
+from tests.conftest import PASSWORD, TEST_ARGON2, Actions
 
 
 def test_login_page_renders_and_unknown_user_is_refused(client, actions, users, db):
@@ -134,3 +138,31 @@ def test_one_time_password_must_be_changed_first(client, actions, db):
     assert changed.status_code == 302
     assert actions.login("newbie", "my own new pass phrase").status_code == 302
     assert client.get("/studies/").status_code == 200
+
+
+@pytest.mark.parametrize("behind_proxy", [True, False])
+def test_client_address_through_a_proxy_reaches_the_audit_trail(behind_proxy, tmp_path,
+                                                                 sqlite_template):
+    """ProxyFix is applied by create_app itself, so any WSGI server (gunicorn included) gets it;
+    without the setting a forged X-Forwarded-For header is ignored."""
+    path = tmp_path / "proxy.db"
+    shutil.copy(sqlite_template, path)
+    application = create_app({
+        "TESTING": True, "DATABASE_URL": f"sqlite:///{path}", "SECRET_KEY": "test-only-" + "p" * 40,
+        "SOFTWARE_VERSION": "test", "BEHIND_PROXY": behind_proxy, **TEST_ARGON2,
+    })
+    db = database(application)
+    with db.transaction() as s:
+        accounts.create_user(s, None, username="erin", full_name="Erin Engineer",
+                             roles="engineer", password=PASSWORD)
+    client = application.test_client()
+    actions = Actions(client)
+    response = client.post("/login", data={"username": "erin", "password": PASSWORD,
+                                           "csrf_token": actions.csrf()},
+                           headers={"X-Forwarded-For": "203.0.113.7"})
+    assert response.status_code == 302
+    with db.session() as s:
+        event = s.scalars(select(AuditEvent).where(AuditEvent.action == "auth.login")).one()
+    expected = "203.0.113.7" if behind_proxy else "127.0.0.1"
+    assert f'"remote_addr":"{expected}"' in event.new_json
+    db.dispose()
