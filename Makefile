@@ -6,7 +6,7 @@ HOST   ?= 127.0.0.1
 PORT   ?= 5000
 STAMP  := $(VENV)/.installed
 
-.PHONY: serve test check lint bench dist wheel-smoke venv vendor clean
+.PHONY: serve test check lint bench calibrate dist wheel-smoke venv vendor clean
 
 $(BIN)/python:
 	$(PYTHON) -m venv $(VENV)
@@ -45,6 +45,11 @@ wheel-smoke: dist
 
 bench: $(STAMP)
 	$(BIN)/python tests/bench/run.py
+
+# False-alarm and detection rates of the residual checks on three common designs; rewrites
+# app/data/calibration.json, which the review page shows beside a fit of the same design.
+calibrate: $(STAMP)
+	$(BIN)/python tests/bench/calibrate.py
 
 clean:
 	rm -rf $(VENV) instance/plumbline.db* .pytest_cache dist build

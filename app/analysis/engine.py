@@ -8,7 +8,8 @@ import pandas as pd
 from . import transforms
 from .anova import SS_METHOD, anova_table
 from .boxcox import boxcox_profile
-from .checks import CheckContext, run_checks
+from .calibration import ASYMPTOTIC_ABOVE, null_draws, seed_for
+from .checks import CheckContext, battery_summary, run_checks
 from .coding import code_factors, decode
 from .design import describe_design, setting_groups
 from .effects import effects_and_lenth
@@ -156,8 +157,10 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
         groups=groups, thresholds=spec.thresholds, run_order=run_order, covariates=covariates,
         has_square_terms=any(not t.is_two_level_product() for t in terms),
         model_factor_set=frozenset(i for t in terms for i in t.factors),
+        null=_null_draws(ls, x, spec),
     )
     checks = run_checks(ctx)
+    calibration = battery_summary(checks, ctx)
     anova = _with_curvature_row(anova, checks)
     effects, lenth_doc, half_normal = effects_and_lenth(design, terms, ls, names, spec.hierarchy)
 
@@ -188,8 +191,23 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
         anova_method=SS_METHOD, fit=fit_stats, runs=runs, checks=tuple(checks),
         effects=tuple(effects), lenth=lenth_doc, half_normal=tuple(half_normal), equation=eq,
         transform=transform_doc, boxcox=boxcox, suggestions=tuple(suggestions), model=model_doc,
-        reduction=tuple(steps),
+        reduction=tuple(steps), calibration=calibration,
     )
+
+
+def _null_draws(ls, x: np.ndarray, spec: FitSpec):
+    """Simulated M z for this design; None when not needed.
+
+    The seed comes from the model matrix and the fit spec, both part of the snapshot, and not
+    from the response: the null distribution belongs to the design, and so the same data in
+    other units or with an offset get the very same p-values.
+    """
+    if ls.n > ASYMPTOTIC_ABOVE or ls.df_resid <= 0 or ls.exact_fit:
+        return None
+    import json
+
+    seed = seed_for(x, text=json.dumps(spec.to_dict(), sort_keys=True, default=str))
+    return null_draws(ls.q, seed)
 
 
 def _with_curvature_row(anova: list[dict], checks) -> list[dict]:

@@ -154,6 +154,8 @@ class FitResult:
     suggestions: tuple[str, ...]
     model: dict
     reduction: tuple[dict, ...] = field(default_factory=tuple)
+    # How the check battery was calibrated and adjusted (draws, seed, family, method).
+    calibration: dict = field(default_factory=dict)
 
     def check(self, check_id: str) -> CheckResult:
         """The check with this id (KeyError naming it when absent)."""
@@ -192,6 +194,7 @@ class FitResult:
             "suggestions": list(self.suggestions),
             "model": clean(self.model),
             "reduction": clean(list(self.reduction)),
+            "calibration": clean(self.calibration),
         }
 
     def to_frame(self, table: str = "coefficients") -> pd.DataFrame:

@@ -8,6 +8,16 @@ from typing import Any
 import numpy as np
 from scipy import special
 
+from ..calibration import (
+    DEFECTS,
+    POWER_DRAWS,
+    POWER_FLOOR,
+    NullDraws,
+    defect_residuals,
+    detection_rate,
+    null_p_values,
+    upper_p,
+)
 from ..design import DesignInfo
 from ..fit import LeastSquares
 from ..residuals import ResidualSet
@@ -28,10 +38,17 @@ class CheckResult:
     message: str
     chart: str
     details: dict[str, Any] = field(default_factory=dict)
+    # The p-value adjusted across the battery of this fit; the verdict follows it.
+    p_adjusted: float | None = None
+    # Not stored: this check's p-value on each null draw (for the min-P adjustment), and the
+    # sentence for a pass and for a flag, chosen once the adjusted p is known.
+    null_p: np.ndarray | None = field(default=None, compare=False, repr=False)
+    messages: tuple[str, str] | None = field(default=None, compare=False, repr=False)
 
     def to_dict(self) -> dict[str, Any]:
         return {"id": self.id, "question": self.question, "method": self.method,
-                "statistic": self.statistic, "p_value": self.p_value, "verdict": self.verdict,
+                "statistic": self.statistic, "p_value": self.p_value,
+                "p_adjusted": self.p_adjusted, "verdict": self.verdict,
                 "runs": list(self.runs), "message": self.message, "chart": self.chart,
                 "details": dict(self.details)}
 
@@ -52,6 +69,85 @@ class CheckContext:
     covariates: dict[str, tuple[str, np.ndarray]]  # name -> (kind, values)
     has_square_terms: bool
     model_factor_set: frozenset[int]  # factors appearing in the model
+    null: NullDraws | None = None    # simulated M z draws; None above the asymptotic run count
+
+    @property
+    def usable(self) -> np.ndarray:
+        """Runs whose residual carries information (leverage below 1)."""
+        return self.resid.leverage < 1 - 1e-8
+
+
+def judged(check_id: str, question: str, method: str, chart: str, ctx: CheckContext,
+           statistic: float, p_value: float, good: str, bad: str, *,
+           null_p: np.ndarray | None = None, runs: tuple[int, ...] = (),
+           details: dict | None = None) -> CheckResult:
+    """A check with a p-value; its verdict is provisional until the battery adjusts it.
+
+    A p-value that is not a finite number in [0, 1] fails closed: not applicable, with the
+    reason, never pass.
+    """
+    if p_value is None or not np.isfinite(p_value) or not 0.0 <= p_value <= 1.0:
+        return not_applicable(check_id, question, method, chart,
+                              "not applicable: the test statistic is undefined for these "
+                              "residuals", details)
+    rate = (details or {}).get("detection_rate")
+    if rate is not None and clearly_below_floor(rate):
+        return not_applicable(
+            check_id, question, method, chart,
+            f"not applicable: this design cannot tell — against {details['detection_against']} "
+            f"this check would flag only {rate:.0%} of experiments (false alarms alone: "
+            f"{ctx.thresholds.review:.0%}), so a pass would say nothing. Judge this from the "
+            "plot, or add runs", details)
+    verdict = ctx.thresholds.verdict(p_value)
+    return CheckResult(check_id, question, method, float(statistic), float(p_value), verdict,
+                       runs, good if verdict == "pass" else bad, chart, details or {},
+                       null_p=null_p, messages=(good, bad))
+
+
+def clearly_below_floor(rate: float) -> bool:
+    """True when even the upper 95 % bound of the simulated detection rate is below the floor.
+
+    A rate near the floor keeps the check: only a design that clearly cannot detect the defect
+    is told so, and Monte Carlo error does not flip the decision between alike factors.
+    """
+    return rate + 2.0 * np.sqrt(rate * (1.0 - rate) / POWER_DRAWS) < POWER_FLOOR
+
+
+def simulated(ctx: CheckContext, statistic, *, textbook_p: float | None = None,
+              defect: str | None = None, **defect_args) -> tuple[float, float, np.ndarray | None,
+                                                               dict]:
+    """(observed statistic, p, null p-values, details) for ``statistic`` (larger = worse).
+
+    ``statistic`` maps a (B × n) array of residual vectors to B values and must not depend on
+    σ. With draws, p is its design-exact upper tail; without, ``textbook_p`` is used. With a
+    ``defect`` (a key of calibration.DEFECTS), the details carry the share of experiments with
+    that defect in which this design would let the check flag it.
+    """
+    observed = float(statistic(ctx.ls.residuals[None, :])[0])
+    if ctx.null is None:
+        return observed, textbook_p, None, {"p_method": "asymptotic (textbook) distribution"}
+    null = statistic(ctx.null.residuals)
+    details = {"p_method": f"simulated for this design ({ctx.null.count} draws of M z)"}
+    if textbook_p is not None:
+        details["p_textbook"] = textbook_p
+    if defect is not None:
+        details.update(detection(ctx, null, statistic, defect, **defect_args))
+    return observed, upper_p(observed, null), null_p_values(null), details
+
+
+def detection(ctx: CheckContext, null: np.ndarray, statistic, defect: str,
+              **defect_args) -> dict:
+    """How often this design lets the check flag ``defect`` at the review threshold."""
+    residuals = defect_residuals(ctx.ls.q, ctx.null.seed, defect, **defect_args)
+    rate = detection_rate(null, statistic(residuals), ctx.thresholds.review)
+    return {"detection_rate": round(rate, 3), "detection_against": DEFECTS[defect]}
+
+
+def run_positions(ctx: CheckContext) -> np.ndarray:
+    """Each run's place in time, 0-based (ties in the run-order column keep table order)."""
+    positions = np.empty(len(ctx.run_order), dtype=int)
+    positions[np.argsort(ctx.run_order, kind="stable")] = np.arange(len(ctx.run_order))
+    return positions
 
 
 def not_applicable(check_id: str, question: str, method: str, chart: str, reason: str,
@@ -71,14 +167,28 @@ def no_residual_information(ctx: CheckContext) -> str | None:
     return None
 
 
-def added_columns_test(ctx: CheckContext, z: np.ndarray) -> tuple[float, int, int, float] | None:
+@dataclass(frozen=True)
+class AddedColumnsTest:
+    """F for adding columns to the fitted model: exact under the checks' hypothesis."""
+
+    f: float
+    df1: int
+    df2: int
+    p_value: float
+    null_p: np.ndarray | None   # the same test's p on each null draw, for the min-P step
+    basis: np.ndarray           # orthonormal columns added beyond the model space
+
+
+def added_columns_test(ctx: CheckContext, z: np.ndarray) -> AddedColumnsTest | None:
     """F test for adding columns ``z`` to the fitted model, without refitting from scratch.
 
     The new columns are projected off the model space (z - Q Q'z); the extra SS is the squared
-    length of the residual's projection onto what remains. Returns (F, df1, df2, p), or None when
-    the columns add nothing the model does not already span, or leave no residual df.
+    length of the residual's projection onto what remains. The columns must not depend on the
+    response except through the fitted values, which are independent of the residuals under
+    normal errors, so F is exact (Tukey's one-degree-of-freedom test included). Returns None
+    when the columns add nothing the model does not already span, or leave no residual df.
     """
-    q, e = ctx.ls.q, ctx.ls.residuals
+    q = ctx.ls.q
     z = np.atleast_2d(np.asarray(z, dtype=float).T).T
     z_res = z - q @ (q.T @ z)
     norms = np.linalg.norm(z, axis=0)
@@ -89,13 +199,17 @@ def added_columns_test(ctx: CheckContext, z: np.ndarray) -> tuple[float, int, in
     df2 = ctx.ls.df_resid - df1
     if df1 == 0 or df2 <= 0:
         return None
-    proj = u[:, keep].T @ e
-    extra = float(proj @ proj)
-    rest = max(ctx.ls.sse - extra, 0.0)
-    if rest <= 0:
-        return float("inf"), df1, df2, 0.0
-    f = (extra / df1) / (rest / df2)
-    return f, df1, df2, float(special.fdtrc(df1, df2, f))
+    basis = u[:, keep]
+
+    def f_of(e: np.ndarray) -> np.ndarray:
+        extra = np.sum((e @ basis) ** 2, axis=1)
+        rest = np.maximum(np.sum(e**2, axis=1) - extra, 0.0)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(rest > 0, (extra / df1) / (rest / df2), np.inf)
+
+    f = float(f_of(ctx.ls.residuals[None, :])[0])
+    null_p = None if ctx.null is None else special.fdtrc(df1, df2, f_of(ctx.null.residuals))
+    return AddedColumnsTest(f, df1, df2, float(special.fdtrc(df1, df2, f)), null_p, basis)
 
 
 def level_indicators(values: np.ndarray, max_levels: int = 12) -> np.ndarray | None:

@@ -5,10 +5,18 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
-from .common import CheckContext, CheckResult, no_residual_information, not_applicable
+from .common import (
+    CheckContext,
+    CheckResult,
+    judged,
+    no_residual_information,
+    not_applicable,
+    simulated,
+)
 
 QUESTION = "Do residuals look normal?"
-METHOD = "Anderson-Darling A² (mean and SD estimated) with D'Agostino & Stephens p-value"
+METHOD = ("Anderson-Darling A² on internally studentized residuals; p from this design's own "
+          "null distribution (D'Agostino & Stephens p beside it)")
 MIN_RUNS = 8  # the p-value pieces of D'Agostino & Stephens (1986) are tabled from n = 8
 
 
@@ -40,27 +48,50 @@ def anderson_darling(x: np.ndarray) -> tuple[float, float, float]:
     return a2, float(a_star), float(min(max(p, 0.0), 1.0))
 
 
+def anderson_darling_rows(x: np.ndarray) -> np.ndarray:
+    """A² of each row of ``x`` (mean and SD estimated), vectorised; as :func:`anderson_darling`."""
+    x = np.sort(np.asarray(x, dtype=float), axis=1)
+    n = x.shape[1]
+    w = (x - x.mean(axis=1, keepdims=True)) / x.std(axis=1, ddof=1, keepdims=True)
+    i = np.arange(1, n + 1)
+    return -n - np.sum((2 * i - 1) * (special.log_ndtr(w) + special.log_ndtr(-w[:, ::-1])),
+                       axis=1) / n
+
+
 def check_normality(ctx: CheckContext) -> CheckResult:
-    """Anderson–Darling on the raw residuals of runs not fitted exactly (leverage below 1)."""
+    """Anderson–Darling on the studentized residuals of runs not fitted exactly.
+
+    Raw residuals have unequal variances σ²(1 − h); dividing by √(1 − h) evens them out, and
+    the remaining dependence is in the simulated null distribution.
+    """
     chart = "normal_probability"
     reason = no_residual_information(ctx)
     if reason:
         return not_applicable("normality", QUESTION, METHOD, chart, reason)
-    usable = ctx.resid.leverage < 1 - 1e-8
-    e = ctx.resid.raw[usable]
-    if len(e) < MIN_RUNS:
+    if ctx.ls.df_resid <= 2:
         return not_applicable("normality", QUESTION, METHOD, chart,
-                              f"not applicable: {len(e)} usable residuals are fewer than the "
-                              f"{MIN_RUNS} the Anderson-Darling p-value needs")
-    a2, a_star, p = anderson_darling(e)
-    verdict = ctx.thresholds.verdict(p)
-    if verdict == "pass":
-        msg = "Residuals are consistent with a normal distribution."
-    else:
-        msg = ("Residuals depart from a normal distribution: look at the normal probability "
-               "plot for outliers or skew, and consider a transformation of the response.")
-    centred = e - e.mean()
+                              f"not applicable: with {ctx.ls.df_resid} residual degree(s) of "
+                              "freedom the residuals' shape is fixed by the design, whatever the "
+                              "errors' distribution")
+    usable = ctx.usable
+    if int(usable.sum()) < MIN_RUNS:
+        return not_applicable("normality", QUESTION, METHOD, chart,
+                              f"not applicable: {int(usable.sum())} usable residuals are fewer "
+                              f"than the {MIN_RUNS} the Anderson-Darling test needs")
+    scale = 1.0 / np.sqrt(1.0 - ctx.resid.leverage[usable])
+
+    def statistic(e: np.ndarray) -> np.ndarray:
+        return anderson_darling_rows(e[:, usable] * scale)
+
+    r = ctx.resid.studentized[usable]
+    a2, a_star, p_textbook = anderson_darling(r)
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook)
+    centred = r - r.mean()
     m2 = float(np.mean(centred**2))
-    skew = float(np.mean(centred**3)) / m2**1.5 if m2 > 0 else None
-    return CheckResult("normality", QUESTION, METHOD, a2, p, verdict, (), msg, chart,
-                       {"a_star": a_star, "n": int(len(e)), "skewness": skew})
+    details.update(a_star=a_star, n=int(usable.sum()),
+                   skewness=float(np.mean(centred**3)) / m2**1.5 if m2 > 0 else None)
+    return judged("normality", QUESTION, METHOD, chart, ctx, stat, p,
+                  "Residuals are consistent with a normal distribution.",
+                  "Residuals depart from a normal distribution: look at the normal probability "
+                  "plot for outliers or skew, and consider a transformation of the response.",
+                  null_p=null_p, details=details)

@@ -12,9 +12,11 @@ from scipy import special
 
 from ..anova import pure_error
 from .common import (
+    AddedColumnsTest,
     CheckContext,
     CheckResult,
     added_columns_test,
+    judged,
     level_indicators,
     no_residual_information,
     not_applicable,
@@ -35,16 +37,15 @@ CURV_Q = "Do centre points sit off the plane?"
 CURV_M = "centre-point mean vs factorial mean: F for adding a centre-point indicator"
 
 
-def _f_result(cid: str, q: str, m: str, chart: str, ctx: CheckContext, test, good: str, bad: str,
-              details: dict | None = None, na_reason: str = "") -> CheckResult:
+def _f_result(cid: str, q: str, m: str, chart: str, ctx: CheckContext,
+              test: AddedColumnsTest | None, good: str, bad: str, details: dict | None = None,
+              na_reason: str = "") -> CheckResult:
     if test is None:
         return not_applicable(cid, q, m, chart, na_reason)
-    f, df1, df2, p = test
-    verdict = ctx.thresholds.verdict(p)
-    info = {"df": [df1, df2]}
+    info = {"df": [test.df1, test.df2], "p_method": "exact F distribution"}
     info.update(details or {})
-    return CheckResult(cid, q, m, float(f), float(p), verdict, (), good if verdict == "pass" else bad,
-                       chart, info)
+    return judged(cid, q, m, chart, ctx, test.f, test.p_value, good, bad, null_p=test.null_p,
+                  details=info)
 
 
 def check_fitted(ctx: CheckContext) -> CheckResult:
@@ -73,6 +74,12 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
         return not_applicable(cid, FACTOR_Q, FACTOR_M, chart, reason)
     x = ctx.coded[:, j]
     n_levels = len(np.unique(np.round(x, 9)))
+    if _is_the_curvature_test(ctx, x):
+        return not_applicable(cid, FACTOR_Q, FACTOR_M, chart,
+                              f"not applicable: '{name}' is at two levels plus the centre points, "
+                              "so a curve along it is the centre-point contrast that the "
+                              "curvature check already tests; which factor's square causes it "
+                              "cannot be separated without axial runs")
     z = level_indicators(x)
     if z is None:
         xs = x / max(float(np.abs(x).max()), 1e-300)
@@ -87,6 +94,58 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
                      f"Residuals change systematically across '{name}': the model misses a curve "
                      f"along it; try adding {name}^2 (a square term needs three or more levels).",
                      {"levels": n_levels}, na_reason=na)
+
+
+def _is_the_curvature_test(ctx: CheckContext, x: np.ndarray) -> bool:
+    """True when the factor's level indicators add only the centre-point indicator.
+
+    On a two-level design with centre points (and no other runs off the cube), every factor's
+    middle level is exactly the set of centre runs: its lack-of-fit F is the curvature F.
+    """
+    d = ctx.design
+    if d.kind not in ("two_level_full_factorial", "two_level_fractional_factorial"):
+        return False
+    if d.n_centre == 0:
+        return False
+    centre = ~(np.abs(ctx.coded) > 1e-4).any(axis=1)
+    middle = np.abs(np.round(x, 9)) < 1e-4
+    return bool(np.array_equal(middle, centre))
+
+
+def confounded_covariates(ctx: CheckContext) -> dict[str, list[str]]:
+    """Covariates whose columns, beyond the model, span the same space as another's."""
+    spans = {}
+    for name, (kind, values) in ctx.covariates.items():
+        z = _covariate_columns(kind, values)
+        if z is None:
+            continue
+        test = added_columns_test(ctx, z)
+        if test is not None:
+            spans[name] = test.basis @ test.basis.T
+    out: dict[str, list[str]] = {}
+    names = list(spans)
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            if np.allclose(spans[a], spans[b], atol=1e-8):
+                out.setdefault(a, []).append(b)
+                out.setdefault(b, []).append(a)
+    return out
+
+
+def _covariate_columns(kind: str, values: np.ndarray) -> np.ndarray | None:
+    """The columns a covariate adds: centred values, or one indicator per category."""
+    if kind == "numeric":
+        v = np.asarray(values, dtype=float)
+        if not np.all(np.isfinite(v)) or np.ptp(v) == 0:
+            return None
+        return (v - v.mean()) / np.ptp(v)
+    v = np.asarray(values, dtype=object)
+    if any(x is None or x == "" for x in v):
+        return None
+    labels, codes = np.unique(v.astype(str), return_inverse=True)
+    if len(labels) < 2:
+        return None
+    return (codes.ravel()[:, None] == np.arange(len(labels))[None, :]).astype(float)
 
 
 def check_covariate(ctx: CheckContext, name: str) -> CheckResult:
@@ -122,12 +181,23 @@ def check_covariate(ctx: CheckContext, name: str) -> CheckResult:
         z = (codes[:, None] == np.arange(len(labels))[None, :]).astype(float)
         details["mean_residual_by_category"] = {
             str(lab): float(e[codes == i].mean()) for i, lab in enumerate(labels)}
+    partners = confounded_covariates(ctx).get(name)
+    if partners:
+        details["confounded_with"] = partners
     return _f_result(cid, COV_Q, method, chart, ctx, added_columns_test(ctx, z),
-                     f"Residuals do not follow '{name}'.",
+                     f"Residuals do not follow '{name}'." + _confounded_note(name, partners),
                      f"Residuals follow '{name}', which the model leaves out: it affects the "
-                     "response; consider blocking on it or adding it as a factor in a new study.",
+                     "response; consider blocking on it or adding it as a factor in a new study."
+                     + _confounded_note(name, partners),
                      details,
                      na_reason=f"not applicable: '{name}' is already explained by the model's columns")
+
+
+def _confounded_note(name: str, partners: list[str] | None) -> str:
+    if not partners:
+        return ""
+    return (f" '{name}' is confounded with {', '.join(repr(p) for p in partners)} in these runs: "
+            "the data cannot tell them apart, so this result is theirs jointly.")
 
 
 def check_lack_of_fit(ctx: CheckContext) -> CheckResult:
@@ -144,21 +214,30 @@ def check_lack_of_fit(ctx: CheckContext) -> CheckResult:
         return not_applicable(cid, LOF_Q, LOF_M, chart,
                               "not applicable: the model has a term for every distinct setting")
     lof_ss = max(ctx.ls.sse - pe_ss, 0.0)
-    details = {"df": [lof_df, pe_df], "lack_of_fit_ss": lof_ss, "pure_error_ss": pe_ss}
+    details = {"df": [lof_df, pe_df], "lack_of_fit_ss": lof_ss, "pure_error_ss": pe_ss,
+               "p_method": "exact F distribution"}
     if pe_ss <= 0:
-        f, p = (float("inf"), 0.0) if lof_ss > 0 else (float("nan"), float("nan"))
-    else:
-        f = (lof_ss / lof_df) / (pe_ss / pe_df)
-        p = float(special.fdtrc(lof_df, pe_df, f))
-    if not np.isfinite(p):
         return not_applicable(cid, LOF_Q, LOF_M, chart,
-                              "not applicable: replicated runs agree exactly and the model fits them exactly")
-    verdict = ctx.thresholds.verdict(p)
-    msg = ("The model's misfit is no larger than the run-to-run scatter of replicated points."
-           if verdict == "pass" else
-           "The model misses the replicated points by more than their own scatter: the model "
-           "form is wrong; try adding interaction or square terms, or a transformation.")
-    return CheckResult(cid, LOF_Q, LOF_M, float(f), p, verdict, (), msg, chart, details)
+                              "not applicable: replicated runs agree exactly, so there is no "
+                              "pure error to compare the misfit with", details)
+    f = (lof_ss / lof_df) / (pe_ss / pe_df)
+    p = float(special.fdtrc(lof_df, pe_df, f))
+    null_p = None
+    if ctx.null is not None:
+        e = ctx.null.residuals  # e = y - fitted: replicate groups' scatter is the same in e
+        labels = np.unique(ctx.groups, return_inverse=True)[1].ravel()
+        indicator = (labels[:, None] == np.arange(labels.max() + 1)[None, :]).astype(float)
+        counts = indicator.sum(axis=0)
+        sums = e @ indicator
+        pe = np.sum(e**2, axis=1) - np.sum(sums**2 / counts, axis=1)
+        lof = np.sum(e**2, axis=1) - pe
+        null_p = special.fdtrc(lof_df, pe_df, (lof / lof_df) / (pe / pe_df))
+    return judged(cid, LOF_Q, LOF_M, chart, ctx, f, p,
+                  "The model's misfit is no larger than the run-to-run scatter of replicated "
+                  "points.",
+                  "The model misses the replicated points by more than their own scatter: the "
+                  "model form is wrong; try adding interaction or square terms, or a "
+                  "transformation.", null_p=null_p, details=details)
 
 
 def check_curvature(ctx: CheckContext) -> CheckResult:
@@ -179,14 +258,13 @@ def check_curvature(ctx: CheckContext) -> CheckResult:
     details = {"centre_mean": float(y[centre].mean()), "factorial_mean": float(y[~centre].mean()),
                "n_centre": int(centre.sum()), "n_factorial": int((~centre).sum())}
     test = added_columns_test(ctx, centre.astype(float))
-    if test is not None and np.isfinite(test[0]):
-        f, df1, df2, _ = test
-        # the centre-point contrast's SS, recovered from F = (SS/df1) / ((SSE - SS)/df2)
-        details["sum_sq"] = f * df1 * ctx.ls.sse / (df2 + f * df1)
+    if test is not None and np.isfinite(test.f):
+        details["sum_sq"] = float(np.sum((ctx.ls.residuals @ test.basis) ** 2))
     return _f_result(cid, CURV_Q, CURV_M, chart, ctx, test,
                      "Centre points agree with the plane through the factorial points.",
                      "Centre points sit off the plane through the factorial points: the response "
-                     "curves inside the region. Add axial runs so square terms can be estimated.",
+                     "curves inside the region. Which factor's square causes it cannot be told "
+                     "from centre points alone: add axial runs so square terms can be estimated.",
                      details,
                      na_reason="not applicable: the model already contains a square term, which "
                                "absorbs the centre-point contrast")

@@ -5,14 +5,29 @@ from __future__ import annotations
 import numpy as np
 from scipy import special, stats
 
+from ..calibration import null_p_values
 from ..durbin_watson import durbin_watson_test
-from .common import CheckContext, CheckResult, no_residual_information, not_applicable
+from .common import (
+    CheckContext,
+    CheckResult,
+    detection,
+    judged,
+    no_residual_information,
+    not_applicable,
+    run_positions,
+    simulated,
+)
 
 AUTO_QUESTION = "Does each residual predict the next?"
 AUTO_METHOD = ("Durbin-Watson d in run order with its exact p-value for the model's own X "
                "(Imhof), one-sided for positive autocorrelation; lag-1 autocorrelation; Ljung-Box")
 RAND_QUESTION = "Any runs of highs or lows, drift over time?"
-RAND_METHOD = "Wald-Wolfowitz runs test about the median, in run order"
+RAND_METHOD = ("Wald-Wolfowitz runs test about the median of the studentized residuals, in run "
+               "order; residuals equal to the median are set aside (a common convention); p "
+               "from this design's own null distribution")
+# A residual within this fraction of the largest |residual| of the median counts as equal to it:
+# identical replicates give residuals that differ only by rounding.
+TIE_TOLERANCE = 1e-9
 NO_ORDER = "not applicable: run order was not recorded"
 EXACT_RUNS_LIMIT = 200
 
@@ -113,17 +128,51 @@ def check_autocorrelation(ctx: CheckContext) -> CheckResult:
     if n > lags + 1:
         q, q_p = ljung_box(e, lags)
         details.update(ljung_box_q=q, ljung_box_lags=lags, ljung_box_p=q_p)
-    verdict = ctx.thresholds.verdict(dw.p_positive)
-    if verdict == "pass":
-        msg = "No sign that consecutive runs carry over into each other."
-    else:
-        msg = ("Consecutive residuals move together (positive autocorrelation): something "
-               "carried over between runs in time. Check for drift, warm-up or a missing "
-               "time-related variable before trusting the p-values of the fit.")
+    details["p_method"] = dw.method
+    null_p = None
+    if ctx.null is not None:
+        # each draw's p for the min-P step: its rank in the draws' own d (small d = worse)
+        ez = ctx.null.residuals[:, order]
+        d = np.sum(np.diff(ez, axis=1) ** 2, axis=1) / np.sum(ez**2, axis=1)
+        null_p = null_p_values(-d)
+
+        def minus_d(e: np.ndarray) -> np.ndarray:
+            e = e[:, order]
+            return -np.sum(np.diff(e, axis=1) ** 2, axis=1) / np.sum(e**2, axis=1)
+
+        details.update(detection(ctx, -d, minus_d, "ar1", position=run_positions(ctx)))
+    good = "No sign that consecutive runs carry over into each other."
+    bad = ("Consecutive residuals move together (positive autocorrelation): something "
+           "carried over between runs in time. Check for drift, warm-up or a missing "
+           "time-related variable before trusting the p-values of the fit.")
     if dw.p_two_sided < ctx.thresholds.review and dw.p_negative < dw.p_positive:
-        msg += " Residuals alternate in sign more than chance allows (see the two-sided p)."
-    return CheckResult(cid, AUTO_QUESTION, AUTO_METHOD, dw.statistic, dw.p_positive, verdict,
-                       (), msg, chart, details)
+        good += " Residuals alternate in sign more than chance allows (see the two-sided p)."
+    return judged(cid, AUTO_QUESTION, AUTO_METHOD, chart, ctx, dw.statistic, dw.p_positive,
+                  good, bad, null_p=null_p, details=details)
+
+
+def runs_about_median(r: np.ndarray) -> np.ndarray:
+    """|R − μ| / σ for each row of ``r`` (in run order), ties with the median set aside.
+
+    R counts runs of residuals above and below the row's median; μ and σ are the Wald &
+    Wolfowitz (1940) moments for the numbers above (n₁) and below (n₂).
+    """
+    r = np.atleast_2d(np.asarray(r, dtype=float))
+    med = np.median(r, axis=1, keepdims=True)
+    tol = TIE_TOLERANCE * np.max(np.abs(r), axis=1, keepdims=True)
+    sign = np.where(r > med + tol, 1, np.where(r < med - tol, -1, 0))
+    # carry the last non-tied sign forward so a tie neither starts nor breaks a run
+    idx = np.where(sign != 0, np.arange(r.shape[1]), 0)
+    np.maximum.accumulate(idx, axis=1, out=idx)
+    carried = np.take_along_axis(sign, idx, axis=1)
+    changes = np.sum((carried[:, 1:] != carried[:, :-1]) & (carried[:, :-1] != 0), axis=1)
+    n1 = np.sum(sign > 0, axis=1).astype(float)
+    n2 = np.sum(sign < 0, axis=1).astype(float)
+    n = n1 + n2
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mu = 2.0 * n1 * n2 / n + 1.0
+        var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n**2 * (n - 1.0))
+        return np.where(var > 0, np.abs(1.0 + changes - mu) / np.sqrt(var), 0.0)
 
 
 def check_randomness(ctx: CheckContext) -> CheckResult:
@@ -134,18 +183,29 @@ def check_randomness(ctx: CheckContext) -> CheckResult:
     if reason:
         return not_applicable(cid, RAND_QUESTION, RAND_METHOD, chart, reason)
     order = _in_run_order(ctx)
-    result = runs_test(ctx.ls.residuals[order])
+    usable = ctx.usable[order]
+    scale = 1.0 / np.sqrt(1.0 - ctx.resid.leverage[order][usable])
+    r = ctx.resid.studentized[order][usable]
+    med = float(np.median(r))
+    untied = np.abs(r - med) > TIE_TOLERANCE * float(np.max(np.abs(r)))
+    result = runs_test(r[untied], cutoff=med)
     if result["p_value"] is None:
         return not_applicable(cid, RAND_QUESTION, RAND_METHOD, chart,
                               "not applicable: every residual lies on one side of the median")
-    p = result["p_value"]
-    verdict = ctx.thresholds.verdict(p)
-    if verdict == "pass":
-        msg = "Residuals cross their median about as often as random order would."
-    elif result["n_runs"] < result["expected"]:
-        msg = ("Residuals stay above or below their median for long stretches of run order: "
+    result["ties_set_aside"] = int((~untied).sum())
+
+    def statistic(e: np.ndarray) -> np.ndarray:
+        return runs_about_median(e[:, order][:, usable] * scale)
+
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=result["p_value"],
+                                         defect="drift", position=run_positions(ctx))
+    result.update(details)
+    if result["n_runs"] < result["expected"]:
+        bad = ("Residuals stay above or below their median for long stretches of run order: "
                "look for drift or a shift over time (tool wear, a new lot, ambient change).")
     else:
-        msg = "Residuals alternate about their median more often than chance; check how runs were sequenced."
-    return CheckResult(cid, RAND_QUESTION, RAND_METHOD, float(result["n_runs"]), p, verdict, (),
-                       msg, chart, result)
+        bad = ("Residuals alternate about their median more often than chance; check how runs "
+               "were sequenced.")
+    return judged(cid, RAND_QUESTION, RAND_METHOD, chart, ctx, float(result["n_runs"]), p,
+                  "Residuals cross their median about as often as random order would.", bad,
+                  null_p=null_p, details=result)

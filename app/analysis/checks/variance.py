@@ -5,28 +5,52 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
-from .common import CheckContext, CheckResult, level_groups, no_residual_information, not_applicable
+from .common import (
+    CheckContext,
+    CheckResult,
+    judged,
+    level_groups,
+    no_residual_information,
+    not_applicable,
+    simulated,
+)
 
 FITTED_QUESTION = "Megaphone vs fitted values?"
-FITTED_METHOD = "Breusch-Pagan (Koenker's studentized form) of squared residuals on fitted values"
+FITTED_METHOD = ("Breusch-Pagan (Koenker's studentized form) of squared residuals on centred "
+                 "fitted values; p from this design's own null distribution")
 FACTOR_QUESTION = "Same spread at every level of this factor?"
-FACTOR_METHOD = "Brown-Forsythe (median-centred Levene) across levels; Bartlett beside it"
+FACTOR_METHOD = ("Brown-Forsythe (median-centred Levene) on studentized residuals across levels "
+                 "with at least 3 runs; p from this design's own null distribution; Bartlett "
+                 "beside it")
+# Brown-Forsythe needs a median and a spread about it in each level: 2 runs give |x - median|
+# equal in pairs, with no information about spread.
+MIN_RUNS_PER_LEVEL = 3
 
 
 def breusch_pagan(e: np.ndarray, z: np.ndarray) -> tuple[float, float, int]:
     """LM = n R² of e² regressed on [1, z] (Koenker 1981); chi-square with columns-of-z df.
 
-    Matches statsmodels het_breuschpagan(resid, exog) with its default robust=True.
+    Each column of z is centred and scaled before the regression: R² does not change, but the
+    rank (the df) is then judged on the variation, not on an offset (fitted values near 1e9
+    would otherwise look constant next to the intercept). A column whose spread is rounding
+    next to its size carries no information and is left out; with none left there is no test
+    (LM 0, p NaN). Matches statsmodels het_breuschpagan(resid, exog) with its default
+    robust=True; verified for y, 1e9 + y and 1e-9 y in tests/analysis/test_breusch_pagan_offsets.py.
     """
     z = np.atleast_2d(np.asarray(z, dtype=float).T).T
     n = len(e)
     u = e**2
-    x = np.column_stack([np.ones(n), z])
+    centred = z - z.mean(axis=0)
+    spread = np.sqrt(np.mean(centred**2, axis=0))
+    varies = spread > 1e-12 * np.abs(z).max(axis=0)
+    x = np.column_stack([np.ones(n), centred[:, varies] / spread[varies]])
     coef, *_ = np.linalg.lstsq(x, u, rcond=None)
     fitted = x @ coef
     sst = float(np.sum((u - u.mean()) ** 2))
     r2 = float(np.sum((fitted - u.mean()) ** 2)) / sst if sst > 0 else 0.0
     df = int(np.linalg.matrix_rank(x) - 1)
+    if df == 0:
+        return 0.0, float("nan"), 0  # nothing varies: no test (a NaN p fails closed)
     lm = n * r2
     return lm, float(special.chdtrc(df, lm)), df
 
@@ -75,6 +99,17 @@ def bartlett(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, int]
     return t, float(special.chdtrc(k - 1, t)), int(k - 1)
 
 
+def breusch_pagan_rows(e: np.ndarray, fitted: np.ndarray) -> np.ndarray:
+    """Koenker's LM = n R² of e² on [1, centred fitted] for each row of ``e``, vectorised."""
+    f = fitted - fitted.mean()
+    f = f / np.sqrt(f @ f)
+    u = e**2
+    u = u - u.mean(axis=1, keepdims=True)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        r2 = (u @ f) ** 2 / np.sum(u**2, axis=1)
+    return e.shape[1] * np.nan_to_num(r2)
+
+
 def check_fitted(ctx: CheckContext) -> CheckResult:
     cid, chart = "constant_variance_fitted", "residuals_vs_fitted"
     reason = no_residual_information(ctx)
@@ -84,13 +119,53 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
     if np.ptp(fitted) <= 1e-12 * max(1.0, float(np.abs(fitted).max())):
         return not_applicable(cid, FITTED_QUESTION, FITTED_METHOD, chart,
                               "not applicable: every fitted value is the same")
-    lm, p, df = breusch_pagan(ctx.ls.residuals, fitted)
-    verdict = ctx.thresholds.verdict(p)
-    msg = ("Residual spread does not change with the fitted value." if verdict == "pass" else
-           "Residual spread grows or shrinks with the fitted value (a megaphone): try a log or "
-           "square-root transformation of the response; see the Box-Cox suggestion.")
-    return CheckResult(cid, FITTED_QUESTION, FITTED_METHOD, lm, p, verdict, (), msg, chart,
-                       {"df": df})
+    usable = ctx.usable
+    lm, p_textbook, df = breusch_pagan(ctx.ls.residuals[usable], fitted[usable])
+
+    def statistic(e: np.ndarray) -> np.ndarray:
+        return breusch_pagan_rows(e[:, usable], fitted[usable])
+
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook,
+                                         defect="megaphone", fitted=fitted)
+    details["df"] = df
+    return judged(cid, FITTED_QUESTION, FITTED_METHOD, chart, ctx, lm, p,
+                  "Residual spread does not change with the fitted value.",
+                  "Residual spread grows or shrinks with the fitted value (a megaphone): try a "
+                  "log or square-root transformation of the response; see the Box-Cox "
+                  "suggestion.", null_p=null_p, details=details)
+
+
+def brown_forsythe_rows(r: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """Brown–Forsythe W for each row of ``r`` with groups ``labels`` (0..k-1), vectorised."""
+    k = int(labels.max()) + 1
+    d = np.empty_like(r)
+    for g in range(k):
+        cols = labels == g
+        d[:, cols] = np.abs(r[:, cols] - np.median(r[:, cols], axis=1, keepdims=True))
+    indicator = (labels[:, None] == np.arange(k)[None, :]).astype(float)
+    counts = indicator.sum(axis=0)
+    means = (d @ indicator) / counts
+    grand = d.mean(axis=1, keepdims=True)
+    between = np.sum(counts * (means - grand) ** 2, axis=1)
+    within = np.sum((d - means[:, labels]) ** 2, axis=1)
+    n = r.shape[1]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(within > 0, (between / (k - 1)) / (within / (n - k)), np.inf)
+
+
+def spread_groups(x: np.ndarray, usable: np.ndarray) -> np.ndarray:
+    """Levels of a factor for comparing spreads.
+
+    The distinct levels when each has at least MIN_RUNS_PER_LEVEL usable runs; otherwise (the
+    two axial runs of a central composite design, say) the runs below, at and above the centre,
+    so that the extreme settings, where a change of spread shows most, still count.
+    """
+    labels = level_groups(x)
+    counts = np.bincount(labels[usable], minlength=labels.max() + 1)
+    if np.all(counts[np.unique(labels)] >= MIN_RUNS_PER_LEVEL) or len(np.unique(labels)) < 3:
+        return labels
+    side = np.sign(np.round(x, 9)).astype(int) + 1
+    return np.unique(side, return_inverse=True)[1].ravel()
 
 
 def check_factor(ctx: CheckContext, j: int) -> CheckResult:
@@ -99,29 +174,40 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
     reason = no_residual_information(ctx)
     if reason:
         return not_applicable(cid, FACTOR_QUESTION, FACTOR_METHOD, chart, reason)
-    labels = level_groups(ctx.coded[:, j])
-    counts = np.bincount(labels)
-    usable = counts[labels] >= 2
-    kept_levels = int(np.sum(counts >= 2))
+    usable_runs = ctx.usable
+    labels = spread_groups(ctx.coded[:, j], usable_runs)
+    counts = np.bincount(labels[usable_runs], minlength=labels.max() + 1)
+    usable = usable_runs & (counts[labels] >= MIN_RUNS_PER_LEVEL)
+    kept_levels = int(np.sum(counts >= MIN_RUNS_PER_LEVEL))
     if kept_levels < 2:
         return not_applicable(cid, FACTOR_QUESTION, FACTOR_METHOD, chart,
-                              f"not applicable: fewer than two levels of '{name}' have two or more runs")
-    e = ctx.ls.residuals[usable]
-    lab = labels[usable]
-    w, p, df1, df2 = brown_forsythe(e, lab)
-    if not np.isfinite(p):
+                              f"not applicable: fewer than two levels of '{name}' have "
+                              f"{MIN_RUNS_PER_LEVEL} or more runs, so spreads cannot be compared")
+    lab = np.unique(labels[usable], return_inverse=True)[1].ravel()
+    scale = 1.0 / np.sqrt(1.0 - ctx.resid.leverage[usable])
+    r = ctx.resid.studentized[usable]
+    w, p_textbook, df1, df2 = brown_forsythe(r, lab)
+    if not np.isfinite(w):
         return not_applicable(cid, FACTOR_QUESTION, FACTOR_METHOD, chart,
-                              f"not applicable: residuals show no spread within the levels of '{name}'")
-    t, t_p, t_df = bartlett(e, lab)
-    verdict = ctx.thresholds.verdict(p)
-    msg = (f"Residual spread is similar at every level of '{name}'." if verdict == "pass" else
-           f"Residual spread differs between levels of '{name}': a transformation of the "
-           "response may help, or the process is less repeatable at some settings.")
+                              f"not applicable: residuals show no spread within the levels of "
+                              f"'{name}'")
+
+    def statistic(e: np.ndarray) -> np.ndarray:
+        return brown_forsythe_rows(e[:, usable] * scale, lab)
+
+    high = ctx.coded[:, j] > np.median(ctx.coded[:, j]) + 1e-9
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook,
+                                         defect="spread", high=high)
+    t, t_p, t_df = bartlett(r, lab)
     sds = {}
     for g in np.unique(lab):
         vals = ctx.coded[usable, j][lab == g]
-        sds[f"{float(np.median(vals)):.6g}"] = float(np.std(e[lab == g], ddof=1))
-    details = {"df": [df1, df2], "bartlett": t, "bartlett_p": t_p, "bartlett_df": t_df,
-               "levels_used": kept_levels, "sd_by_level_coded": sds,
-               "runs_left_out": int((~usable).sum())}
-    return CheckResult(cid, FACTOR_QUESTION, FACTOR_METHOD, w, p, verdict, (), msg, chart, details)
+        sds[f"{float(np.median(vals)):.6g}"] = float(np.std(r[lab == g], ddof=1))
+    details.update({"df": [df1, df2], "bartlett": t, "bartlett_p": t_p, "bartlett_df": t_df,
+                    "levels_used": kept_levels, "sd_by_level_studentized": sds,
+                    "runs_left_out": int((~usable).sum())})
+    return judged(cid, FACTOR_QUESTION, FACTOR_METHOD, chart, ctx, w, p,
+                  f"Residual spread is similar at every level of '{name}'.",
+                  f"Residual spread differs between levels of '{name}': a transformation of the "
+                  "response may help, or the process is less repeatable at some settings.",
+                  null_p=null_p, details=details)
