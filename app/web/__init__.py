@@ -6,6 +6,7 @@ from flask import Flask, g, jsonify, render_template, request
 from werkzeug.exceptions import HTTPException
 
 from app.web.access import csrf_token, enforce_access, is_api
+from app.web.common import IdConverter
 from app.workflow import WorkflowError
 
 # Vega runs with its expression interpreter (vega-interpreter), so no 'unsafe-eval' is needed.
@@ -34,10 +35,14 @@ def _error(exc: Exception):
                 body["field"] = exc.field
             return jsonify(body), status
         return render_template("error.html", status=status, message=message), status
+    headers: list[tuple[str, str]] = []
     if isinstance(exc, HTTPException):
         if exc.response is not None:
             return exc.response
         status, message = exc.code or 500, exc.description
+        # Keep what the exception says besides its HTML body: Allow on a 405 (RFC 9110 requires
+        # it), WWW-Authenticate on a 401, Content-Range on a 416.
+        headers = [(k, v) for k, v in exc.get_headers() if k.lower() != "content-type"]
     else:
         status, message = 500, "Something went wrong on the server. It has been logged."
         from flask import current_app
@@ -46,8 +51,8 @@ def _error(exc: Exception):
     if status >= 500:
         message = "Something went wrong on the server. It has been logged."
     if is_api():
-        return jsonify({"error": message, "status": status}), status
-    return render_template("error.html", status=status, message=message), status
+        return jsonify({"error": message, "status": status}), status, headers
+    return render_template("error.html", status=status, message=message), status, headers
 
 
 def register(app: Flask) -> None:
@@ -66,6 +71,8 @@ def register(app: Flask) -> None:
         studies,
     )
 
+    # Before any blueprint adds its rules: every <int:...> id is at most ID_MAX (2**31 - 1).
+    app.url_map.converters["int"] = IdConverter
     app.before_request(enforce_access)
     app.after_request(_security_headers)
     app.register_error_handler(WorkflowError, _error)

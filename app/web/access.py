@@ -54,10 +54,17 @@ def is_api() -> bool:
     return request.path.startswith("/api/")
 
 
+# RFC 9110 requires a 401 to name the way to authenticate; the API takes a bearer token.
+API_CHALLENGE = 'Bearer realm="Plumbline API"'
+NOT_SIGNED_IN = "Sign in or send a valid API token (Authorization: Bearer)."
+
+
 def _deny(status: int, message: str):
     if is_api():
         response = jsonify({"error": message, "status": status})
         response.status_code = status
+        if status == 401:
+            response.headers["WWW-Authenticate"] = API_CHALLENGE
         abort(response)
     abort(status, description=message)
 
@@ -97,7 +104,11 @@ def _load_user() -> None:
 
 
 def enforce_access():
-    """before_request: identify the user, check the view's declared roles, check CSRF."""
+    """before_request: identify the user, check the view's declared roles, check CSRF.
+
+    An API route answers 401 to a request without valid credentials before anything else about
+    the request (CSRF token, body) is looked at; pages check the CSRF token first.
+    """
     roles = allowed_roles(request.endpoint)
     if request.endpoint is None:
         return None  # routing will answer 404/405
@@ -107,6 +118,8 @@ def enforce_access():
     if roles is None:
         # A route without a declaration is refused for everyone (and fails the route tests).
         _deny(403, "This page has no access rule and is refused.")
+    if is_api() and PUBLIC not in roles and g.user is None:
+        _deny(401, NOT_SIGNED_IN)
     if request.method in WRITE_METHODS and not g.via_token:
         sent = request.headers.get("X-CSRF-Token") or request.form.get("csrf_token")
         expected = session.get("csrf")
@@ -115,14 +128,15 @@ def enforce_access():
                        "try again.")
     if PUBLIC in roles:
         return None
-    if g.user is not None and g.user.must_change_password and request.endpoint not in PASSWORD_CHANGE_ENDPOINTS:
+    if (g.user is not None and g.user.must_change_password
+            and request.endpoint not in PASSWORD_CHANGE_ENDPOINTS):
         if is_api() or g.via_token:
             _deny(403, "Change your one-time password on your account page first.")
         flash("Choose a new password to replace the one-time password you were given.")
         return redirect(url_for("account.page"))
     if g.user is None:
         if is_api() or g.via_token:
-            _deny(401, "Sign in or send a valid API token (Authorization: Bearer).")
+            _deny(401, NOT_SIGNED_IN)
         return redirect(url_for("auth.login", next=request.full_path.rstrip("?")))
     if SIGNED_IN in roles or g.user.has_role(*roles):
         return None

@@ -40,6 +40,8 @@ schema("StudyCreate", {
         "review_below": {"type": "number", "description": "p below this: review (0.05)"},
         "fail_below": {"type": "number", "description": "p below this: fail (0.01)"},
     },
+    "examples": [{"title": "Cure oven hardness", "purpose": "Settings for the new lacquer",
+                  "review_below": 0.05, "fail_below": 0.01}],
 })
 STUDY_PROPERTIES = {
     "id": {"type": "integer"}, "title": {"type": "string"}, "purpose": {"type": "string"},
@@ -126,6 +128,8 @@ schema("FitCreate", {
             "additionalProperties": {"type": "string", "minLength": 1},
         },
     },
+    "examples": [{"response": "Hardness", "model": "quadratic",
+                  "exclusions": [{"row": 3, "reason": "panel scratched before measurement"}]}],
 })
 schema("Fit", {"allOf": [ref("FitSummary"), {
     "type": "object",

@@ -22,6 +22,7 @@ schema("FitSubmit", {
     "type": "object", "additionalProperties": False,
     "properties": {"row_version": {"type": "integer", "minimum": 1,
                                    "description": "The version you looked at; 409 if it moved"}},
+    "examples": [{"row_version": 1}],
 })
 schema("FitState", {
     "type": "object", "required": ["id", "state", "row_version"],

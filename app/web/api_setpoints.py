@@ -16,7 +16,7 @@ from app.analysis.optimize import CAUTION
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, tx
-from app.web.openapi import document, json_body, ref, schema
+from app.web.openapi import ID, Media, document, id_parameter, json_body, ref, schema
 from app.workflow import WorkflowError, fits, setpoint_export, setpoints
 
 bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
@@ -41,7 +41,7 @@ schema("SetpointGoal", {
 schema("SetpointCreate", {
     "type": "object", "additionalProperties": False, "required": ["fits", "goals"],
     "properties": {
-        "fits": {"type": "array", "minItems": 1, "items": {"type": "integer"},
+        "fits": {"type": "array", "minItems": 1, "items": ID,
                  "description": "Approved fit ids of one study, one per response"},
         "goals": {"type": "object", "additionalProperties": ref("SetpointGoal"),
                   "description": "Response name to its goal"},
@@ -51,6 +51,7 @@ schema("SetpointCreate", {
         "fixed": {"type": "object", "additionalProperties": {"type": "number"},
                   "description": "Factor to a fixed actual value"},
     },
+    "examples": [{"fits": [1], "goals": {"Hardness": {"goal": "maximize"}}}],
 })
 schema("SetpointRelease", {
     "type": "object", "additionalProperties": False, "required": ["meaning", "password"],
@@ -97,7 +98,8 @@ def _sheet(proposal_id: int) -> dict:
 @document("POST", "/setpoints", "Propose setpoints from approved fits",
           request_schema="SetpointCreate", tags=("Setpoints",),
           responses={201: ("The stored draft proposal", ref("SetpointSheet")),
-                      409: (GUARDS, ref("Error"))})
+                     404: ("A fit named in `fits` does not exist", ref("Error")),
+                     409: (GUARDS, ref("Error"))})
 def create():
     """Searches the design region (cube, or sphere of a rotatable design) for the settings
     with the highest composite desirability; bounds and fixed values are in actual units."""
@@ -154,12 +156,13 @@ def release(proposal_id: int):
 @allow(SIGNED_IN)
 @document("GET", "/setpoints/{proposal_id}/export", "Export the setpoint sheet",
           tags=("Setpoints",),
-          parameters=({"name": "proposal_id", "in": "path", "required": True,
-                       "schema": {"type": "integer"}},
+          parameters=(id_parameter("proposal_id"),
                       {"name": "format", "in": "query", "required": False,
                        "schema": {"type": "string", "enum": ["json", "csv"]}}),
           responses={200: ("The sheet as an attachment (JSON, or CSV with format=csv)",
-                           ref("SetpointSheet"))})
+                           Media({"application/json": ref("SetpointSheet"),
+                                  "text/csv": {"type": "string"}})),
+                     400: ("`format` is neither json nor csv", ref("Error"))})
 def export(proposal_id: int):
     """Carries fit ids, snapshot hashes, signatures, the chain head and the caution text."""
     kind = request.args.get("format", "json")

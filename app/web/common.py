@@ -7,8 +7,20 @@ from contextlib import contextmanager
 
 from flask import Response, g
 from sqlalchemy.orm import Session
+from werkzeug.routing import IntegerConverter
 
 from app.store.db import get_session
+from app.workflow import ID_MAX, NotFound, WorkflowError, in_id_range
+
+
+class IdConverter(IntegerConverter):
+    """``<int:...>`` in every route: unsigned and at most :data:`ID_MAX` (the largest id the
+    database's integer columns hold), so a larger number in a URL matches no route (404)
+    instead of failing in the database."""
+
+    def __init__(self, map, fixed_digits: int = 0, min: int | None = None,
+                 max: int | None = ID_MAX, signed: bool = False) -> None:
+        super().__init__(map, fixed_digits, min, max, signed)
 
 
 @contextmanager
@@ -38,13 +50,36 @@ def attachment(body: bytes | str, filename: str, mimetype: str) -> Response:
     return response
 
 
+def parse_id(raw: str, what: str, field: str) -> int:
+    """An id typed into a query or form field, e.g. ``parse_id("12", "fit", "a")``.
+
+    Not a whole number: 400 naming ``field``. A whole number outside 1 to :data:`ID_MAX`: 404,
+    as for a missing row, because no stored row has that id (and the database would fail on a
+    number its integer column cannot hold).
+    """
+    text = (raw or "").strip()
+    shown = text if len(text) <= 24 else text[:20] + "…"  # the message need not echo it all
+    if not (text.isascii() and text.isdigit()):
+        raise WorkflowError(f"{what.capitalize()} '{shown}' is not a {what} number.", field=field)
+    # Count digits before converting: int() refuses very long digit strings.
+    digits = text.lstrip("0")
+    if len(digits) > len(str(ID_MAX)) or not in_id_range(int(digits or "0")):
+        raise NotFound(f"No {what} {shown}.", field=field)
+    return int(digits)
+
+
+def id_field(values, name: str, what: str) -> int | None:
+    """The id in field ``name`` of ``request.args`` or ``request.form``; None when the field is
+    absent or blank, otherwise as :func:`parse_id`."""
+    raw = (values.get(name) or "").strip()
+    return parse_id(raw, what, name) if raw else None
+
+
 def current_user():
     return g.user
 
 
 def float_field(form, name: str, label: str, default: float | None = None) -> float:
-    from app.workflow import WorkflowError
-
     raw = (form.get(name) or "").strip()
     if not raw and default is not None:
         return default

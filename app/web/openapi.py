@@ -29,17 +29,24 @@ Adding an endpoint (for example in a sign-off blueprint registered with url_pref
 Rules of the registry:
 
 - ``path`` is relative to :data:`API_PREFIX`, in OpenAPI form (``{fit_id}``, not
-  ``<int:fit_id>``); path parameters are integers unless ``parameters=`` says otherwise.
+  ``<int:fit_id>``); path parameters are ids (integers 1 to :data:`ID_MAX`, see
+  :func:`id_parameter`) unless ``parameters=`` says otherwise.
 - The access rule shown is read from the view's ``@allow(...)`` at build time, so it is the rule
-  enforced, never a copy of it. 401 and 403 responses are added for non-public views, 404 for
-  paths with parameters, 400 and 415 for views with a request body, and a ``Location`` header
-  for every 201.
+  enforced, never a copy of it. Every status the app itself answers is listed with the Error
+  body: 401 (with ``WWW-Authenticate``) and 403 for non-public views, 404 for paths with
+  parameters, 400 for every POST (a browser session without its CSRF header), 400, 413 and 415
+  for views with a request body; a ``Location`` header is shown for every 201. Declare in
+  ``responses`` any other status the view answers (409 from a service, 404 for an id in the
+  body, 400 for a query parameter): ``tests/web/test_openapi_conformance.py`` fails on a
+  status, media type, header or body the document does not show.
 - ``request_schema`` and response schemas are a schema dict, or the name of a schema registered
-  with :func:`schema` (shown as a ``$ref``). Register each schema name once.
+  with :func:`schema` (shown as a ``$ref``); a response offered in several media types is a
+  :class:`Media`. Register each schema name once.
 - :func:`json_body` understands the subset of JSON Schema used here: ``type`` (one or a list),
   ``properties``, ``required``, ``additionalProperties`` (False or a schema), ``propertyNames``
   with ``pattern``, ``items``, ``enum``, ``minLength``, ``minItems``, ``minimum``, ``maximum``,
-  ``exclusiveMinimum`` with ``exclusiveMaximum`` (both), and ``$ref`` to registered schemas. Keep request schemas within it.
+  ``exclusiveMinimum`` with ``exclusiveMaximum`` (both), and ``$ref`` to registered schemas.
+  Keep request schemas within it (``examples`` and ``description`` are shown, not checked).
 """
 
 from __future__ import annotations
@@ -52,12 +59,30 @@ from typing import Any, NoReturn, TypeVar
 
 from flask import request
 
-from app.web.access import PUBLIC, ROLES_ATTR, SIGNED_IN
+from app.store.db import WRITE_METHODS
+from app.web.access import API_CHALLENGE, PUBLIC, ROLES_ATTR, SIGNED_IN
+from app.web.common import ID_MAX
 from app.workflow import WorkflowError
 
 API_PREFIX = "/api/v1"
 F = TypeVar("F", bound=Callable)
 Schema = dict[str, Any] | str
+ID = {"type": "integer", "minimum": 1, "maximum": ID_MAX}
+
+
+@dataclass(frozen=True)
+class Media:
+    """A response body offered in several media types: each media type with its schema."""
+
+    types: Mapping[str, Schema]
+
+
+Body = Schema | Media
+
+
+def id_parameter(name: str) -> dict[str, Any]:
+    """A path parameter holding an id; a larger or smaller number answers 404."""
+    return {"name": name, "in": "path", "required": True, "schema": dict(ID)}
 
 
 @dataclass(frozen=True)
@@ -70,7 +95,7 @@ class Operation:
     view: Callable
     request_schema: Schema | None
     request_type: str
-    responses: Mapping[int, tuple[str, Schema | None]]
+    responses: Mapping[int, tuple[str, Body | None]]
     tags: tuple[str, ...]
     parameters: tuple[dict[str, Any], ...] | None
 
@@ -94,7 +119,7 @@ def schema(name: str, definition: dict[str, Any]) -> dict[str, str]:
 
 def document(method: str, path: str, summary: str, *, request_schema: Schema | None = None,
              request_type: str = "application/json",
-             responses: Mapping[int, tuple[str, Schema | None]],
+             responses: Mapping[int, tuple[str, Body | None]],
              tags: tuple[str, ...] = (), parameters: tuple[dict[str, Any], ...] | None = None
              ) -> Callable[[F], F]:
     """Declare one operation of the view it decorates (see the module docstring)."""
@@ -105,7 +130,8 @@ def document(method: str, path: str, summary: str, *, request_schema: Schema | N
     def mark(view: F) -> F:
         for i, op in enumerate(OPERATIONS):
             if (op.method, op.path) == (method, path):
-                if op.view.__qualname__ != view.__qualname__ or op.view.__module__ != view.__module__:
+                if (op.view.__qualname__, op.view.__module__) != (view.__qualname__,
+                                                                  view.__module__):
                     raise ValueError(f"{method} {path} is already documented by "
                                      f"{op.view.__module__}.{op.view.__qualname__}")
                 del OPERATIONS[i]
@@ -126,7 +152,8 @@ schema("Problem", {
                    "column": {"type": ["string", "null"]}},
 })
 schema("Error", {
-    "type": "object", "required": ["error", "status"],
+    "type": "object", "additionalProperties": False, "required": ["error", "status"],
+    "description": "Every refusal and error of the API has this body.",
     "properties": {
         "error": {"type": "string", "description": "A plain sentence naming the field"},
         "status": {"type": "integer"},
@@ -151,7 +178,10 @@ def _schema_of(value: Schema | None) -> dict[str, Any] | None:
     return ref(value) if isinstance(value, str) else value
 
 
-def _json_content(value: Schema | None) -> dict[str, Any]:
+def _json_content(value: Body | None) -> dict[str, Any]:
+    if isinstance(value, Media):
+        return {"content": {kind: {"schema": _schema_of(body)}
+                            for kind, body in value.types.items()}}
     body = _schema_of(value)
     return {} if body is None else {"content": {"application/json": {"schema": body}}}
 
@@ -181,7 +211,7 @@ def _operation_object(op: Operation) -> dict[str, Any]:
         out["tags"] = list(op.tags)
     names = re.findall(r"{([^}]+)}", op.path)
     params = op.parameters if op.parameters is not None else tuple(
-        {"name": n, "in": "path", "required": True, "schema": {"type": "integer"}} for n in names)
+        id_parameter(n) for n in names)
     if params:
         out["parameters"] = list(params)
     responses: dict[str, Any] = {}
@@ -191,24 +221,39 @@ def _operation_object(op: Operation) -> dict[str, Any]:
             entry["headers"] = {"Location": {"description": "URL of the new object",
                                              "schema": {"type": "string"}}}
         responses[str(status)] = entry
-    error = _json_content("Error")
-    defaults = []
-    if op.request_schema is not None:
-        defaults += [(400, "A field is missing, unknown, of the wrong type or refused; "
-                           "`field` names it"),
-                     (415, f"The body is not {op.request_type}")]
-    if PUBLIC not in roles:
-        defaults += [(401, "Not signed in, or the API token is unknown, revoked or belongs to a "
-                           "deactivated user"),
-                     (403, "Signed in, but the user's roles do not allow this")]
-    if names:
-        defaults.append((404, "No such object"))
-    for status, text in defaults:
-        responses.setdefault(str(status), {"description": text, **error})
+    for status, text in _default_errors(op, roles, bool(names)):
+        entry = {"description": text, **_json_content("Error")}
+        if status == 401:
+            entry["headers"] = {"WWW-Authenticate": {
+                "description": f"Always `{API_CHALLENGE}`", "required": True,
+                "schema": {"type": "string"}}}
+        responses.setdefault(str(status), entry)
     out["responses"] = responses
     if op.request_schema is not None:
         out["requestBody"] = {"required": True, "content": {
             op.request_type: {"schema": _schema_of(op.request_schema)}}}
+    return out
+
+
+def _default_errors(op: Operation, roles: frozenset[str], has_ids: bool
+                    ) -> list[tuple[int, str]]:
+    """The refusals every operation of this kind can answer, whatever its view does."""
+    out = []
+    if op.request_schema is not None:
+        out.append((400, "A field is missing, unknown, of the wrong type or refused (`field` "
+                         "names it), or a browser session sent no `X-CSRF-Token` header"))
+    elif op.method in WRITE_METHODS:
+        out.append((400, "A browser session sent no `X-CSRF-Token` header"))
+    if PUBLIC not in roles:
+        out += [(401, "No credentials, or the API token is unknown, revoked or belongs to a "
+                      "deactivated user; answered before the request itself is checked"),
+                (403, "Signed in, but the user's roles do not allow this, or the one-time "
+                      "password must be changed first")]
+    if has_ids:
+        out.append((404, f"No such object (an id outside 1 to {ID_MAX} matches none)"))
+    if op.request_schema is not None:
+        out += [(413, "The body is larger than the server accepts"),
+                (415, f"The body is not {op.request_type}")]
     return out
 
 
@@ -269,8 +314,9 @@ _TYPES: dict[str, Callable[[Any], bool]] = {
     "integer": lambda v: (isinstance(v, int) and not isinstance(v, bool))
     or (isinstance(v, float) and v.is_integer()),
 }
-_TYPE_WORDS = {"object": "an object", "array": "a list", "string": "text", "boolean": "true or false",
-               "null": "null", "number": "a number", "integer": "a whole number"}
+_TYPE_WORDS = {"object": "an object", "array": "a list", "string": "text",
+               "boolean": "true or false", "null": "null", "number": "a number",
+               "integer": "a whole number"}
 
 
 def _describe(value: Any) -> str:

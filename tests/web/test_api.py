@@ -22,6 +22,7 @@ from app.ingest import read_upload, validate
 from app.store.audit import canonical_json
 from app.store.db import database
 from app.store.models import ApiToken, AuditEvent, DataVersion, Fit, Study, User
+from app.web.common import ID_MAX
 from app.web.openapi import API_PREFIX
 from app.workflow import accounts, fits, studies, uploads
 from tests.conftest import TEST_ARGON2
@@ -262,6 +263,68 @@ def test_cookie_session_needs_csrf_header_but_token_does_not(app, db, users, act
                                  headers=bearer(service_token(db, "erin")))
     assert by_token.status_code == 201
     assert counts(db)["studies"] == 2
+
+
+def test_unauthenticated_post_is_401_before_csrf_or_body(client, db, users):
+    """Without credentials an API route answers 401 whatever else is wrong with the request."""
+    before = counts(db)
+    answers = [
+        client.post(f"{API_PREFIX}/studies", json={"title": "No token"}),
+        client.post(f"{API_PREFIX}/studies", data="not json", content_type="text/plain"),
+        client.post(f"{API_PREFIX}/studies/1/data", data={"roles": "{"}),
+        client.post(f"{API_PREFIX}/fits/1/submit"),
+        client.post(f"{API_PREFIX}/setpoints", json={"fits": []},
+                    headers=bearer("plb_no-such-token")),
+    ]
+    for answer in answers:
+        assert answer.status_code == 401, answer.get_json()
+        assert answer.get_json()["status"] == 401 and "token" in answer.get_json()["error"]
+        assert answer.headers["WWW-Authenticate"].startswith("Bearer ")
+    assert counts(db) == before
+
+
+def test_pages_still_check_csrf_first(client):
+    refused = client.post("/data/1/fit", data={"response": "Hardness"})
+    assert refused.status_code == 400 and "security token" in refused.get_data(as_text=True)
+
+
+def test_ids_out_of_range_are_404(client, db, users):
+    """Beyond 64 bits (SQLite's limit) or 32 bits (PostgreSQL's INTEGER): 404, never a 500."""
+    auth = bearer(service_token(db, "otto"))
+    huge = "99999999999999999999999"
+    for path in (f"/fits/{huge}", f"/studies/{huge}", f"/data/{huge}", f"/setpoints/{huge}",
+                 f"/setpoints/{huge}/export", f"/fits/{2**63}", f"/fits/{ID_MAX + 1}"):
+        answer = client.get(API_PREFIX + path, headers=auth)
+        assert answer.status_code == 404, (path, answer.status_code)
+        assert answer.get_json()["status"] == 404
+    largest = client.get(f"{API_PREFIX}/fits/{ID_MAX}", headers=auth)
+    assert largest.status_code == 404 and largest.get_json()["field"] == "fit"
+    posted = client.post(f"{API_PREFIX}/data/{huge}/fits", json={"response": "Hardness"},
+                         headers=bearer(service_token(db, "erin")))
+    assert posted.status_code == 404 and posted.is_json
+    assert client.get(f"/fits/{huge}", headers=auth).status_code == 404  # pages too
+
+
+def test_fit_ids_out_of_range_in_a_body_are_refused(client, db, users):
+    auth = bearer(service_token(db, "erin"))
+    for fit_id in (2**64, ID_MAX + 1, 0):
+        refused = client.post(f"{API_PREFIX}/setpoints", headers=auth, json={
+            "fits": [fit_id], "goals": {"Hardness": {"goal": "maximize"}}})
+        assert refused.status_code == 400 and refused.get_json()["field"] == "fits[0]"
+
+
+def test_405_carries_allow(client, db, users):
+    auth = bearer(service_token(db, "otto"))
+    for headers in (auth, {}):
+        answer = client.delete(f"{API_PREFIX}/studies", headers=headers)
+        assert answer.status_code == 405 and answer.get_json()["status"] == 405
+        assert {m.strip() for m in answer.headers["Allow"].split(",")} >= {"GET", "POST"}
+    fit = client.open(f"{API_PREFIX}/fits/1", method="TRACE", headers=auth)
+    assert fit.status_code == 405 and "GET" in fit.headers["Allow"]
+    assert "POST" not in fit.headers["Allow"]
+    page = client.put("/login")
+    assert page.status_code == 405 and not page.is_json
+    assert {"GET", "POST"} <= {m.strip() for m in page.headers["Allow"].split(",")}
 
 
 # ---- refusals name the field ----------------------------------------------------------------

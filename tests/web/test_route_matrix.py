@@ -13,6 +13,7 @@ import pkgutil
 import re
 
 import pytest
+from werkzeug.routing import IntegerConverter
 
 from tests.conftest import Actions
 from tests.web import policies
@@ -64,7 +65,7 @@ def _url(rule) -> str:
     values = {}
     for arg in rule.arguments:
         conv = rule._converters[arg]
-        values[arg] = 999999 if type(conv).__name__ == "IntegerConverter" else "nobody-xyz"
+        values[arg] = 999999 if isinstance(conv, IntegerConverter) else "nobody-xyz"
     return re.sub(r"<(?:[^:>]+:)?([^>]+)>", lambda m: str(values[m.group(1)]), rule.rule)
 
 
