@@ -23,7 +23,9 @@ fallback is Holm's (1979) step-down method.
 from __future__ import annotations
 
 import hashlib
+import json
 from dataclasses import dataclass
+from functools import cache
 
 import numpy as np
 
@@ -158,3 +160,24 @@ def defect_residuals(q: np.ndarray, seed: int, kind: str, *,
 def detection_rate(null: np.ndarray, defect: np.ndarray, alpha: float) -> float:
     """Share of defect draws beyond the null's upper alpha point (larger = worse)."""
     return float(np.mean(defect > np.quantile(null, 1.0 - alpha)))
+
+
+def rates_for_design(design: dict, model: str | None) -> dict | None:
+    """The `make calibrate` line for this fit's design, or None when it was not simulated.
+
+    Matches on the design's kind, run count and factor count and the named model.
+    """
+    table = _calibration_table()
+    for entry in table.get("designs", {}).values():
+        if (entry["kind"] == design.get("kind") and entry["n_runs"] == design.get("n_runs")
+                and entry["n_factors"] == design.get("n_factors") and entry["model"] == model):
+            return entry
+    return None
+
+
+@cache
+def _calibration_table() -> dict:
+    from importlib.resources import files
+
+    source = files("app").joinpath("data", "calibration.json")
+    return json.loads(source.read_text()) if source.is_file() else {}

@@ -37,8 +37,13 @@ def summary_text(result: FitResult) -> str:
         lines += ["", f"Effects (Lenth PSE {_num(lz['pse'])}, ME {_num(lz['me'])}, SME {_num(lz['sme'])})"]
         lines += [f"  {e.term:<24}{_num(e.effect):>12}" for e in result.effects]
     lines += ["", "Residual checks"]
+    cal = result.calibration
+    if cal.get("family"):
+        lines.append(f"  Verdicts follow p adjusted across {len(cal['family'])} checks "
+                     f"({cal['adjustment']}); this controls {cal['controls']}.")
     for c in result.checks:
-        stat = "" if c.p_value is None else f" (p = {_num(c.p_value, '.3g')})"
+        stat = ("" if c.p_value is None else
+                f" (p = {_num(c.p_value, '.3g')}, adjusted {_num(c.p_adjusted, '.3g')})")
         lines.append(f"  [{c.verdict.upper():^14}] {c.id}{stat}")
         lines.append(f"  {'':16} {c.message}")
         if c.runs:

@@ -203,25 +203,30 @@ def residuals_vs_covariate(results: dict, covariate: str, values: dict[int, Any]
                  ("Run", "Run order", covariate, "Residual"), rows)
 
 
+def _outlier_limit(results: dict) -> float:
+    """The outlier check's limit, on the residual kind the check uses (internally studentized)."""
+    return _check(results, "outliers").get("details", {}).get("limit", 2.5)
+
+
 def run_order(results: dict) -> Chart | None:
-    """Standardized residuals in run order, joined, with ±2.5 and ±3 limit lines."""
+    """Studentized residuals in run order, joined, with the outlier check's ± limit lines."""
     data = [d for d in _base_rows(included_runs(results)) if d["run_order"] is not None]
     if not data:
         return None
+    limit = _outlier_limit(results)
     line = alt.Chart(name="path").mark_line(color="#9fb6cc").encode(
-        x="run_order:Q", y="standardized:Q", order="run_order:Q")
+        x="run_order:Q", y="studentized:Q", order="run_order:Q")
     pts = _points(alt.X("run_order:Q", title="Run order"),
-                  alt.Y("standardized:Q", title="Standardized residual"),
-                  alt.Tooltip("standardized:Q", format=".3g", title="Standardized"))
+                  alt.Y("studentized:Q", title="Studentized residual"),
+                  alt.Tooltip("studentized:Q", format=".3g", title="Studentized"))
     limits = [_rules([{"at": 0}], REFERENCE, dash=(1, 0)),
-              _rules([{"at": -2.5}, {"at": 2.5}], LIMIT_REVIEW),
-              _rules([{"at": -3.0}, {"at": 3.0}], LIMIT_FAIL)]
-    spec = _finish([*limits, line, pts], data, "Standardized residuals in run order")
-    rows = [(d["label"], d["run_order"], _r(d["standardized"]))
+              _rules([{"at": -limit}, {"at": limit}], LIMIT_REVIEW)]
+    spec = _finish([*limits, line, pts], data, "Studentized residuals in run order")
+    rows = [(d["label"], d["run_order"], _r(d["studentized"]))
             for d in sorted(data, key=lambda d: d["run_order"])]
-    return Chart("run_order", "Standardized residuals in run order", spec,
-                 ("Run", "Run order", "Standardized residual"), rows,
-                 "Limit lines at ±2.5 (amber) and ±3 (red), read like an individuals chart.")
+    return Chart("run_order", "Studentized residuals in run order", spec,
+                 ("Run", "Run order", "Studentized residual"), rows,
+                 f"Dashed lines at ±{limit:g}: the runs the outlier check marks lie beyond them.")
 
 
 def spread_by_level(results: dict, factor: str) -> Chart:
@@ -274,21 +279,23 @@ def cooks_distance(results: dict) -> Chart:
 
 
 def leverage(results: dict) -> Chart:
-    """Leverage against deleted studentized residual, with the 2p/n leverage line."""
+    """Leverage against studentized residual, with the 2p/n line and the outlier limits."""
     data = _base_rows(included_runs(results))
     p, n = results["fit"]["p"], results["fit"]["n"]
+    limit = _outlier_limit(results)
     pts = _points(alt.X("leverage:Q", title="Leverage h"),
-                  alt.Y("deleted_studentized:Q", title="Studentized residual (deleted)"),
+                  alt.Y("studentized:Q", title="Studentized residual"),
                   alt.Tooltip("leverage:Q", format=".3f", title="Leverage"),
-                  alt.Tooltip("deleted_studentized:Q", format=".3g", title="Studentized"))
+                  alt.Tooltip("studentized:Q", format=".3g", title="Studentized"))
     layers = [_rules([{"at": 2 * p / n}], LIMIT_REVIEW, axis="x"),
-              _rules([{"at": -2.5}, {"at": 2.5}], LIMIT_REVIEW), pts]
+              _rules([{"at": -limit}, {"at": limit}], LIMIT_REVIEW), pts]
     spec = _finish(layers, data, "Leverage against studentized residual")
-    rows = [(d["label"], d["run_order"], _r(d["leverage"]), _r(d["deleted_studentized"]))
+    rows = [(d["label"], d["run_order"], _r(d["leverage"]), _r(d["studentized"]))
             for d in data]
     return Chart("leverage", "Leverage against studentized residual", spec,
                  ("Run", "Run order", "Leverage", "Studentized residual"), rows,
-                 f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±2.5.")
+                 f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±{limit:g}, "
+                 "the outlier check's limit.")
 
 
 def half_normal(results: dict) -> Chart | None:

@@ -6,6 +6,7 @@ import json
 
 from flask import Blueprint, flash, redirect, render_template, request, url_for
 
+from app.analysis.calibration import rates_for_design
 from app.store import audit
 from app.store.db import get_session
 from app.web.access import allow
@@ -66,6 +67,17 @@ def submit(fit_id: int):
     return _back(fit_id)
 
 
+# The columns of the `make calibrate` table, in the words the review page uses.
+RATE_COLUMNS = (
+    {"key": "clean", "label": "clean data (false alarms)"},
+    {"key": "ar1", "label": "AR(1) ρ = 0.6 in run order"},
+    {"key": "drift", "label": "drift of 3 SD"},
+    {"key": "spread", "label": "SD doubled at high A"},
+    {"key": "outlier", "label": "one 4 SD outlier"},
+    {"key": "square", "label": "missing square term"},
+)
+
+
 def review_context(session, fit) -> dict:
     results = fits.results_of(fit)
     checks = results.get("checks", [])
@@ -80,6 +92,9 @@ def review_context(session, fit) -> dict:
         "previous": previous,
         "diff": None if previous is None else differences(previous, fit),
         "meanings": list(reviews.SIGN_MEANINGS),
+        "design_rates": rates_for_design(results.get("design", {}),
+                                         results.get("spec", {}).get("model")),
+        "rate_columns": RATE_COLUMNS,
         "decode": lambda text: None if text is None else json.loads(text),
     }
 

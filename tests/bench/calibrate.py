@@ -128,7 +128,9 @@ def calibrate(reps: int, pool: Pool) -> dict:
             for cid in ids:
                 flagged = sum(v[cid] in ("review", "fail") for v in verdicts) / reps
                 na = sum(v[cid] == "not_applicable" for v in verdicts) / reps
-                rows.setdefault(cid, {})[scenario] = None if na == 1.0 else round(flagged, 3)
+                row = rows.setdefault(cid, {"flagged": {}, "not_applicable": {}})
+                row["flagged"][scenario] = round(flagged, 3)
+                row["not_applicable"][scenario] = round(na, 3)
             if scenario == "clean":
                 summary = {
                     "any_review_or_fail": round(sum(any(x in ("review", "fail") for x in v.values())
@@ -144,6 +146,12 @@ def calibrate(reps: int, pool: Pool) -> dict:
     return table
 
 
+def _cell(flagged: float, not_applicable: float) -> str:
+    if not_applicable == 1.0:
+        return "—"
+    return f"{flagged:.0%}" + (f" (n/a {not_applicable:.0%})" if not_applicable else "")
+
+
 def markdown(table: dict) -> str:
     lines = []
     for entry in table.values():
@@ -151,12 +159,12 @@ def markdown(table: dict) -> str:
         lines += ["", f"### {entry['title']}", "",
                   f"{entry['reps']} simulated fits per column. Clean data: any review or fail "
                   f"{s['any_review_or_fail']:.1%}, any fail {s['any_fail']:.1%}. Cells: share of "
-                  "fits where the check says review or fail; — means not applicable in this "
-                  "design.", "",
+                  "fits where the check says review or fail; in brackets the share where it says "
+                  "not applicable (the design cannot use it); — means never applicable.", "",
                   "| check | " + " | ".join(SCENARIOS) + " |",
                   "|---|" + "---|" * len(SCENARIOS)]
         for cid, rates in entry["checks"].items():
-            cells = ["—" if rates.get(sc) is None else f"{rates[sc]:.0%}" for sc in SCENARIOS]
+            cells = [_cell(rates["flagged"][sc], rates["not_applicable"][sc]) for sc in SCENARIOS]
             lines.append(f"| {cid} | " + " | ".join(cells) + " |")
         lines.append("| **any check** | " + " | ".join(
             f"{s['any_flag_' + sc]:.0%}" for sc in SCENARIOS) + " |")

@@ -162,3 +162,15 @@ def test_fit_record_export_carries_signatures_and_chain_head(db, client, actions
     assert signature["meaning"] == "approved for setpoint use"
     assert signature["signed_at"] and signature["status"] == "valid"
     assert record["chain_head"]["seq"] > 0 and len(record["chain_head"]["hash"]) == 64
+
+
+def test_review_page_states_the_adjustment_and_what_a_pass_is_worth(db, actions, client, users):
+    # the demo data are a 20-run rotatable central composite design: make calibrate simulated
+    # that design with the quadratic model, so the approver sees its line
+    fit = h.make_fit(db, h.add_version(db, h.make_study(db)), model="quadratic")
+    actions.login("abel")
+    page = client.get(f"/fits/{fit}/review").get_data(as_text=True)
+    assert "Westfall-Young step-down min-P" in page and "p adjusted" in page
+    assert "What a pass is worth in this design" in page
+    assert "Simulated for central composite, 3 factors, 20 runs" in page
+    assert "AR(1) ρ = 0.6 in run order" in page
