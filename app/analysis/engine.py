@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 
 from . import transforms
-from .anova import SS_METHOD, anova_table
+from .anova import SS_METHOD, anova_table, centre_runs
 from .boxcox import boxcox_profile
 from .calibration import ASYMPTOTIC_ABOVE, null_draws, seed_for
 from .checks import CheckContext, battery_summary, run_checks
@@ -140,7 +140,8 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     fit_stats = fit_statistics(ls, y, res.leverage)
     groups = setting_groups(coded, blocks)
     term_cols = [(labels[1 + n_block + i], [1 + n_block + i]) for i in range(len(terms))]
-    anova = anova_table(ls, x, y, term_cols, list(range(1, 1 + n_block)), groups)
+    anova = anova_table(ls, x, y, term_cols, list(range(1, 1 + n_block)), groups,
+                        centre=centre_runs(design, coded))
 
     run_order = None
     if spec.run_order:
@@ -161,8 +162,8 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     )
     checks = run_checks(ctx)
     calibration = battery_summary(checks, ctx)
-    anova = _with_curvature_row(anova, checks)
-    effects, lenth_doc, half_normal = effects_and_lenth(design, terms, ls, names, spec.hierarchy)
+    effects, lenth_doc, half_normal = effects_and_lenth(design, terms, ls, names, spec.hierarchy,
+                                                        coded=coded)
 
     coefficients = tuple(
         CoefficientRow(labels[j], *(float(v[j]) for v in (
@@ -210,21 +211,6 @@ def _null_draws(ls, x: np.ndarray, spec: FitSpec):
     return null_draws(ls.q, seed)
 
 
-def _with_curvature_row(anova: list[dict], checks) -> list[dict]:
-    """Insert the centre-point curvature test before the Residual row when it was made.
-
-    Its F uses the residual mean square of the model with a centre-point indicator added.
-    """
-    curv = next(c for c in checks if c.id == "curvature")
-    if curv.p_value is None or "sum_sq" not in curv.details:
-        return anova
-    ss = curv.details["sum_sq"]
-    row = {"source": "Curvature (centre points)", "df": 1, "sum_sq": ss, "mean_sq": ss,
-           "f_value": curv.statistic, "p_value": curv.p_value}
-    at = next(i for i, r in enumerate(anova) if r["source"] == "Residual")
-    return anova[:at] + [row] + anova[at:]
-
-
 def _response_label(response: str, transform: str, lam: float | None) -> str:
     if transform == "none":
         return response
@@ -235,15 +221,7 @@ def _response_label(response: str, transform: str, lam: float | None) -> str:
 
 
 def _boxcox(y_raw: np.ndarray, x: np.ndarray, q: np.ndarray) -> dict:
-    n, p = x.shape
-    if not np.all(y_raw > 0):
-        return {"lambda_hat": None, "reason": "the response has zero or negative values"}
-    if n - p < 2:
-        return {"lambda_hat": None, "reason": "too few residual degrees of freedom"}
-    try:
-        return boxcox_profile(y_raw, q).to_dict()
-    except ValueError as err:
-        return {"lambda_hat": None, "reason": str(err)}
+    return boxcox_profile(y_raw, q).to_dict()
 
 
 def _run_table(frame, spec, rows_all, included, reasons, y_raw_all, coded_all, x_in, ls, res,

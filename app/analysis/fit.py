@@ -136,17 +136,17 @@ def coefficient_table(ls: LeastSquares, x: np.ndarray, level: float = 0.95) -> C
     """SE = s sqrt(diag (X'X)^-1); t against 0 with n - p df; VIF_j = (X'X)^-1_jj * S_jj.
 
     S_jj is the centred sum of squares of column j, so VIF is 1 for an orthogonal column; the
-    intercept has no VIF (NaN). With zero residual df, SE, t, p and CI are NaN.
+    intercept has no VIF (NaN). With zero residual df, or a residual SD that is zero next to the
+    response (``ls.exact_fit``: a constant response, a perfect fit), SE, t, p and CI are NaN
+    (None in the document, shown as —): rounding residue would otherwise pass for a p-value.
     """
-    se = ls.s * np.sqrt(np.diag(ls.xtx_inv)) if ls.df_resid > 0 else np.full(ls.p, np.nan)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = np.where(se > 0, ls.coef / se, np.where(ls.coef == 0, np.nan, np.inf))
-    if ls.df_resid > 0:
+    if ls.df_resid > 0 and not ls.exact_fit and ls.s > 0:
+        se = ls.s * np.sqrt(np.diag(ls.xtx_inv))
+        t = ls.coef / se
         p_val = 2 * special.stdtr(ls.df_resid, -np.abs(t))
         half = special.stdtrit(ls.df_resid, 0.5 + level / 2) * se
     else:
-        p_val = np.full(ls.p, np.nan)
-        half = np.full(ls.p, np.nan)
+        se = t = p_val = half = np.full(ls.p, np.nan)
     centred_ss = np.sum((x - x.mean(axis=0)) ** 2, axis=0)
     vif = np.where(centred_ss > 1e-12 * np.maximum(1.0, np.sum(x**2, axis=0)),
                    np.diag(ls.xtx_inv) * centred_ss, np.nan)

@@ -2,8 +2,9 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, NamedTuple
 
 NAMED_MODELS = ("linear", "interaction", "quadratic", "full")
 TRANSFORMS = ("none", "log", "sqrt", "inverse", "boxcox")
@@ -52,6 +53,17 @@ class Factor:
         )
 
 
+NO_P_VALUE_REASON = ("not applicable: the test gives no p-value for these data (it is missing "
+                     "or not a finite number)")
+
+
+class Judgement(NamedTuple):
+    """A verdict and, for ``not_applicable``, the reason to show in place of a message."""
+
+    verdict: str
+    reason: str | None = None
+
+
 @dataclass(frozen=True)
 class Thresholds:
     """p-value thresholds: below ``fail`` a check fails, below ``review`` it needs review."""
@@ -65,13 +77,21 @@ class Thresholds:
                 f"Thresholds need 0 < fail <= review < 1 (got review={self.review}, fail={self.fail})"
             )
 
-    def verdict(self, p_value: float) -> str:
-        """Map a p-value to pass/review/fail."""
+    def verdict(self, p_value: float | None) -> str:
+        """Map a p-value to pass/review/fail; fails closed: a p-value that is missing or not a
+        finite number in [0, 1] gives ``not_applicable``, never pass (see :meth:`judge`)."""
+        return self.judge(p_value).verdict
+
+    def judge(self, p_value: float | None) -> Judgement:
+        """The verdict with the reason when there is none to give (for the check's message)."""
+        # a p-value a rounding step above 1 is still a p-value; anything else is not
+        if p_value is None or not math.isfinite(p_value) or not 0.0 <= p_value <= 1.0 + 1e-9:
+            return Judgement("not_applicable", NO_P_VALUE_REASON)
         if p_value < self.fail:
-            return "fail"
+            return Judgement("fail")
         if p_value < self.review:
-            return "review"
-        return "pass"
+            return Judgement("review")
+        return Judgement("pass")
 
     def to_dict(self) -> dict[str, float]:
         return {"review": self.review, "fail": self.fail}

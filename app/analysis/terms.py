@@ -2,7 +2,9 @@
 
 A term is a product of factor powers, e.g. ``A``, ``A:B``, ``A^2``, ``A:B:C``. Term names are
 built from the factor names as given, so names such as ``C``, ``I`` or ``Feed rate`` are safe:
-nothing here is ever handed to a formula parser.
+nothing here is ever handed to a formula parser. Names containing ':' or '^', or named
+"Intercept", are refused (at upload, and again here): they would make two coefficients share a
+name, or a term text mean a different term.
 """
 
 from __future__ import annotations
@@ -13,6 +15,14 @@ from itertools import combinations
 import numpy as np
 
 from .spec import AnalysisError
+
+# Term names join factors with ':' and powers with '^', so factor names may not contain them.
+RESERVED_CHARACTERS = (":", "^")
+# The highest power of one factor in a term. Unbounded, "A^999999" made the hierarchy add every
+# lower power (minutes of CPU). 10 is the highest degree the fit is verified for (NIST StRD
+# Filip); a power the factor's levels cannot support (power >= number of levels) is refused
+# later as aliased with the lower powers, naming the term.
+MAX_POWER = 10
 
 
 @dataclass(frozen=True, order=True)
@@ -87,30 +97,63 @@ def named_model(model: str, k: int) -> list[Term]:
     raise AnalysisError(f"Unknown model '{model}'")
 
 
+def check_factor_names(factor_names: tuple[str, ...]) -> None:
+    """Refuse factor names that would make term names ambiguous.
+
+    Term names join factors with ':' and powers with '^', and the first coefficient is the
+    "Intercept": a factor named "A:B" would share its name with the interaction of A and B.
+    """
+    for name in factor_names:
+        problem = factor_name_problem(name)
+        if problem:
+            raise AnalysisError(f"Factor '{name}': {problem}")
+
+
+def factor_name_problem(name: str) -> str | None:
+    """Why ``name`` cannot be a factor name, or None (shared with the upload check)."""
+    reserved = [ch for ch in RESERVED_CHARACTERS if ch in name]
+    if reserved:
+        return (f"a factor name may not contain {' or '.join(repr(ch) for ch in reserved)}, "
+                "which term names use for interactions and powers; rename the column")
+    if name.strip().lower() == "intercept":
+        return "'Intercept' names the model's constant term; rename the column"
+    return None
+
+
 def _parse_factor_power(part: str, lookup: dict[str, int], term_text: str) -> tuple[int, int]:
     if part in lookup:
         return lookup[part], 1
     if "^" in part:
         base, _, exponent = part.rpartition("^")
-        if base in lookup and exponent.isdigit() and int(exponent) >= 1:
-            return lookup[base], int(exponent)
+        if base in lookup and exponent.isascii() and exponent.isdigit():
+            digits = exponent.lstrip("0")
+            # a long digit string is above any cap (and int() refuses more than 4300 digits)
+            power = int(digits or "0") if len(digits) <= 4 else MAX_POWER + 1
+            if power >= 1:
+                return lookup[base], power
     raise AnalysisError(
         f"Term '{term_text}': '{part}' is not a factor name (factors: {', '.join(lookup)})"
     )
 
 
 def parse_term(text: str, factor_names: tuple[str, ...]) -> Term:
-    """Parse one term such as ``A``, ``A:B`` or ``A^2`` against the factor names."""
+    """Parse one term such as ``A``, ``A:B`` or ``A^2`` against the factor names.
+
+    A factor's total power in a term is at most ``MAX_POWER``.
+    """
     lookup = {name: i for i, name in enumerate(factor_names)}
     text = text.strip()
     if not text:
         raise AnalysisError("An empty term was given")
-    # A factor name that itself contains ':' or '^' is matched whole before splitting.
-    parts = [text] if text in lookup else text.split(":")
     exponents: dict[int, int] = {}
-    for part in parts:
+    for part in text.split(":"):
         i, p = _parse_factor_power(part.strip(), lookup, text)
         exponents[i] = exponents.get(i, 0) + p
+        if exponents[i] > MAX_POWER:
+            raise AnalysisError(
+                f"Term '{text}': the power of '{factor_names[i]}' is above {MAX_POWER}, the "
+                "highest this analysis fits (a power needs at least power + 1 levels of the "
+                "factor)")
     return Term(tuple(sorted(exponents.items())))
 
 
@@ -133,6 +176,7 @@ def resolve_terms(
     hierarchy: bool,
 ) -> list[Term]:
     """Turn a named model or explicit term list into ordered, de-duplicated terms."""
+    check_factor_names(factor_names)
     if terms is not None:
         parsed = [parse_term(t, factor_names) for t in terms]
     else:

@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import math
 
+from app.analysis.terms import factor_name_problem
+
 from .canonical import DesignTable, design_table, typed_frame
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, format_rows
 from .raw import RawTable, parse_numbers
@@ -131,6 +133,9 @@ def _check_roles(raw: RawTable, roles: dict[str, ColumnRole]) -> list[Problem]:
     for name, role in roles.items():
         if role.role != "factor":
             continue
+        name_problem = factor_name_problem(name)
+        if name_problem:
+            problems.append(Problem(f"Factor '{name}': {name_problem}.", column=name))
         if (role.low is None) != (role.high is None):
             problems.append(Problem(
                 f"Factor '{name}': give both low and high levels, or neither when the column "
@@ -151,7 +156,8 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
     Columns without a role are treated as ignored. Every problem found is reported together,
     the first five per column listed by row. The rules: factors and responses are numbers with
     no gaps (with several responses, every one needs a value in every row); a factor is not
-    constant and its declared low < high; run order is whole, positive and unique; block,
+    constant, its declared low < high, and its name has no ':' or '^' and is not
+    'Intercept' (term names would be ambiguous); run order is whole, positive and unique; block,
     categorical covariates and numeric covariates have no gaps; the run count reaches the
     main-effects model (1 + factors + blocks - 1). Verified by the bad-input tests in
     ``tests/ingest``.
