@@ -42,7 +42,9 @@ def parse_exclusions(items: tuple[str, ...]) -> tuple[tuple[int, str], ...]:
     for item in items:
         row, sep, reason = item.partition("=")
         if not sep or not row.strip().isdigit() or not reason.strip():
-            raise click.UsageError(f"--exclude '{item}' must look like ROW=reason (reason required)")
+            raise click.UsageError(
+                f"--exclude '{item}' must look like ROW=reason (reason required)"
+            )
         out.append((int(row), reason.strip()))
     return tuple(out)
 
@@ -141,7 +143,8 @@ def _levels_from_data(raw, name: str, units: str | None):
 @click.option("--factors", help="Factor columns, comma-separated (default: the suggested ones).")
 @click.option("--run-order", "run_order", help="Run-order column.")
 @click.option("--block", help="Block column (fitted as a fixed term).")
-@click.option("--covariates", help="Recorded variables to check residuals against, comma-separated.")
+@click.option("--covariates",
+              help="Recorded variables to check residuals against, comma-separated.")
 @click.option("--model", type=click.Choice(NAMED_MODELS), help="Named model (default linear).")
 @click.option("--terms", help='Explicit terms, e.g. "A B A:B A^2" (commas if names have spaces).')
 @click.option("--coded", is_flag=True, help="Factor columns already hold coded values.")

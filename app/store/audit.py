@@ -69,7 +69,9 @@ def record(
 
     ``actor`` is a User (``id``, ``full_name``, ``username``) or None for the command line.
     """
-    head = session.execute(select(ChainHead).where(ChainHead.id == 1).with_for_update()).scalar_one()
+    head = session.execute(
+        select(ChainHead).where(ChainHead.id == 1).with_for_update()
+    ).scalar_one()
     fields: dict[str, Any] = {
         "seq": head.seq + 1,
         "at": utcnow(),

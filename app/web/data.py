@@ -56,17 +56,20 @@ def upload(study_id: int):
     study = studies.get_study(get_session(), study_id)
     file = request.files.get("file")
     if file is None or not file.filename:
-        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
-                               problems=[{"message": "Choose a file to upload (field 'file')."}]), 400
+        return render_template(
+            "data/upload.html", study=study, needs_reason=_has_versions(study_id),
+            problems=[{"message": "Choose a file to upload (field 'file')."}]), 400
     data = file.read()
     try:
         raw = read_upload(data, file.filename, None, **_limits())
     except UploadTooLarge as exc:
-        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
-                               problems=[p.to_dict() for p in exc.problems]), 413
+        return render_template(
+            "data/upload.html", study=study, needs_reason=_has_versions(study_id),
+            problems=[p.to_dict() for p in exc.problems]), 413
     except IngestError as exc:
-        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
-                               problems=[p.to_dict() for p in exc.problems]), 400
+        return render_template(
+            "data/upload.html", study=study, needs_reason=_has_versions(study_id),
+            problems=[p.to_dict() for p in exc.problems]), 400
     token = staging.stage(data, file.filename, g.user.id, study_id)
     return redirect(url_for("data.preview", study_id=study_id, token=token,
                             sheet=raw.sheet or None))
@@ -96,8 +99,9 @@ def preview(study_id: int, token: str):
     try:
         staged, raw = _staged_raw(study_id, token, request.args.get("sheet"))
     except IngestError as exc:
-        return render_template("data/upload.html", study=study, needs_reason=_has_versions(study_id),
-                               problems=[p.to_dict() for p in exc.problems]), 400
+        return render_template(
+            "data/upload.html", study=study, needs_reason=_has_versions(study_id),
+            problems=[p.to_dict() for p in exc.problems]), 400
     return _preview_page(study, staged, raw, suggest_roles(raw), [])
 
 

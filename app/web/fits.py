@@ -27,7 +27,7 @@ from app.store.db import get_session
 from app.store.models import Fit
 from app.web import charts, pagecache
 from app.web.access import SIGNED_IN, allow
-from app.web.common import attachment, me, read_session, tx
+from app.web.common import attachment, id_field, me, read_session, tx
 from app.workflow import WorkflowError, fits, reviews, uploads
 
 bp = Blueprint("fits", __name__)
@@ -105,8 +105,8 @@ def builder(version_id: int):
     session = get_session()
     version = uploads.get_data_version(session, version_id)
     form = dict(DEFAULT_FORM)
-    start = request.args.get("from", type=int)
-    if start:
+    start = id_field(request.args, "from", "fit")
+    if start is not None:
         source = fits.get_fit(session, start)
         if source.data_version_id == version.id:
             form = _form_from_fit(source)
@@ -320,7 +320,7 @@ def record_json(fit_id: int):
 @bp.route("/fits/compare")
 @allow(SIGNED_IN)
 def compare():
-    a, b = request.args.get("a", type=int), request.args.get("b", type=int)
+    a, b = id_field(request.args, "a", "fit"), id_field(request.args, "b", "fit")
     if a is None or b is None:
         abort(400, description="Choose two fits to compare (query fields 'a' and 'b' are fit "
                                "numbers).")

@@ -22,7 +22,7 @@ from app.analysis.optimize import CAUTION, SetpointError, design_space
 from app.store.db import get_session
 from app.store.models import Fit
 from app.web.access import SIGNED_IN, allow
-from app.web.common import attachment, me, tx
+from app.web.common import attachment, me, parse_id, tx
 from app.web.setpoint_charts import design_space_chart
 from app.workflow import WorkflowError, confirmations, fits, setpoint_export, setpoints, studies
 
@@ -66,12 +66,7 @@ def _number(form, name: str, label: str) -> float | None:
 
 def parse_proposal_form(form, factors: list[dict[str, Any]]) -> dict[str, Any]:
     """Fit ids, goals (with spec limits), bounds and fixed values from the proposal form."""
-    chosen = []
-    for raw in form.getlist("fit"):
-        try:
-            chosen.append(int(raw))
-        except ValueError:
-            raise WorkflowError(f"Fit '{raw}' is not a fit number.", field="fit") from None
+    chosen = [parse_id(raw, "fit", "fit") for raw in form.getlist("fit")]
     if not chosen:
         raise WorkflowError("Tick at least one approved fit.", field="fit")
     chosen.sort()

@@ -26,3 +26,15 @@ class Conflict(WorkflowError):
 
 class Forbidden(WorkflowError):
     status = 403
+
+
+# The largest id a lookup accepts. Ids are INTEGER columns: 32-bit signed on PostgreSQL, which
+# refuses a larger number in a query ("integer out of range"), and 64-bit on SQLite, which counts
+# ids up from 1 as well, so no stored row lies outside 1..ID_MAX.
+ID_MAX = 2**31 - 1
+
+
+def in_id_range(value: object) -> bool:
+    """Whether ``value`` is an integer that can be a stored row's id (1 to :data:`ID_MAX`)."""
+    return isinstance(value, int) and not isinstance(value, bool) and 1 <= value <= ID_MAX
+

@@ -15,7 +15,7 @@ from sqlalchemy.orm import Session
 from app.store import audit
 from app.store.base import utcnow
 from app.store.models import ROLES, ApiToken, LoginFailure, User, UserSession
-from app.workflow import Conflict, NotFound, WorkflowError
+from app.workflow import Conflict, NotFound, WorkflowError, in_id_range
 from app.workflow.passwords import dummy_hash, hash_password, password_problem, verify_password
 
 USERNAME_RE = re.compile(r"^[a-z0-9][a-z0-9._-]{1,63}$")
@@ -122,7 +122,10 @@ def revoke_sessions(session: Session, user_id: int) -> None:
 
 @dataclass(frozen=True)
 class Throttle:
-    """Failures within the window before each further attempt must wait (per account, per address)."""
+    """Failures within the window before each further attempt must wait.
+
+    Counted per account and per address.
+    """
 
     window: timedelta = timedelta(minutes=15)
     free_attempts: int = 5
@@ -242,7 +245,9 @@ def session_user(session: Session, token: str, *, idle: timedelta, max_age: time
 TOKEN_PREFIX = "plb_"  # noqa: S105  (a public prefix, not a secret)
 
 
-def create_token(session: Session, actor: User | None, user: User, name: str) -> tuple[ApiToken, str]:
+def create_token(
+    session: Session, actor: User | None, user: User, name: str
+) -> tuple[ApiToken, str]:
     name = (name or "").strip()
     if not name:
         raise WorkflowError("A token needs a name saying what it is for.", field="name")
@@ -258,7 +263,7 @@ def create_token(session: Session, actor: User | None, user: User, name: str) ->
 
 
 def revoke_token(session: Session, actor: User, token_id: int) -> ApiToken:
-    token = session.get(ApiToken, token_id)
+    token = session.get(ApiToken, token_id) if in_id_range(token_id) else None
     if token is None or (token.user_id != actor.id and not actor.has_role("admin")):
         raise NotFound("No such token.", field="token")
     if token.revoked_at is None:

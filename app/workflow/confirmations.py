@@ -59,7 +59,8 @@ def read_observations(data: bytes, filename: str, responses: list[str], *, max_b
         raw = read_upload(data, filename, None, max_bytes=max_bytes, max_cells=max_cells)
     except IngestError as exc:
         first = "; ".join(p.message for p in exc.problems[:3])
-        raise WorkflowError(f"The confirmation file was not stored: {first}", field="file") from None
+        raise WorkflowError(f"The confirmation file was not stored: {first}",
+                            field="file") from None
     missing = [r for r in responses if r not in raw.frame.columns]
     if missing:
         raise WorkflowError(f"The confirmation file has no column '{missing[0]}' (it needs one "

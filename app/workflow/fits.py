@@ -13,7 +13,7 @@ from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse
 from app.store import audit
 from app.store.audit import canonical_json
 from app.store.models import DataVersion, Fit, Signature, User
-from app.workflow import NotFound, WorkflowError
+from app.workflow import NotFound, WorkflowError, in_id_range
 from app.workflow.uploads import design_table
 
 
@@ -147,7 +147,7 @@ def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpe
 
 
 def get_fit(session: Session, fit_id: int) -> Fit:
-    fit = session.get(Fit, fit_id)
+    fit = session.get(Fit, fit_id) if in_id_range(fit_id) else None
     if fit is None:
         raise NotFound(f"No fit {fit_id}.", field="fit")
     return fit
@@ -166,6 +166,8 @@ def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
     """The stored rows the fit page's live checks read (snapshot hash, signature validity):
     the fit, its study's data versions and the fit's signatures; None when there is no fit.
     Core queries, no objects: pages use them as a cache key (``app.web.pagecache``)."""
+    if not in_id_range(fit_id):
+        return None
     fit = session.execute(_FIT_ROW, {"fit_id": fit_id}).first()
     if fit is None:
         return None

@@ -14,7 +14,7 @@ from sqlalchemy.orm import Session
 
 from app.store import audit
 from app.store.models import AuditEvent, DataVersion, Fit, Study
-from app.workflow import NotFound, WorkflowError
+from app.workflow import NotFound, WorkflowError, in_id_range
 from app.workflow.csvsafe import neutralise_all as neutralise
 from app.workflow.fits import snapshot_intact
 from app.workflow.reviews import check_signature
@@ -76,7 +76,7 @@ def facets(session: Session, study: Study) -> dict[str, list[str]]:
 
 
 def get_event(session: Session, event_id: int) -> AuditEvent:
-    event = session.get(AuditEvent, event_id)
+    event = session.get(AuditEvent, event_id) if in_id_range(event_id) else None
     if event is None:
         raise NotFound(f"No event {event_id}.", field="event")
     return event

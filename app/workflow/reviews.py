@@ -25,7 +25,7 @@ from app.store import audit
 from app.store.audit import canonical_json
 from app.store.base import utcnow
 from app.store.models import DataVersion, Fit, Signature, Study, User
-from app.workflow import Conflict, Forbidden, WorkflowError
+from app.workflow import Conflict, Forbidden, WorkflowError, in_id_range
 from app.workflow.fits import snapshot_sha256
 from app.workflow.passwords import verify_password
 
@@ -59,7 +59,7 @@ def _latest_version(session: Session, study_id: int) -> int:
 
 
 def _check_current(session: Session, fit: Fit, doing: str) -> None:
-    """Refuse a step on a snapshot that no longer hashes, or on data that a newer version replaced."""
+    """Refuse a step on a snapshot that no longer hashes, or on data a newer version replaced."""
     if snapshot_sha256(fit) != fit.snapshot_sha256:
         raise Conflict(f"Fit {fit.id} no longer matches its recorded SHA-256, so it cannot be "
                        f"{doing}; report this to the auditor.", field="fit")
@@ -225,7 +225,7 @@ def withdraw(session: Session, actor: User, fit: Fit, *, password: str | None, r
 
 def record_refusal(session: Session, actor: User, fit_id: int, doing: str, why: str) -> None:
     """Audit a refused signature (wrong password), in its own transaction."""
-    fit = session.get(Fit, fit_id)
+    fit = session.get(Fit, fit_id) if in_id_range(fit_id) else None
     audit.record(session, actor=actor, action="signature.refused", object_type="fit",
                  object_id=fit_id, study_id=None if fit is None else fit.study_id,
                  new={"attempted": doing, "why": why})

@@ -30,7 +30,7 @@ from app.store import audit
 from app.store.audit import canonical_json
 from app.store.base import utcnow
 from app.store.models import Fit, SetpointProposal, Signature, User
-from app.workflow import Conflict, Forbidden, NotFound, WorkflowError
+from app.workflow import Conflict, Forbidden, NotFound, WorkflowError, in_id_range
 from app.workflow.fits import results_of
 from app.workflow.reviews import (
     APPROVE,
@@ -74,7 +74,8 @@ def fit_problem(fit: Fit) -> str | None:
     if check.status == NOT_APPLYING:
         return f"The approval of fit {fit.id} ({fit.response}) no longer applies: {check.reason}."
     if check.status != VALID:
-        return f"The approval signature of fit {fit.id} ({fit.response}) is invalid: {check.reason}."
+        return (f"The approval signature of fit {fit.id} ({fit.response}) is invalid: "
+                f"{check.reason}.")
     return None
 
 
@@ -188,7 +189,8 @@ def proposal_intact(session: Session, proposal: SetpointProposal) -> bool:
 
 
 def get_proposal(session: Session, proposal_id: int) -> SetpointProposal:
-    proposal = session.get(SetpointProposal, proposal_id)
+    proposal = (session.get(SetpointProposal, proposal_id) if in_id_range(proposal_id)
+                else None)
     if proposal is None:
         raise NotFound(f"No setpoint proposal {proposal_id}.", field="setpoint")
     return proposal
@@ -357,7 +359,8 @@ def signature_json(session: Session, proposal: SetpointProposal,
 
 def record_refusal(session: Session, actor: User, proposal_id: int, why: str) -> None:
     """Audit a refused release (wrong password), in a transaction of its own."""
-    proposal = session.get(SetpointProposal, proposal_id)
+    proposal = (session.get(SetpointProposal, proposal_id) if in_id_range(proposal_id)
+                else None)
     audit.record(session, actor=actor, action="signature.refused", object_type="setpoint",
                  object_id=proposal_id,
                  study_id=None if proposal is None else proposal.study_id,

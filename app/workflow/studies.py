@@ -7,7 +7,7 @@ from sqlalchemy.orm import Session
 
 from app.store import audit
 from app.store.models import Study, User
-from app.workflow import NotFound, WorkflowError
+from app.workflow import NotFound, WorkflowError, in_id_range
 
 
 def _clean(value: str | None, field: str, *, required: bool, limit: int) -> str:
@@ -46,7 +46,7 @@ def study_summary(study: Study) -> dict:
 
 
 def get_study(session: Session, study_id: int) -> Study:
-    study = session.get(Study, study_id)
+    study = session.get(Study, study_id) if in_id_range(study_id) else None
     if study is None:
         raise NotFound(f"No study {study_id}.", field="study")
     return study

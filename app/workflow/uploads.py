@@ -11,7 +11,7 @@ from sqlalchemy.orm import Session
 from app.ingest import ColumnRole, DesignTable, RawTable, load_canonical, read_upload, validate
 from app.store import audit
 from app.store.models import DataVersion, Study, User
-from app.workflow import NotFound, WorkflowError
+from app.workflow import NotFound, WorkflowError, in_id_range
 
 
 def sha256_bytes(data: bytes) -> str:
@@ -57,7 +57,7 @@ def add_data_version(session: Session, actor: User, study: Study, *, data: bytes
 
 
 def get_data_version(session: Session, version_id: int) -> DataVersion:
-    version = session.get(DataVersion, version_id)
+    version = session.get(DataVersion, version_id) if in_id_range(version_id) else None
     if version is None:
         raise NotFound(f"No data version {version_id}.", field="data_version")
     return version

@@ -90,7 +90,8 @@ def upgrade() -> None:
     )
     with op.batch_alter_table('login_failures', schema=None) as batch_op:
         batch_op.create_index(batch_op.f('ix_login_failures_at'), ['at'], unique=False)
-        batch_op.create_index(batch_op.f('ix_login_failures_remote_addr'), ['remote_addr'], unique=False)
+        batch_op.create_index(batch_op.f('ix_login_failures_remote_addr'), ['remote_addr'],
+                              unique=False)
         batch_op.create_index(batch_op.f('ix_login_failures_username'), ['username'], unique=False)
 
     op.create_table('users',
@@ -166,8 +167,10 @@ def upgrade() -> None:
     sa.Column('reason', sa.Text(), nullable=True),
     sa.Column('created_by_id', sa.Integer(), nullable=False),
     sa.Column('created_at', sa.DateTime(), nullable=False),
-    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'], name=op.f('fk_data_versions_created_by_id_users')),
-    sa.ForeignKeyConstraint(['study_id'], ['studies.id'], name=op.f('fk_data_versions_study_id_studies')),
+    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'],
+                            name=op.f('fk_data_versions_created_by_id_users')),
+    sa.ForeignKeyConstraint(['study_id'], ['studies.id'],
+                            name=op.f('fk_data_versions_study_id_studies')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_data_versions')),
     sa.UniqueConstraint('study_id', 'version', name=op.f('uq_data_versions_study_id'))
     )
@@ -190,14 +193,18 @@ def upgrade() -> None:
     sa.Column('created_at', sa.DateTime(), nullable=False),
     sa.Column('submitted_by_id', sa.Integer(), nullable=True),
     sa.Column('submitted_at', sa.DateTime(), nullable=True),
-    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'], name=op.f('fk_fits_created_by_id_users')),
-    sa.ForeignKeyConstraint(['data_version_id'], ['data_versions.id'], name=op.f('fk_fits_data_version_id_data_versions')),
+    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'],
+                            name=op.f('fk_fits_created_by_id_users')),
+    sa.ForeignKeyConstraint(['data_version_id'], ['data_versions.id'],
+                            name=op.f('fk_fits_data_version_id_data_versions')),
     sa.ForeignKeyConstraint(['study_id'], ['studies.id'], name=op.f('fk_fits_study_id_studies')),
-    sa.ForeignKeyConstraint(['submitted_by_id'], ['users.id'], name=op.f('fk_fits_submitted_by_id_users')),
+    sa.ForeignKeyConstraint(['submitted_by_id'], ['users.id'],
+                            name=op.f('fk_fits_submitted_by_id_users')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_fits'))
     )
     with op.batch_alter_table('fits', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_fits_data_version_id'), ['data_version_id'], unique=False)
+        batch_op.create_index(batch_op.f('ix_fits_data_version_id'), ['data_version_id'],
+                              unique=False)
         batch_op.create_index(batch_op.f('ix_fits_study_id'), ['study_id'], unique=False)
 
     op.create_table('signatures',
@@ -212,12 +219,14 @@ def upgrade() -> None:
     sa.Column('snapshot_sha256', sa.String(length=64), nullable=False),
     sa.Column('manifest_sha256', sa.String(length=64), nullable=False),
     sa.ForeignKeyConstraint(['fit_id'], ['fits.id'], name=op.f('fk_signatures_fit_id_fits')),
-    sa.ForeignKeyConstraint(['signer_id'], ['users.id'], name=op.f('fk_signatures_signer_id_users')),
+    sa.ForeignKeyConstraint(['signer_id'], ['users.id'],
+                            name=op.f('fk_signatures_signer_id_users')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_signatures'))
     )
     with op.batch_alter_table('signatures', schema=None) as batch_op:
         batch_op.create_index(batch_op.f('ix_signatures_fit_id'), ['fit_id'], unique=False)
-        batch_op.create_index(batch_op.f('ix_signatures_setpoint_id'), ['setpoint_id'], unique=False)
+        batch_op.create_index(batch_op.f('ix_signatures_setpoint_id'), ['setpoint_id'],
+                              unique=False)
 
 
     chain_head = sa.table("chain_head", sa.column("id"), sa.column("seq"), sa.column("hash"))

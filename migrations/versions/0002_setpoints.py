@@ -31,12 +31,15 @@ def upgrade() -> None:
     sa.Column('row_version', sa.Integer(), nullable=False),
     sa.Column('created_by_id', sa.Integer(), nullable=False),
     sa.Column('created_at', sa.DateTime(), nullable=False),
-    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'], name=op.f('fk_setpoint_proposals_created_by_id_users')),
-    sa.ForeignKeyConstraint(['study_id'], ['studies.id'], name=op.f('fk_setpoint_proposals_study_id_studies')),
+    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'],
+                            name=op.f('fk_setpoint_proposals_created_by_id_users')),
+    sa.ForeignKeyConstraint(['study_id'], ['studies.id'],
+                            name=op.f('fk_setpoint_proposals_study_id_studies')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_setpoint_proposals'))
     )
     with op.batch_alter_table('setpoint_proposals', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_setpoint_proposals_study_id'), ['study_id'], unique=False)
+        batch_op.create_index(batch_op.f('ix_setpoint_proposals_study_id'), ['study_id'],
+                              unique=False)
 
     op.create_table('confirmation_runs',
     sa.Column('id', sa.Integer(), nullable=False),
@@ -47,12 +50,15 @@ def upgrade() -> None:
     sa.Column('results_json', sa.Text(), nullable=False),
     sa.Column('created_by_id', sa.Integer(), nullable=False),
     sa.Column('created_at', sa.DateTime(), nullable=False),
-    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'], name=op.f('fk_confirmation_runs_created_by_id_users')),
-    sa.ForeignKeyConstraint(['setpoint_id'], ['setpoint_proposals.id'], name=op.f('fk_confirmation_runs_setpoint_id_setpoint_proposals')),
+    sa.ForeignKeyConstraint(['created_by_id'], ['users.id'],
+                            name=op.f('fk_confirmation_runs_created_by_id_users')),
+    sa.ForeignKeyConstraint(['setpoint_id'], ['setpoint_proposals.id'],
+                            name=op.f('fk_confirmation_runs_setpoint_id_setpoint_proposals')),
     sa.PrimaryKeyConstraint('id', name=op.f('pk_confirmation_runs'))
     )
     with op.batch_alter_table('confirmation_runs', schema=None) as batch_op:
-        batch_op.create_index(batch_op.f('ix_confirmation_runs_setpoint_id'), ['setpoint_id'], unique=False)
+        batch_op.create_index(batch_op.f('ix_confirmation_runs_setpoint_id'), ['setpoint_id'],
+                              unique=False)
 
 
 def downgrade() -> None:

@@ -97,7 +97,8 @@ def test_random_bytes(data, filename):
 
 @FUZZ
 @given(seed=st.sampled_from([rsm_csv(), screening_csv()]), edits=EDITS,
-       delimiter=st.sampled_from([b",", b";", b"\t"]), encoding=st.sampled_from(["utf-8", "latin-1"]))
+       delimiter=st.sampled_from([b",", b";", b"\t"]),
+       encoding=st.sampled_from(["utf-8", "latin-1"]))
 def test_mangled_csv(seed, edits, delimiter, encoding):
     text = seed.decode("utf-8").encode(encoding, errors="replace").replace(b",", delimiter)
     ingest(mutate(text, edits), "runs.csv")

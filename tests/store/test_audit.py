@@ -88,7 +88,8 @@ def test_swapped_events_are_named(db, backend):
                                                  "WHERE seq IN (2, 5)"))}
         # Move every field of event 2 into row 5's place and back (ids stay, contents swap);
         # unique columns are parked first.
-        s.execute(text("UPDATE audit_events SET seq = -seq, hash = 'x' || substr(hash, 2) WHERE seq IN (2, 5)"))
+        s.execute(text("UPDATE audit_events SET seq = -seq, hash = 'x' || substr(hash, 2) "
+                       "WHERE seq IN (2, 5)"))
         for target_seq, source_seq in ((2, 5), (5, 2)):
             src = rows[source_seq]._mapping
             sets = ", ".join(f"{c} = :{c}" for c in cols.split(", "))
@@ -106,7 +107,8 @@ def test_pure_verify_on_exported_events(db):
 
         from app.store.models import AuditEvent
 
-        events = [audit.event_to_dict(e) for e in s.scalars(select(AuditEvent).order_by(AuditEvent.id))]
+        stored = s.scalars(select(AuditEvent).order_by(AuditEvent.id))
+        events = [audit.event_to_dict(e) for e in stored]
         head = {"seq": 3, "hash": events[-1]["hash"]}
     assert audit.verify_chain(events, head).ok
     events[1]["reason"] = "inserted later"

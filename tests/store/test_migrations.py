@@ -1,4 +1,7 @@
-"""Upgrade → check → downgrade on an empty database (SQLite file and, when configured, PostgreSQL)."""
+"""Upgrade → check → downgrade on an empty database.
+
+Runs on a SQLite file and, when configured, on PostgreSQL.
+"""
 
 from __future__ import annotations
 

@@ -11,7 +11,8 @@ from app.store.models import AuditEvent, Study
 
 def test_create_list_view(client, actions, users, db):
     actions.login("erin")
-    response = actions.post("/studies/new", {"title": "Dryer study", "purpose": "Find the dew point",
+    response = actions.post("/studies/new", {"title": "Dryer study",
+                                              "purpose": "Find the dew point",
                                               "process": "Line 4 dryer"})
     assert response.status_code == 302
     assert "Dryer study" in client.get("/studies/").get_data(as_text=True)
@@ -28,9 +29,11 @@ def test_missing_title_and_bad_thresholds_name_the_field(client, actions, users,
     assert missing.status_code == 400 and "title is required" in missing.get_data(as_text=True)
     swapped = actions.post("/studies/new", {"title": "T", "review_below": "0.01",
                                              "fail_below": "0.05"})
-    assert swapped.status_code == 400 and "fail below &lt; review below" in swapped.get_data(as_text=True)
+    assert swapped.status_code == 400
+    assert "fail below &lt; review below" in swapped.get_data(as_text=True)
     words = actions.post("/studies/new", {"title": "T", "review_below": "five"})
-    assert words.status_code == 400 and "Review below must be a number" in words.get_data(as_text=True)
+    assert words.status_code == 400
+    assert "Review below must be a number" in words.get_data(as_text=True)
     with db.session() as s:
         assert s.scalar(select(Study.id)) is None
 

@@ -1,4 +1,7 @@
-"""Setpoints: engineers propose and record confirmation runs, approvers release, anyone signed in reads."""
+"""Setpoints: engineers propose and record confirmation runs, approvers release.
+
+Anyone signed in reads.
+"""
 
 POLICY = {
     "setpoints.new": {"engineer"},
