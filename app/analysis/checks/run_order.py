@@ -14,6 +14,7 @@ from .common import (
     judged,
     no_residual_information,
     not_applicable,
+    row_medians,
     run_positions,
     simulated,
 )
@@ -158,7 +159,7 @@ def runs_about_median(r: np.ndarray) -> np.ndarray:
     Wolfowitz (1940) moments for the numbers above (n₁) and below (n₂).
     """
     r = np.atleast_2d(np.asarray(r, dtype=float))
-    med = np.median(r, axis=1, keepdims=True)
+    med = row_medians(r)
     tol = TIE_TOLERANCE * np.max(np.abs(r), axis=1, keepdims=True)
     sign = np.where(r > med + tol, 1, np.where(r < med - tol, -1, 0))
     # carry the last non-tied sign forward so a tie neither starts nor breaks a run

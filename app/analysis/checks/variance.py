@@ -12,6 +12,7 @@ from .common import (
     level_groups,
     no_residual_information,
     not_applicable,
+    row_medians,
     simulated,
 )
 
@@ -137,18 +138,19 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
 
 def brown_forsythe_rows(r: np.ndarray, labels: np.ndarray) -> np.ndarray:
     """Brown–Forsythe W for each row of ``r`` with groups ``labels`` (0..k-1), vectorised."""
-    k = int(labels.max()) + 1
+    order = np.argsort(labels, kind="stable")
+    r = r[:, order]
+    counts = np.bincount(labels)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
     d = np.empty_like(r)
-    for g in range(k):
-        cols = labels == g
-        d[:, cols] = np.abs(r[:, cols] - np.median(r[:, cols], axis=1, keepdims=True))
-    indicator = (labels[:, None] == np.arange(k)[None, :]).astype(float)
-    counts = indicator.sum(axis=0)
-    means = (d @ indicator) / counts
+    for start, count in zip(starts, counts, strict=True):
+        block = r[:, start:start + count]
+        d[:, start:start + count] = np.abs(block - row_medians(block))
+    means = np.add.reduceat(d, starts, axis=1) / counts
     grand = d.mean(axis=1, keepdims=True)
     between = np.sum(counts * (means - grand) ** 2, axis=1)
-    within = np.sum((d - means[:, labels]) ** 2, axis=1)
-    n = r.shape[1]
+    within = np.sum((d - np.repeat(means, counts, axis=1)) ** 2, axis=1)
+    k, n = len(counts), r.shape[1]
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(within > 0, (between / (k - 1)) / (within / (n - k)), np.inf)
 
