@@ -196,7 +196,8 @@ def _suggest(lam_hat: float, ci: tuple[float, float],
     if inside:
         lam, name = min(inside, key=lambda c: abs(c[0] - lam_hat))
         return name, f"{text} excludes 1; try the {name} transform (lambda = {lam:g})."
-    return "boxcox", f"{text} excludes 1 and the usual choices; try Box-Cox with lambda = {lam_hat:.2f}."
+    return "boxcox", (f"{text} excludes 1 and the usual choices; "
+                      f"try Box-Cox with lambda = {lam_hat:.2f}.")
 
 
 def _suggest_at_edge(edge: float, ci: tuple[float, float],

@@ -112,8 +112,8 @@ def holm(observed: np.ndarray) -> np.ndarray:
 # moderate case of it, simulated for this design (same model matrix, same run order): when it
 # would clearly flag that defect at the review threshold in fewer than POWER_FLOOR of
 # experiments — twice the false-alarm rate at the default threshold — a pass would say nothing,
-# and the check says so instead of passing ("clearly": the rate's upper 95 % Monte Carlo bound
-# is below the floor). The defect sizes are those of `make calibrate` (unit error SD).
+# and the check says so instead of passing ("clearly": the rate is below the floor by three
+# Monte Carlo standard errors). The defect sizes are those of `make calibrate` (unit error SD).
 POWER_DRAWS = 500
 POWER_FLOOR = 0.10
 DEFECTS = {

@@ -62,7 +62,8 @@ def _aliasing_error(x: np.ndarray, labels: list[str], r: np.ndarray) -> None:
             raise AnalysisError(f"Term {name} does not vary over the runs used; drop it")
         partner_names = [labels[j] for j in partners]
         if len(partner_names) == 1:
-            raise AnalysisError(f"{name} is aliased with {partner_names[0]} in this design; drop one")
+            raise AnalysisError(
+                f"{name} is aliased with {partner_names[0]} in this design; drop one")
         raise AnalysisError(
             f"{name} is aliased with a combination of {', '.join(partner_names)} in this design; "
             "drop one of them")

@@ -3,7 +3,8 @@
 Each coded term prod_i x_i^p_i with x_i = (v_i - c_i) / h_i is expanded into monomials of the
 actual values v_i and like monomials are collected. Block effects are left out: the equation is
 the average over blocks. Verified by reproducing the NIST StRD certified polynomial coefficients
-(Norris, Pontius, Wampler, Filip) from fits made in coded units (tests/analysis/test_reference_nist.py).
+(Norris, Pontius, Wampler, Filip) from fits made in coded units
+(tests/analysis/test_reference_nist.py).
 """
 
 from __future__ import annotations
@@ -71,7 +72,8 @@ def equations(
 ) -> dict:
     """``{"coded": str, "actual": str, "actual_terms": [{term, coefficient}], "note": str}``."""
     names = tuple(f.name for f in factors)
-    coded_pairs = [("Intercept", intercept)] + [(t.name(names), b) for t, b in zip(terms, coefs, strict=True)]
+    coded_pairs = [("Intercept", intercept)] + [
+        (t.name(names), b) for t, b in zip(terms, coefs, strict=True)]
     poly = actual_polynomial(intercept, terms, coefs, factors)
     ordered = sorted(poly.items(), key=lambda kv: (sum(kv[0]), tuple(-e for e in kv[0])))
     actual_pairs = [(_monomial_name(e, names), v) for e, v in ordered]
@@ -80,5 +82,6 @@ def equations(
         "actual": _render(response_label, actual_pairs),
         "actual_terms": [{"term": n, "coefficient": v} for n, v in actual_pairs],
         "coded_terms": [{"term": n, "coefficient": v} for n, v in coded_pairs],
-        "note": "block effects are averaged out; factors in coded units are x = (value - centre) / half-range",
+        "note": "block effects are averaged out; "
+                "factors in coded units are x = (value - centre) / half-range",
     }

@@ -160,7 +160,8 @@ def fit_statistics(ls: LeastSquares, y: np.ndarray, leverage: np.ndarray) -> dic
         press_terms = ls.residuals / (1.0 - leverage)
     press = float(np.sum(press_terms**2)) if np.all(leverage < 1 - 1e-10) else float("nan")
     r2 = 1.0 - ls.sse / sst if sst > 0 else float("nan")
-    adj = 1.0 - (ls.sse / ls.df_resid) / (sst / (ls.n - 1)) if ls.df_resid > 0 and sst > 0 else float("nan")
+    adj = (1.0 - (ls.sse / ls.df_resid) / (sst / (ls.n - 1))
+           if ls.df_resid > 0 and sst > 0 else float("nan"))
     pred = 1.0 - press / sst if sst > 0 and np.isfinite(press) else float("nan")
     return {"r_squared": r2, "adj_r_squared": adj, "pred_r_squared": pred, "s": ls.s,
             "press": press, "sse": ls.sse, "df_resid": ls.df_resid, "n": ls.n, "p": ls.p}

@@ -207,7 +207,9 @@ class FitResult:
             return pd.DataFrame([{k: v for k, v in c.to_dict().items() if k != "details"}
                                  for c in self.checks]).set_index("id")
         if table == "effects":
-            return pd.DataFrame([e.to_dict() for e in self.effects], columns=["term", "effect", "coefficient"])
+            return pd.DataFrame([e.to_dict() for e in self.effects],
+                                columns=["term", "effect", "coefficient"])
         if table == "runs":
             return self.runs.to_frame()
-        raise ValueError(f"Unknown table '{table}': use coefficients, anova, checks, effects or runs")
+        raise ValueError(
+            f"Unknown table '{table}': use coefficients, anova, checks, effects or runs")

@@ -74,7 +74,8 @@ class Thresholds:
     def __post_init__(self) -> None:
         if not 0.0 < self.fail <= self.review < 1.0:
             raise AnalysisError(
-                f"Thresholds need 0 < fail <= review < 1 (got review={self.review}, fail={self.fail})"
+                f"Thresholds need 0 < fail <= review < 1 "
+                f"(got review={self.review}, fail={self.fail})"
             )
 
     def verdict(self, p_value: float | None) -> str:

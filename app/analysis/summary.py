@@ -22,11 +22,13 @@ def summary_text(result: FitResult) -> str:
               f"  {'term':<24}{'estimate':>12}{'std error':>12}{'t':>9}{'p':>10}{'VIF':>7}"]
     for c in result.coefficients:
         lines.append(f"  {c.term:<24}{_num(c.estimate):>12}{_num(c.std_error):>12}"
-                     f"{_num(c.t_value, '.3g'):>9}{_num(c.p_value, '.3g'):>10}{_num(c.vif, '.3g'):>7}")
+                     f"{_num(c.t_value, '.3g'):>9}{_num(c.p_value, '.3g'):>10}"
+                     f"{_num(c.vif, '.3g'):>7}")
     lines += ["", f"ANOVA ({result.anova_method})",
               f"  {'source':<24}{'df':>5}{'sum sq':>13}{'mean sq':>13}{'F':>10}{'p':>10}"]
     for r in result.anova:
-        lines.append(f"  {r['source']:<24}{r['df']:>5}{_num(r['sum_sq']):>13}{_num(r['mean_sq']):>13}"
+        lines.append(f"  {r['source']:<24}{r['df']:>5}"
+                     f"{_num(r['sum_sq']):>13}{_num(r['mean_sq']):>13}"
                      f"{_num(r['f_value'], '.3g'):>10}{_num(r['p_value'], '.3g'):>10}")
     f = result.fit
     lines += ["", f"R² {_num(f['r_squared'])}   adjusted R² {_num(f['adj_r_squared'])}   "
@@ -34,7 +36,8 @@ def summary_text(result: FitResult) -> str:
               "", "Equation (actual units): " + result.equation["actual"]]
     if result.effects and result.lenth:
         lz = result.lenth
-        lines += ["", f"Effects (Lenth PSE {_num(lz['pse'])}, ME {_num(lz['me'])}, SME {_num(lz['sme'])})"]
+        lines += ["", f"Effects (Lenth PSE {_num(lz['pse'])}, ME {_num(lz['me'])}, "
+                      f"SME {_num(lz['sme'])})"]
         lines += [f"  {e.term:<24}{_num(e.effect):>12}" for e in result.effects]
     lines += ["", "Residual checks"]
     cal = result.calibration

@@ -27,7 +27,8 @@ def check_domain(y: np.ndarray, transform: str, rows: np.ndarray, response: str)
     if bad.any():
         row = rows[int(np.argmax(bad))]
         raise AnalysisError(
-            f"Transform '{transform}' needs {need} values of '{response}': row {row} has {y[bad][0]:g}"
+            f"Transform '{transform}' needs {need} values of '{response}': "
+            f"row {row} has {y[bad][0]:g}"
         )
 
 

@@ -268,7 +268,8 @@ def cooks_distance(results: dict) -> Chart:
     limit = _check(results, "influence").get("details", {}).get("cooks_review_limit")
     bars = (alt.Chart(name="runs").mark_bar().encode(
         x=alt.X("row:O", title="Row"), y=alt.Y("cooks_distance:Q", title="Cook's distance"),
-        color=_colour(), tooltip=_tooltip(alt.Tooltip("cooks_distance:Q", format=".3g", title="Cook's distance")))
+        color=_colour(),
+        tooltip=_tooltip(alt.Tooltip("cooks_distance:Q", format=".3g", title="Cook's distance")))
         .add_params(_pick()))
     layers = [bars] + ([_rules([{"at": limit}], LIMIT_REVIEW)] if limit else [])
     spec = _finish(layers, data, "Cook's distance by run")
@@ -308,7 +309,8 @@ def half_normal(results: dict) -> Chart | None:
     dots = alt.Chart(name="effects").mark_point(filled=True, color=POINT, size=60).encode(
         x=alt.X("quantile:Q", title="Half-normal quantile"),
         y=alt.Y("abs_effect:Q", title="|Effect|"),
-        tooltip=[alt.Tooltip("term:N", title="Term"), alt.Tooltip("abs_effect:Q", format=".4g", title="|Effect|")])
+        tooltip=[alt.Tooltip("term:N", title="Term"),
+                 alt.Tooltip("abs_effect:Q", format=".4g", title="|Effect|")])
     labels = alt.Chart().mark_text(align="left", dx=6, fontSize=10, color=REFERENCE).encode(
         x="quantile:Q", y="abs_effect:Q", text="term:N")
     layers = [dots, labels]

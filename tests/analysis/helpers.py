@@ -54,7 +54,8 @@ def box_behnken3(centre: int = 3) -> np.ndarray:
     return np.vstack([np.array(rows), np.zeros((centre, 3))])
 
 
-def frame_from(coded: np.ndarray, y: np.ndarray, names=("A", "B", "C", "D", "E"), **extra) -> pd.DataFrame:
+def frame_from(coded: np.ndarray, y: np.ndarray, names=("A", "B", "C", "D", "E"),
+               **extra) -> pd.DataFrame:
     data = {names[j]: coded[:, j] for j in range(coded.shape[1])}
     data["Y"] = y
     data.update(extra)

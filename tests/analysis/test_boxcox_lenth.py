@@ -57,7 +57,8 @@ def test_splett3_saturated_effects_and_lenth():
     # source: e-Handbook 5.6.1 (SPLETT3.DAT): effects X1 = 3.1025 and X2 = -0.8675 (recalled from
     # memory and recomputed by hand from the 8 responses below)
     frame = _splett3()
-    spec = FitSpec(response="Impedance", factors=(Factor("Turns"), Factor("Distance"), Factor("Gauge")),
+    spec = FitSpec(response="Impedance",
+                   factors=(Factor("Turns"), Factor("Distance"), Factor("Gauge")),
                    run_order="Run", model="full")
     result = analyse(frame, spec)
     assert result.design.kind == "two_level_full_factorial"
@@ -77,7 +78,8 @@ def test_splett3_saturated_effects_and_lenth():
     pse = 1.5 * np.median(c[c < 2.5 * s0])
     assert_allclose(result.lenth["pse"], pse, rtol=1e-12)
     assert_allclose(result.lenth["me"], stats.t.ppf(0.975, 7 / 3) * pse, rtol=1e-12)
-    assert_allclose(result.lenth["sme"], stats.t.ppf((1 + 0.95 ** (1 / 7)) / 2, 7 / 3) * pse, rtol=1e-12)
+    assert_allclose(result.lenth["sme"], stats.t.ppf((1 + 0.95 ** (1 / 7)) / 2, 7 / 3) * pse,
+                    rtol=1e-12)
     assert "Turns" in result.lenth["suggested_terms"]
     for check in result.checks:
         assert check.verdict == "not_applicable", check.id
@@ -105,8 +107,10 @@ def test_catapult_fraction_with_centre_points():
     spec = FitSpec(response="Distance", factors=tuple(Factor(n) for n in names), run_order="Seq",
                    model="interaction")
     result = analyse(frame, spec)
-    assert result.design.kind == "general"  # the 'centre' runs have Bands at ±1, so not pure centres
-    spec_lin = FitSpec(response="Distance", factors=tuple(Factor(n) for n in names), run_order="Seq")
+    # the 'centre' runs have Bands at ±1, so not pure centres
+    assert result.design.kind == "general"
+    spec_lin = FitSpec(response="Distance", factors=tuple(Factor(n) for n in names),
+                       run_order="Seq")
     cube = frame.iloc[:16]
     res16 = analyse(cube, spec_lin)
     assert res16.design.kind == "two_level_fractional_factorial"

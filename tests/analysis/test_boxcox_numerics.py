@@ -45,7 +45,8 @@ def _reference_estimate(y: np.ndarray) -> tuple[float, tuple[float, float]]:
     """lambda-hat and the 95 % profile interval from the statsmodels profile."""
     grid = np.linspace(-3, 3, 61)
     start = grid[int(np.argmax([_reference_loglik(g, y) for g in grid]))]
-    opt = optimize.minimize_scalar(lambda v: -_reference_loglik(v, y), bounds=(start - 0.1, start + 0.1),
+    opt = optimize.minimize_scalar(lambda v: -_reference_loglik(v, y),
+                                   bounds=(start - 0.1, start + 0.1),
                                    method="bounded", options={"xatol": 1e-8})
     cut = -opt.fun - HALF_CHI2
     lo = optimize.brentq(lambda v: _reference_loglik(v, y) - cut, -3, opt.x)
@@ -88,7 +89,8 @@ def test_narrow_spread_is_not_read_as_a_confident_lambda():
     x = CODED
     y = 100 + 2 * x[:, 0] - 1.5 * x[:, 1] + x[:, 0] * x[:, 1] - x[:, 2] ** 2 + rng.normal(size=20)
     cols = [np.ones(20)] + [x[:, j] for j in range(3)]
-    cols += [x[:, 0] * x[:, 1], x[:, 0] * x[:, 2], x[:, 1] * x[:, 2]] + [x[:, j] ** 2 for j in range(3)]
+    cols += [x[:, 0] * x[:, 1], x[:, 0] * x[:, 2], x[:, 1] * x[:, 2]]
+    cols += [x[:, j] ** 2 for j in range(3)]
     xq = np.column_stack(cols)
     result = boxcox_profile(y, scaled_qr(xq)[0])
     for lam, value in result.profile[::5]:
@@ -140,7 +142,8 @@ def test_lambda_at_the_edge_is_reported_not_suggested():
     rng = np.random.default_rng(5)
     y = (20 + 6 * x[:, 0] - 4 * x[:, 1] + 3 * x[:, 2] + 0.3 * rng.normal(size=16)) ** 0.25
     xm = np.column_stack([np.ones(16), x])
-    assert _reference_loglik(3.0, y, xm) > _reference_loglik(2.9, y, xm) > _reference_loglik(2.5, y, xm)
+    assert (_reference_loglik(3.0, y, xm) > _reference_loglik(2.9, y, xm)
+            > _reference_loglik(2.5, y, xm))
     result = boxcox_profile(y, scaled_qr(xm)[0])
     assert result.lambda_hat is None and result.at_edge
     assert "edge of the range searched, [-3, 3]" in result.reason

@@ -29,7 +29,8 @@ def _response() -> np.ndarray:
 def test_lm_and_p_agree_with_statsmodels_whatever_the_offset_or_unit(offset, scale):
     y = _response()
     plain = least_squares(X, y)
-    lm_ref, p_ref, _, _ = het_breuschpagan(plain.residuals, np.column_stack([np.ones(20), plain.fitted]))
+    lm_ref, p_ref, _, _ = het_breuschpagan(plain.residuals,
+                                           np.column_stack([np.ones(20), plain.fitted]))
     fit = least_squares(X, offset + scale * y)
     lm, p, df = breusch_pagan(fit.residuals, fit.fitted)
     # before the fix: at offsets of 1e8 and more, rank([1, fitted]) came out 1, so df = 0 and p = 0

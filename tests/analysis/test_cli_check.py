@@ -29,7 +29,8 @@ def _run(args):
 
 def test_summary_lists_every_check_verdict(ccd_csv):
     res = _run([ccd_csv, "--response", "Yield", "--factors", "Feed rate,C,I", "--run-order", "Run",
-                "--model", "quadratic", "--levels", "Feed rate=35:45", "--exclude", "4=spilled sample"])
+                "--model", "quadratic", "--levels", "Feed rate=35:45",
+                "--exclude", "4=spilled sample"])
     assert res.exit_code == 0, res.output
     assert "Residual checks" in res.output
     for cid in ("normality", "run_order_autocorrelation", "lack_of_fit", "pattern_factor:Feed rate",
@@ -40,7 +41,8 @@ def test_summary_lists_every_check_verdict(ccd_csv):
 
 def test_json_output_with_terms_named_c_and_i(ccd_csv):
     res = _run([ccd_csv, "--response", "Yield", "--factors", "Feed rate,C,I", "--coded",
-                "--terms", "Feed rate,C,I,C:I,I^2", "--json", "--thresholds", "review=0.1,fail=0.02"])
+                "--terms", "Feed rate,C,I,C:I,I^2", "--json",
+                "--thresholds", "review=0.1,fail=0.02"])
     assert res.exit_code == 0, res.output
     doc = json.loads(res.output)
     assert doc["terms"] == ["Feed rate", "C", "I", "C:I", "I^2"]

@@ -97,7 +97,8 @@ def test_exact_p_is_bracketed_by_5pct_bounds_for_random_designs(key):
         assert exact_p_positive(du, nu) >= 0.05 - 1e-3
 
 
-@pytest.mark.parametrize("key", [(n, k) for (n, k) in sorted(TABLE1) if n in (10, 20, 35, 60, 100, 200)])
+@pytest.mark.parametrize(
+    "key", [(n, k) for (n, k) in sorted(TABLE1) if n in (10, 20, 35, 60, 100, 200)])
 def test_exact_p_is_bracketed_by_1pct_bounds_for_random_designs(key):
     # source: Savin & White (1977) 1 % table, 3 decimals (slack for that rounding)
     n, k = key

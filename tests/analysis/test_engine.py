@@ -20,7 +20,8 @@ ABC = (Factor("A"), Factor("B"), Factor("C"))
 def _ccd_frame(seed=0, alpha=1.682, centre=6):
     x = ccd(3, alpha, centre)
     rng = np.random.default_rng(seed)
-    y = 50 + 3 * x[:, 0] - 2 * x[:, 1] + x[:, 0] * x[:, 1] - 2 * x[:, 2] ** 2 + rng.normal(size=len(x))
+    y = (50 + 3 * x[:, 0] - 2 * x[:, 1] + x[:, 0] * x[:, 1] - 2 * x[:, 2] ** 2
+         + rng.normal(size=len(x)))
     return frame_from(x, y, order=rng.permutation(len(x)) + 1)
 
 
@@ -85,7 +86,8 @@ def test_result_document_keys_and_determinism():
     spec = FitSpec(response="Y", factors=ABC, run_order="order", model="quadratic",
                    exclusions=((3, "thermocouple failed"),))
     a = json.dumps(analyse(frame, spec).to_dict(), sort_keys=True)
-    b = json.dumps(analyse(frame.copy(), FitSpec.from_dict(spec.to_dict())).to_dict(), sort_keys=True)
+    b = json.dumps(analyse(frame.copy(), FitSpec.from_dict(spec.to_dict())).to_dict(),
+                   sort_keys=True)
     assert a == b
     doc = json.loads(a)
     for key in ("design", "terms", "coefficients", "anova", "fit", "runs", "checks", "effects",
@@ -94,7 +96,8 @@ def test_result_document_keys_and_determinism():
         assert key in doc
     assert doc["design"]["pure_error_df"] == 5
     run3 = doc["runs"][2]
-    assert run3["row"] == 3 and run3["excluded"] and run3["exclusion_reason"] == "thermocouple failed"
+    assert run3["row"] == 3 and run3["excluded"]
+    assert run3["exclusion_reason"] == "thermocouple failed"
     assert run3["studentized"] is None and run3["fitted"] is not None
     assert doc["fit"]["n"] == 19
     ids = [c["id"] for c in doc["checks"]]
@@ -119,7 +122,8 @@ def test_thresholds_drive_verdicts():
     strict = analyse(frame, FitSpec(response="Y", factors=ABC, model="quadratic",
                                     thresholds=Thresholds(review=0.999, fail=0.998)))
     p = strict.check("normality").p_value
-    assert strict.check("normality").verdict == ("fail" if p < 0.998 else "review" if p < 0.999 else "pass")
+    expected = "fail" if p < 0.998 else "review" if p < 0.999 else "pass"
+    assert strict.check("normality").verdict == expected
     assert strict.to_dict()["spec"]["thresholds"] == {"review": 0.999, "fail": 0.998}
 
 
@@ -142,7 +146,8 @@ def test_coefficients_and_prediction_match_statsmodels():
     row = np.array([[1, xa, xb, xc, xa * xb, xa * xc, xb * xc, xa**2, xb**2, xc**2]])
     pr = ols.get_prediction(row).summary_frame(alpha=0.05)
     assert_allclose(got["predicted"], pr["mean"].iloc[0], rtol=1e-10)
-    assert_allclose(got["ci"], [pr["mean_ci_lower"].iloc[0], pr["mean_ci_upper"].iloc[0]], rtol=1e-10)
+    assert_allclose(got["ci"], [pr["mean_ci_lower"].iloc[0], pr["mean_ci_upper"].iloc[0]],
+                    rtol=1e-10)
     assert_allclose(got["pi"], [pr["obs_ci_lower"].iloc[0], pr["obs_ci_upper"].iloc[0]], rtol=1e-10)
     assert_allclose(result.fit["r_squared"], ols.rsquared, rtol=1e-12)
     assert_allclose(result.fit["adj_r_squared"], ols.rsquared_adj, rtol=1e-12)
@@ -169,7 +174,8 @@ def test_transform_domain_error_names_the_row():
 
 def test_boxcox_transform_uses_estimated_lambda_and_reports_profile():
     frame = _ccd_frame(seed=5)
-    result = analyse(frame, FitSpec(response="Y", factors=ABC, model="quadratic", transform="boxcox"))
+    result = analyse(frame, FitSpec(response="Y", factors=ABC, model="quadratic",
+                                    transform="boxcox"))
     assert result.transform["lambda"] == round(result.boxcox["lambda_hat"], 2)
     assert len(result.boxcox["profile"]) == 31
 

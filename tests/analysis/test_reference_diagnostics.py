@@ -34,7 +34,8 @@ def test_anderson_darling_matches_r_nortest(case):
     assert_allclose(a2, ref["ref_A2"], rtol=1e-10)
     assert_allclose(p, ref["ref_p"], rtol=1e-8)
     # scipy cross-check: scipy.stats.anderson reports the unmodified A²
-    assert_allclose(a2, stats.anderson(data, dist="norm", method="interpolate").statistic, rtol=1e-10)
+    assert_allclose(a2, stats.anderson(data, dist="norm", method="interpolate").statistic,
+                    rtol=1e-10)
 
 
 def _macrodata():
@@ -52,17 +53,18 @@ def test_macrodata_regression_anderson_darling_and_ljung_box_match_r():
     ref = REF["macrodata_regression"]
     assert_allclose(ls.coef, ref["params_R"], rtol=1e-10)
     a2, _, p = anderson_darling(ls.residuals)
-    assert_allclose([a2, p], [ref["ad_R"]["all_resid"]["statistic"], ref["ad_R"]["all_resid"]["pvalue"]],
-                    rtol=1e-8)
+    ad = ref["ad_R"]["all_resid"]
+    assert_allclose([a2, p], [ad["statistic"], ad["pvalue"]], rtol=1e-8)
     a2, _, p = anderson_darling(ls.residuals[:20])
-    assert_allclose([a2, p], [ref["ad_R"]["first20"]["statistic"], ref["ad_R"]["first20"]["pvalue"]],
-                    rtol=1e-8)
+    ad = ref["ad_R"]["first20"]
+    assert_allclose([a2, p], [ad["statistic"], ad["pvalue"]], rtol=1e-8)
     q, qp = ljung_box(ls.residuals, 4)
-    assert_allclose([q, qp], [ref["ljung_box_R"]["lag4"]["Q"], ref["ljung_box_R"]["lag4"]["p"]], rtol=1e-9)
+    lb = ref["ljung_box_R"]["lag4"]
+    assert_allclose([q, qp], [lb["Q"], lb["p"]], rtol=1e-9)
     n = len(ls.residuals)
     q, qp = ljung_box(ls.residuals, min(40, n // 2 - 2))
-    assert_allclose([q, qp], [ref["ljung_box_R"]["default_lag"]["Q"], ref["ljung_box_R"]["default_lag"]["p"]],
-                    rtol=1e-9)
+    lb = ref["ljung_box_R"]["default_lag"]
+    assert_allclose([q, qp], [lb["Q"], lb["p"]], rtol=1e-9)
     q, _ = ljung_box(ls.residuals[:30], 13)
     assert_allclose(q, ref["ljung_box_R"]["first30_lag13"]["Q"], rtol=1e-9)
 
@@ -79,11 +81,13 @@ def test_ljung_box_matches_julia_and_statsmodels():
     assert_allclose(q, lj["expected"]["LjungBox_h0_lag5_dof2"]["Q"], rtol=1e-10)
     # statsmodels cross-check
     sm_q = acorr_ljungbox(h0, lags=[7], return_df=True)
-    assert_allclose(ljung_box(h0, 7), [sm_q["lb_stat"].iloc[0], sm_q["lb_pvalue"].iloc[0]], rtol=1e-10)
+    assert_allclose(ljung_box(h0, 7), [sm_q["lb_stat"].iloc[0], sm_q["lb_pvalue"].iloc[0]],
+                    rtol=1e-10)
 
 
 def _gear():
-    rows = [line.split() for line in (REFERENCE / "GEAR.DAT").read_text().splitlines()[25:] if line.strip()]
+    lines = (REFERENCE / "GEAR.DAT").read_text().splitlines()[25:]
+    rows = [line.split() for line in lines if line.strip()]
     return np.array([float(r[0]) for r in rows]), np.array([float(r[1]) for r in rows])
 
 

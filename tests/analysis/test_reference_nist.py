@@ -85,8 +85,9 @@ def test_longley_through_analyse_with_six_factors():
     names = tuple(f"x{j + 1}" for j in range(6))
     frame = pd.DataFrame({n: xs[:, j] for j, n in enumerate(names)} | {"y": d["y"]},
                          index=pd.RangeIndex(1, 17))
-    spec = FitSpec(response="y", factors=tuple(Factor(n, float(xs[:, j].min()), float(xs[:, j].max()))
-                                               for j, n in enumerate(names)), model="linear")
+    factors = tuple(Factor(n, float(xs[:, j].min()), float(xs[:, j].max()))
+                    for j, n in enumerate(names))
+    spec = FitSpec(response="y", factors=factors, model="linear")
     result = analyse(frame, spec)
     actual = {t["term"]: t["coefficient"] for t in result.equation["actual_terms"]}
     assert_allclose([actual["Intercept"]] + [actual[n] for n in names], np.array(d["beta"], float),

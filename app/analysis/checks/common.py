@@ -105,12 +105,12 @@ def judged(check_id: str, question: str, method: str, chart: str, ctx: CheckCont
 
 
 def clearly_below_floor(rate: float) -> bool:
-    """True when even the upper 95 % bound of the simulated detection rate is below the floor.
+    """True when the simulated detection rate is below the floor by three standard errors.
 
     A rate near the floor keeps the check: only a design that clearly cannot detect the defect
-    is told so, and Monte Carlo error does not flip the decision between alike factors.
+    is told so, and Monte Carlo error seldom splits alike factors of a symmetric design.
     """
-    return rate + 2.0 * np.sqrt(rate * (1.0 - rate) / POWER_DRAWS) < POWER_FLOOR
+    return rate + 3.0 * np.sqrt(rate * (1.0 - rate) / POWER_DRAWS) < POWER_FLOOR
 
 
 def simulated(ctx: CheckContext, statistic, *, textbook_p: float | None = None,

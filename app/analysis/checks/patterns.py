@@ -23,14 +23,16 @@ from .common import (
 )
 
 FITTED_Q = "Any curve or slope vs fitted values?"
-FITTED_M = "one-degree-of-freedom curvature test: F for adding (fitted)² to the model (after Tukey 1949)"
+FITTED_M = ("one-degree-of-freedom curvature test: F for adding (fitted)² to the model "
+            "(after Tukey 1949)")
 FACTOR_Q = "Any curve vs a factor?"
 FACTOR_M = ("lack of fit across this factor's levels: F for adding one indicator per level "
             "(x² and x³ for a factor with more than 12 levels)")
 COV_Q = ("Do residuals follow a recorded variable left out of the model (operator, raw-material "
          "lot, ambient humidity)?")
 COV_NUM_M = "partial correlation of residuals with the covariate: F for adding it to the model"
-COV_CAT_M = "one-way test of residuals across the covariate's categories: F for adding its indicators"
+COV_CAT_M = ("one-way test of residuals across the covariate's categories: "
+             "F for adding its indicators")
 LOF_Q = "Is the model form wrong?"
 LOF_M = "lack-of-fit F test against pure error from replicated runs"
 CURV_Q = "Do centre points sit off the plane?"
@@ -63,7 +65,8 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
                      "No curve in the residuals against the fitted values.",
                      "Residuals curve against the fitted values: the model may need square or "
                      "interaction terms, or the response a transformation (see Box-Cox).",
-                     na_reason="not applicable: the squared fitted values add nothing the model lacks")
+                     na_reason="not applicable: the squared fitted values add nothing "
+                               "the model lacks")
 
 
 def check_factor(ctx: CheckContext, j: int) -> CheckResult:
@@ -160,7 +163,8 @@ def check_covariate(ctx: CheckContext, name: str) -> CheckResult:
         missing = ~np.isfinite(v)
     else:
         v = np.asarray(values, dtype=object)
-        missing = np.array([x is None or (isinstance(x, float) and np.isnan(x)) or x == "" for x in v])
+        missing = np.array([x is None or (isinstance(x, float) and np.isnan(x)) or x == ""
+                            for x in v])
     if missing.any():
         rows = ", ".join(str(int(r)) for r in ctx.rows[missing][:5])
         return not_applicable(cid, COV_Q, method, chart,
@@ -169,9 +173,11 @@ def check_covariate(ctx: CheckContext, name: str) -> CheckResult:
     details: dict = {"kind": kind}
     if kind == "numeric":
         if np.ptp(v) == 0:
-            return not_applicable(cid, COV_Q, method, chart, f"not applicable: '{name}' is constant")
+            return not_applicable(cid, COV_Q, method, chart,
+                                  f"not applicable: '{name}' is constant")
         z = (v - v.mean()) / np.ptp(v)
-        details["correlation_with_residuals"] = float(np.corrcoef(v, e)[0, 1]) if np.std(e) > 0 else None
+        details["correlation_with_residuals"] = (
+            float(np.corrcoef(v, e)[0, 1]) if np.std(e) > 0 else None)
     else:
         labels, codes = np.unique(v.astype(str), return_inverse=True)
         codes = codes.ravel()
@@ -190,7 +196,8 @@ def check_covariate(ctx: CheckContext, name: str) -> CheckResult:
                      "response; consider blocking on it or adding it as a factor in a new study."
                      + _confounded_note(name, partners),
                      details,
-                     na_reason=f"not applicable: '{name}' is already explained by the model's columns")
+                     na_reason=f"not applicable: '{name}' is already explained "
+                               "by the model's columns")
 
 
 def _confounded_note(name: str, partners: list[str] | None) -> str:
@@ -208,7 +215,8 @@ def check_lack_of_fit(ctx: CheckContext) -> CheckResult:
     pe_ss, pe_df = pure_error(ctx.ls.fitted + ctx.ls.residuals, ctx.groups)
     if pe_df == 0:
         return not_applicable(cid, LOF_Q, LOF_M, chart,
-                              "not applicable: no settings were replicated, so there is no pure error")
+                              "not applicable: no settings were replicated, "
+                              "so there is no pure error")
     lof_df = ctx.ls.df_resid - pe_df
     if lof_df <= 0:
         return not_applicable(cid, LOF_Q, LOF_M, chart,

@@ -47,8 +47,8 @@ def ljung_box(x: np.ndarray, lags: int) -> tuple[float, float]:
 
 
 def _log_comb(a: np.ndarray | int, b: np.ndarray | int) -> np.ndarray:
-    return special.gammaln(np.asarray(a) + 1) - special.gammaln(np.asarray(b) + 1) - special.gammaln(
-        np.asarray(a) - np.asarray(b) + 1)
+    return (special.gammaln(np.asarray(a) + 1) - special.gammaln(np.asarray(b) + 1)
+            - special.gammaln(np.asarray(a) - np.asarray(b) + 1))
 
 
 def runs_distribution(n1: int, n2: int) -> tuple[np.ndarray, np.ndarray]:

@@ -1,4 +1,5 @@
-"""Constant-variance checks: Breusch–Pagan on fitted values; Brown–Forsythe and Bartlett by level."""
+"""Constant-variance checks: Breusch–Pagan on fitted values; Brown–Forsythe and Bartlett by level.
+"""
 
 from __future__ import annotations
 
@@ -67,7 +68,8 @@ def _one_way_f(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, in
     within = float(np.sum((values - means[labels]) ** 2))
     df1, df2 = k - 1, n - k
     if within <= 0:
-        return float("inf") if between > 0 else float("nan"), 0.0 if between > 0 else float("nan"), df1, df2
+        return (float("inf") if between > 0 else float("nan"),
+                0.0 if between > 0 else float("nan"), df1, df2)
     f = (between / df1) / (within / df2)
     return f, float(special.fdtrc(df1, df2, f)), df1, df2
 

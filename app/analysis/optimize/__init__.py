@@ -148,7 +148,8 @@ def _parse_cli_goal(goal: str) -> tuple[str, float | None]:
         try:
             value = float(text.split("=", 1)[1])
         except ValueError as err:
-            raise SetpointError(f"Goal '{goal}': target=VALUE needs a number", field="goal") from err
+            raise SetpointError(f"Goal '{goal}': target=VALUE needs a number",
+                                field="goal") from err
         if np.isfinite(value):
             return "target", value
     raise SetpointError(f"Goal '{goal}' is not one of maximize, minimize, target=VALUE",

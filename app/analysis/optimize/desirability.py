@@ -154,7 +154,8 @@ def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None) 
             missing = "low" if low is None else "high"
             raise SetpointError(f"Goal for '{response}': give {missing} (no observed values to "
                                 "take it from)", field=missing)
-        limits_from = "observed range" if low is None and high is None else "request and observed range"
+        limits_from = ("observed range" if low is None and high is None
+                       else "request and observed range")
         low = observed[0] if low is None else low
         high = observed[1] if high is None else high
     if low is not None and high is not None and not low < high:
