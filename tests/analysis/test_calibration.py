@@ -230,3 +230,26 @@ def test_normality_is_not_applicable_with_two_residual_df():
     normality = result.check("normality")
     assert normality.verdict == "not_applicable"
     assert "2 residual degree" in normality.message
+
+
+def test_spread_by_level_with_two_runs_per_level_is_not_applicable():
+    # three levels of A with two runs each: |x - median| comes in equal pairs, no spread to compare
+    a = np.repeat([-1.0, 0.0, 1.0], 2)
+    b = np.tile([-1.0, 1.0], 3)
+    design = np.column_stack([a, b])
+    result = _fit(design, np.random.default_rng(12).normal(size=6), model="linear")
+    c = result.check("constant_variance_factor:A")
+    assert c.verdict == "not_applicable" and "3 or more runs" in c.message
+
+
+def test_outliers_are_judged_on_the_studentized_residual_the_charts_use():
+    design = _design_24_cp()
+    rng = np.random.default_rng(21)
+    y = rng.normal(size=20)
+    y[7] += 4.5
+    result = _fit(design, y, model="linear")
+    out = result.check("outliers")
+    r = result.runs.studentized
+    assert_allclose(out.statistic, np.nanmax(np.abs(r)), rtol=1e-12)
+    assert set(out.runs) == {int(row) for row, v in zip(result.runs.row, r, strict=True)
+                             if abs(v) > out.details["limit"]}

@@ -199,3 +199,13 @@ def test_no_run_order_means_no_run_order_chart(rsm):
     results, _ = rsm
     stripped = {**results, "runs": [{**r, "run_order": None} for r in results["runs"]]}
     assert charts.run_order(stripped) is None
+
+
+def test_leverage_chart_draws_the_outlier_limit_on_the_studentized_scale(rsm):
+    results, _ = rsm
+    chart = charts.leverage(results)
+    assert chart.spec["layer"][-1]["encoding"]["y"]["field"] == "studentized"
+    limit = next(c for c in results["checks"] if c["id"] == "outliers")["details"]["limit"]
+    ats = sorted(v["at"] for layer in chart.spec["layer"] if "data" in layer
+                 for v in layer["data"]["values"])
+    assert -limit in ats and limit in ats
