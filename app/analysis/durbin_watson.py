@@ -22,21 +22,12 @@ seeded Monte Carlo agrees, and the beta approximation tracks the exact value at 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 from scipy import stats
 
+from .statistic import StatisticResult
+
 EXACT_LIMIT = 2000
-
-
-@dataclass(frozen=True)
-class DurbinWatson:
-    statistic: float
-    p_positive: float      # P(D <= d): small when residuals are positively autocorrelated
-    p_negative: float      # P(D >= d)
-    p_two_sided: float
-    method: str
 
 
 def dw_statistic(e: np.ndarray) -> float:
@@ -139,7 +130,7 @@ def beta_approx_p_positive(d: float, q: np.ndarray) -> float:
     return float(stats.beta.cdf(d / 4.0, mu * common, (1.0 - mu) * common))
 
 
-def durbin_watson_test(e: np.ndarray, q: np.ndarray) -> DurbinWatson:
+def durbin_watson_test(e: np.ndarray, q: np.ndarray) -> StatisticResult:
     """Durbin–Watson test of residuals ``e`` (in run order) from the model with thin QR ``q``.
 
     ``q`` must have its rows in the same (run) order as ``e``.
@@ -153,4 +144,7 @@ def durbin_watson_test(e: np.ndarray, q: np.ndarray) -> DurbinWatson:
         p_pos = beta_approx_p_positive(d, q)
         method = "beta approximation with exact moments (n > 2000)"
     p_neg = 1.0 - p_pos
-    return DurbinWatson(d, p_pos, p_neg, min(1.0, 2.0 * min(p_pos, p_neg)), method)
+    # pvalue is P(D <= d), small when residuals are positively autocorrelated
+    return StatisticResult(d, p_pos, (), method,
+                           {"p_negative": p_neg,
+                            "p_two_sided": min(1.0, 2.0 * min(p_pos, p_neg))})

@@ -29,7 +29,8 @@ def test_anderson_darling_matches_r_nortest(case):
     # source: diagnostics_reference_values.json anderson_darling (R nortest::ad.test values)
     x = np.array(REF["anderson_darling"]["x"])
     data = {"x": x, "x**2": x**2, "log(x**2)": np.log(x**2), "exp(-x**2)": np.exp(-(x**2))}[case]
-    a2, _, p = anderson_darling(data)
+    ad = anderson_darling(data)
+    a2, p = ad.statistic, ad.pvalue
     ref = REF["anderson_darling"]["cases"][case]
     assert_allclose(a2, ref["ref_A2"], rtol=1e-10)
     assert_allclose(p, ref["ref_p"], rtol=1e-8)
@@ -52,20 +53,24 @@ def test_macrodata_regression_anderson_darling_and_ljung_box_match_r():
     ls = least_squares(x, y)
     ref = REF["macrodata_regression"]
     assert_allclose(ls.coef, ref["params_R"], rtol=1e-10)
-    a2, _, p = anderson_darling(ls.residuals)
+    ad = anderson_darling(ls.residuals)
+    a2, p = ad.statistic, ad.pvalue
     ad = ref["ad_R"]["all_resid"]
     assert_allclose([a2, p], [ad["statistic"], ad["pvalue"]], rtol=1e-8)
-    a2, _, p = anderson_darling(ls.residuals[:20])
+    ad = anderson_darling(ls.residuals[:20])
+    a2, p = ad.statistic, ad.pvalue
     ad = ref["ad_R"]["first20"]
     assert_allclose([a2, p], [ad["statistic"], ad["pvalue"]], rtol=1e-8)
-    q, qp = ljung_box(ls.residuals, 4)
+    res = ljung_box(ls.residuals, 4)
+    q, qp = res.statistic, res.pvalue
     lb = ref["ljung_box_R"]["lag4"]
     assert_allclose([q, qp], [lb["Q"], lb["p"]], rtol=1e-9)
     n = len(ls.residuals)
-    q, qp = ljung_box(ls.residuals, min(40, n // 2 - 2))
+    res = ljung_box(ls.residuals, min(40, n // 2 - 2))
+    q, qp = res.statistic, res.pvalue
     lb = ref["ljung_box_R"]["default_lag"]
     assert_allclose([q, qp], [lb["Q"], lb["p"]], rtol=1e-9)
-    q, _ = ljung_box(ls.residuals[:30], 13)
+    q = ljung_box(ls.residuals[:30], 13).statistic
     assert_allclose(q, ref["ljung_box_R"]["first30_lag13"]["Q"], rtol=1e-9)
 
 
@@ -73,16 +78,18 @@ def test_ljung_box_matches_julia_and_statsmodels():
     # source: diagnostics_reference_values.json ljung_box_julia (HypothesisTests.jl expected Q)
     lj = REF["ljung_box_julia"]
     h1 = np.array(lj["sim_data_h1"])
-    q, p = ljung_box(h1, 12)
+    res = ljung_box(h1, 12)
+    q, p = res.statistic, res.pvalue
     assert_allclose(q, lj["expected"]["LjungBox_h1_lag12"]["Q"], rtol=1e-10)
     assert_allclose(p, lj["expected"]["LjungBox_h1_lag12"]["p"], rtol=1e-6)
     h0 = np.array(lj["sim_data_h0"])
-    q, _ = ljung_box(h0, 5)
+    q = ljung_box(h0, 5).statistic
     assert_allclose(q, lj["expected"]["LjungBox_h0_lag5_dof2"]["Q"], rtol=1e-10)
     # statsmodels cross-check
     sm_q = acorr_ljungbox(h0, lags=[7], return_df=True)
-    assert_allclose(ljung_box(h0, 7), [sm_q["lb_stat"].iloc[0], sm_q["lb_pvalue"].iloc[0]],
-                    rtol=1e-10)
+    res7 = ljung_box(h0, 7)
+    assert_allclose([res7.statistic, res7.pvalue],
+                    [sm_q["lb_stat"].iloc[0], sm_q["lb_pvalue"].iloc[0]], rtol=1e-10)
 
 
 def _gear():
@@ -96,10 +103,12 @@ def test_gear_brown_forsythe_and_bartlett_match_nist_handbook():
     # 1.3.5.7 (Bartlett T = 20.78587), GEAR.DAT; values in diagnostics_reference_values.json
     y, batch = _gear()
     assert len(y) == 100
-    w, p, df1, df2 = brown_forsythe(y, batch.astype(int))
+    bf = brown_forsythe(y, batch.astype(int))
+    w, p, (df1, df2) = bf.statistic, bf.pvalue, bf.df
     assert (df1, df2) == (9, 90)
     assert_allclose(w, 1.70592, atol=5e-6)
-    t, tp, tdf = bartlett(y, batch.astype(int))
+    bt_ours = bartlett(y, batch.astype(int))
+    t, tp, (tdf,) = bt_ours.statistic, bt_ours.pvalue, bt_ours.df
     assert tdf == 9
     assert_allclose(t, 20.78587, atol=5e-6)
     # scipy cross-checks on the same data
@@ -113,9 +122,9 @@ def test_gear_brown_forsythe_and_bartlett_match_nist_handbook():
 def test_runs_test_matches_julia_normal_approximation():
     # source: diagnostics_reference_values.json runs_test (HypothesisTests.jl, x = 1:1000)
     out = runs_test(np.arange(1.0, 1001.0), exact=False)
-    assert out["n_runs"] == 2
-    assert_allclose(out["z"], -31.575338477995764, rtol=1e-12)
-    assert_allclose(out["p_value"], 8.052375336390931e-219, rtol=1e-8)
+    assert out.statistic == 2
+    assert_allclose(out.extras["z"], -31.575338477995764, rtol=1e-12)
+    assert_allclose(out.pvalue, 8.052375336390931e-219, rtol=1e-8)
 
 
 def test_runs_test_matches_statsmodels_sandbox():
@@ -123,8 +132,8 @@ def test_runs_test_matches_statsmodels_sandbox():
     x = np.array([1] * 5 + [2] * 6 + [3] * 8, float)
     z_sm, p_sm = runstest_1samp(x, cutoff="median", correction=False)
     out = runs_test(x, exact=False)
-    assert_allclose([out["z"], out["p_value"]], [z_sm, p_sm], rtol=1e-12)
-    assert_allclose(out["z"], -3.944254410803499, rtol=1e-12)
+    assert_allclose([out.extras["z"], out.pvalue], [z_sm, p_sm], rtol=1e-12)
+    assert_allclose(out.extras["z"], -3.944254410803499, rtol=1e-12)
 
 
 def test_exact_runs_distribution_matches_enumeration():
@@ -149,7 +158,8 @@ def test_breusch_pagan_matches_statsmodels():
     x = np.column_stack([np.ones(40), rng.normal(size=(40, 2))])
     y = x @ [1.0, 2.0, -1.0] + rng.normal(size=40) * (1 + 0.5 * np.abs(x[:, 1]))
     ls = least_squares(x, y)
-    lm, p, df = breusch_pagan(ls.residuals, ls.fitted)
+    bp = breusch_pagan(ls.residuals, ls.fitted)
+    lm, p, (df,) = bp.statistic, bp.pvalue, bp.df
     sm_lm, sm_p, _, _ = het_breuschpagan(ls.residuals, np.column_stack([np.ones(40), ls.fitted]))
     assert df == 1
     assert_allclose([lm, p], [sm_lm, sm_p], rtol=1e-10)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
+from ..statistic import StatisticResult
 from .common import (
     CheckContext,
     CheckResult,
@@ -20,8 +21,8 @@ METHOD = ("Anderson-Darling A² on internally studentized residuals; p from this
 MIN_RUNS = 8  # the p-value pieces of D'Agostino & Stephens (1986) are tabled from n = 8
 
 
-def anderson_darling(x: np.ndarray) -> tuple[float, float, float]:
-    """(A², A*, p) for normality with estimated mean and SD.
+def anderson_darling(x: np.ndarray) -> StatisticResult:
+    """A² for normality with estimated mean and SD; A* in the extras; p from A*.
 
     A² = -n - (1/n) sum (2i - 1)[ln Phi(w_i) + ln(1 - Phi(w_{n+1-i}))], w standardized with the
     n - 1 SD; A* = A² (1 + 0.75/n + 2.25/n²); p from D'Agostino & Stephens (1986), Table 4.9.
@@ -45,7 +46,8 @@ def anderson_darling(x: np.ndarray) -> tuple[float, float, float]:
         p = np.exp(0.9177 - 4.279 * a_star - 1.38 * a_star**2)
     else:
         p = np.exp(1.2937 - 5.709 * a_star + 0.0186 * a_star**2)
-    return a2, float(a_star), float(min(max(p, 0.0), 1.0))
+    return StatisticResult(a2, float(min(max(p, 0.0), 1.0)), (),
+                           "Anderson-Darling, D'Agostino & Stephens p", {"a_star": float(a_star)})
 
 
 def anderson_darling_rows(x: np.ndarray) -> np.ndarray:
@@ -85,11 +87,11 @@ def check_normality(ctx: CheckContext) -> CheckResult:
         return anderson_darling_rows(e[:, usable] * scale)
 
     r = ctx.resid.studentized[usable]
-    a2, a_star, p_textbook = anderson_darling(r)
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook)
+    ad = anderson_darling(r)
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=ad.pvalue)
     centred = r - r.mean()
     m2 = float(np.mean(centred**2))
-    details.update(a_star=a_star, n=int(usable.sum()),
+    details.update(a_star=ad.extras["a_star"], n=int(usable.sum()),
                    skewness=float(np.mean(centred**3)) / m2**1.5 if m2 > 0 else None)
     return judged("normality", QUESTION, METHOD, chart, ctx, stat, p,
                   "Residuals are consistent with a normal distribution.",

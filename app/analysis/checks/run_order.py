@@ -7,6 +7,7 @@ from scipy import special, stats
 
 from ..calibration import null_p_values
 from ..durbin_watson import durbin_watson_test
+from ..statistic import StatisticResult
 from .common import (
     CheckContext,
     CheckResult,
@@ -33,7 +34,7 @@ NO_ORDER = "not applicable: run order was not recorded"
 EXACT_RUNS_LIMIT = 200
 
 
-def ljung_box(x: np.ndarray, lags: int) -> tuple[float, float]:
+def ljung_box(x: np.ndarray, lags: int) -> StatisticResult:
     """Ljung–Box Q = n(n+2) sum_k r_k² / (n - k) on mean-removed x, chi-square with ``lags`` df.
 
     Verified against R Box.test and statsmodels acorr_ljungbox.
@@ -43,7 +44,7 @@ def ljung_box(x: np.ndarray, lags: int) -> tuple[float, float]:
     denom = float(x @ x)
     r = np.array([float(x[k:] @ x[:-k]) / denom for k in range(1, lags + 1)])
     q = float(n * (n + 2) * np.sum(r**2 / (n - np.arange(1, lags + 1))))
-    return q, float(special.chdtrc(lags, q))
+    return StatisticResult(q, float(special.chdtrc(lags, q)), (lags,), "Ljung-Box, chi-square")
 
 
 def _log_comb(a: np.ndarray | int, b: np.ndarray | int) -> np.ndarray:
@@ -71,13 +72,15 @@ def runs_distribution(n1: int, n2: int) -> tuple[np.ndarray, np.ndarray]:
     return r, probs
 
 
-def runs_test(x: np.ndarray, cutoff: float | None = None, exact: bool | None = None) -> dict:
+def runs_test(x: np.ndarray, cutoff: float | None = None,
+              exact: bool | None = None) -> StatisticResult:
     """Wald–Wolfowitz runs test about ``cutoff`` (default the median), two-sided.
 
     A value counts as "above" when x >= cutoff, otherwise "below", as statsmodels'
     runstest_1samp does (checked against it in tests/analysis/test_reference_diagnostics.py).
     ``exact`` (default: n <= 200) uses the exact conditional distribution of the number of runs;
-    otherwise z = (R - mu) / sigma without continuity correction.
+    otherwise z = (R - mu) / sigma without continuity correction. The statistic is the number
+    of runs; the extras hold n_above, n_below, cutoff, z, expected and exact.
     """
     x = np.asarray(x, dtype=float)
     cut = float(np.median(x)) if cutoff is None else cutoff
@@ -85,10 +88,11 @@ def runs_test(x: np.ndarray, cutoff: float | None = None, exact: bool | None = N
     n1, n2 = int(above.sum()), int((~above).sum())
     n = n1 + n2
     n_runs = int(1 + np.sum(above[1:] != above[:-1]))
-    out = {"n_runs": n_runs, "n_above": n1, "n_below": n2, "cutoff": cut}
+    method = "Wald-Wolfowitz runs test"
+    out = {"n_above": n1, "n_below": n2, "cutoff": cut}
     if n1 == 0 or n2 == 0:
-        out.update(z=None, p_value=None, exact=False, expected=None)
-        return out
+        out.update(z=None, exact=False, expected=None)
+        return StatisticResult(float(n_runs), None, (), method, out)
     mu = 2.0 * n1 * n2 / n + 1.0
     var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n**2 * (n - 1.0))
     z = (n_runs - mu) / np.sqrt(var) if var > 0 else 0.0
@@ -100,8 +104,8 @@ def runs_test(x: np.ndarray, cutoff: float | None = None, exact: bool | None = N
         p = min(1.0, 2.0 * min(low, high))
     else:
         p = float(2.0 * stats.norm.sf(abs(z)))
-    out.update(z=float(z), p_value=p, exact=bool(use_exact), expected=float(mu))
-    return out
+    out.update(z=float(z), exact=bool(use_exact), expected=float(mu))
+    return StatisticResult(float(n_runs), p, (), method, out)
 
 
 def _in_run_order(ctx: CheckContext) -> np.ndarray:
@@ -124,11 +128,12 @@ def check_autocorrelation(ctx: CheckContext) -> CheckResult:
     lag1 = float(np.sum(e[1:] * e[:-1]) / np.sum(e**2))
     n = len(e)
     lags = max(1, min(10, n // 5))
-    details = {"dw_p_two_sided": dw.p_two_sided, "dw_p_negative": dw.p_negative,
+    p_two_sided, p_negative = dw.extras["p_two_sided"], dw.extras["p_negative"]
+    details = {"dw_p_two_sided": p_two_sided, "dw_p_negative": p_negative,
                "dw_method": dw.method, "lag1_autocorrelation": lag1}
     if n > lags + 1:
-        q, q_p = ljung_box(e, lags)
-        details.update(ljung_box_q=q, ljung_box_lags=lags, ljung_box_p=q_p)
+        lb = ljung_box(e, lags)
+        details.update(ljung_box_q=lb.statistic, ljung_box_lags=lags, ljung_box_p=lb.pvalue)
     details["p_method"] = dw.method
     null_p = None
     if ctx.null is not None:
@@ -146,9 +151,9 @@ def check_autocorrelation(ctx: CheckContext) -> CheckResult:
     bad = ("Consecutive residuals move together (positive autocorrelation): something "
            "carried over between runs in time. Check for drift, warm-up or a missing "
            "time-related variable before trusting the p-values of the fit.")
-    if dw.p_two_sided < ctx.thresholds.review and dw.p_negative < dw.p_positive:
+    if p_two_sided < ctx.thresholds.review and p_negative < dw.pvalue:
         good += " Residuals alternate in sign more than chance allows (see the two-sided p)."
-    return judged(cid, AUTO_QUESTION, AUTO_METHOD, chart, ctx, dw.statistic, dw.p_positive,
+    return judged(cid, AUTO_QUESTION, AUTO_METHOD, chart, ctx, dw.statistic, dw.pvalue,
                   good, bad, null_p=null_p, details=details)
 
 
@@ -189,16 +194,17 @@ def check_randomness(ctx: CheckContext) -> CheckResult:
     r = ctx.resid.studentized[order][usable]
     med = float(np.median(r))
     untied = np.abs(r - med) > TIE_TOLERANCE * float(np.max(np.abs(r)))
-    result = runs_test(r[untied], cutoff=med)
-    if result["p_value"] is None:
+    runs = runs_test(r[untied], cutoff=med)
+    if runs.pvalue is None:
         return not_applicable(cid, RAND_QUESTION, RAND_METHOD, chart,
                               "not applicable: every residual lies on one side of the median")
-    result["ties_set_aside"] = int((~untied).sum())
+    result = {"n_runs": int(runs.statistic), **runs.extras,
+              "ties_set_aside": int((~untied).sum())}
 
     def statistic(e: np.ndarray) -> np.ndarray:
         return runs_about_median(e[:, order][:, usable] * scale)
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=result["p_value"],
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=runs.pvalue,
                                          defect="drift", position=run_positions(ctx))
     result.update(details)
     if result["n_runs"] < result["expected"]:

@@ -6,6 +6,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import special
 
+from ..statistic import StatisticResult
 from .common import (
     CheckContext,
     CheckResult,
@@ -29,7 +30,7 @@ FACTOR_METHOD = ("Brown-Forsythe (median-centred Levene) on studentized residual
 MIN_RUNS_PER_LEVEL = 3
 
 
-def breusch_pagan(e: np.ndarray, z: np.ndarray) -> tuple[float, float, int]:
+def breusch_pagan(e: np.ndarray, z: np.ndarray) -> StatisticResult:
     """LM = n R² of e² regressed on [1, z] (Koenker 1981); chi-square with columns-of-z df.
 
     Each column of z is centred and scaled before the regression: R² does not change, but the
@@ -51,10 +52,11 @@ def breusch_pagan(e: np.ndarray, z: np.ndarray) -> tuple[float, float, int]:
     sst = float(np.sum((u - u.mean()) ** 2))
     r2 = float(np.sum((fitted - u.mean()) ** 2)) / sst if sst > 0 else 0.0
     df = int(np.linalg.matrix_rank(x) - 1)
-    if df == 0:
-        return 0.0, float("nan"), 0  # nothing varies: no test (a NaN p fails closed)
+    method = "Breusch-Pagan (Koenker), chi-square"
+    if df == 0:  # nothing varies: no test (a missing p fails closed)
+        return StatisticResult(0.0, None, (0,), method)
     lm = n * r2
-    return lm, float(special.chdtrc(df, lm)), df
+    return StatisticResult(lm, float(special.chdtrc(df, lm)), (df,), method)
 
 
 def _one_way_f(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, int, int]:
@@ -74,17 +76,19 @@ def _one_way_f(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, in
     return f, float(special.fdtrc(df1, df2, f)), df1, df2
 
 
-def brown_forsythe(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, int, int]:
+def brown_forsythe(values: np.ndarray, labels: np.ndarray) -> StatisticResult:
     """W = one-way ANOVA F of |x - group median| (Brown & Forsythe 1974).
 
     Verified against NIST GEAR (W = 1.70592) and scipy.stats.levene(center='median').
     """
     labels = np.unique(labels, return_inverse=True)[1].ravel()
     medians = np.array([np.median(values[labels == g]) for g in range(labels.max() + 1)])
-    return _one_way_f(np.abs(values - medians[labels]), labels)
+    w, p, df1, df2 = _one_way_f(np.abs(values - medians[labels]), labels)
+    return StatisticResult(w, None if not np.isfinite(p) else p, (df1, df2),
+                           "Brown-Forsythe (median-centred Levene), F")
 
 
-def bartlett(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, int]:
+def bartlett(values: np.ndarray, labels: np.ndarray) -> StatisticResult:
     """Bartlett's T, chi-square with k - 1 df. Verified against GEAR and scipy.stats.bartlett."""
     labels = np.unique(labels, return_inverse=True)[1].ravel()
     k = labels.max() + 1
@@ -94,12 +98,13 @@ def bartlett(values: np.ndarray, labels: np.ndarray) -> tuple[float, float, int]
     var = ss / (counts - 1)
     n = counts.sum()
     pooled = ss.sum() / (n - k)
+    method = "Bartlett, chi-square"
     if pooled <= 0 or np.any(var <= 0):
-        return float("nan"), float("nan"), int(k - 1)
+        return StatisticResult(float("nan"), None, (int(k - 1),), method)
     num = (n - k) * np.log(pooled) - np.sum((counts - 1) * np.log(var))
     den = 1 + (np.sum(1 / (counts - 1)) - 1 / (n - k)) / (3 * (k - 1))
     t = float(num / den)
-    return t, float(special.chdtrc(k - 1, t)), int(k - 1)
+    return StatisticResult(t, float(special.chdtrc(k - 1, t)), (int(k - 1),), method)
 
 
 def breusch_pagan_rows(e: np.ndarray, fitted: np.ndarray) -> np.ndarray:
@@ -123,15 +128,15 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
         return not_applicable(cid, FITTED_QUESTION, FITTED_METHOD, chart,
                               "not applicable: every fitted value is the same")
     usable = ctx.usable
-    lm, p_textbook, df = breusch_pagan(ctx.ls.residuals[usable], fitted[usable])
+    bp = breusch_pagan(ctx.ls.residuals[usable], fitted[usable])
 
     def statistic(e: np.ndarray) -> np.ndarray:
         return breusch_pagan_rows(e[:, usable], fitted[usable])
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook,
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bp.pvalue,
                                          defect="megaphone", fitted=fitted)
-    details["df"] = df
-    return judged(cid, FITTED_QUESTION, FITTED_METHOD, chart, ctx, lm, p,
+    details["df"] = list(bp.df)
+    return judged(cid, FITTED_QUESTION, FITTED_METHOD, chart, ctx, bp.statistic, p,
                   "Residual spread does not change with the fitted value.",
                   "Residual spread grows or shrinks with the fitted value (a megaphone): try a "
                   "log or square-root transformation of the response; see the Box-Cox "
@@ -190,8 +195,8 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
     lab = np.unique(labels[usable], return_inverse=True)[1].ravel()
     scale = 1.0 / np.sqrt(1.0 - ctx.resid.leverage[usable])
     r = ctx.resid.studentized[usable]
-    w, p_textbook, df1, df2 = brown_forsythe(r, lab)
-    if not np.isfinite(w):
+    bf = brown_forsythe(r, lab)
+    if not np.isfinite(bf.statistic):
         return not_applicable(cid, FACTOR_QUESTION, FACTOR_METHOD, chart,
                               f"not applicable: residuals show no spread within the levels of "
                               f"'{name}'")
@@ -200,17 +205,18 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
         return brown_forsythe_rows(e[:, usable] * scale, lab)
 
     high = ctx.coded[:, j] > np.median(ctx.coded[:, j]) + 1e-9
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=p_textbook,
+    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bf.pvalue,
                                          defect="spread", high=high)
-    t, t_p, t_df = bartlett(r, lab)
+    bt = bartlett(r, lab)
     sds = {}
     for g in np.unique(lab):
         vals = ctx.coded[usable, j][lab == g]
         sds[f"{float(np.median(vals)):.6g}"] = float(np.std(r[lab == g], ddof=1))
-    details.update({"df": [df1, df2], "bartlett": t, "bartlett_p": t_p, "bartlett_df": t_df,
+    details.update({"df": list(bf.df), "bartlett": bt.statistic, "bartlett_p": bt.pvalue,
+                    "bartlett_df": bt.df[0],
                     "levels_used": kept_levels, "sd_by_level_studentized": sds,
                     "runs_left_out": int((~usable).sum())})
-    return judged(cid, FACTOR_QUESTION, FACTOR_METHOD, chart, ctx, w, p,
+    return judged(cid, FACTOR_QUESTION, FACTOR_METHOD, chart, ctx, bf.statistic, p,
                   f"Residual spread is similar at every level of '{name}'.",
                   f"Residual spread differs between levels of '{name}': a transformation of the "
                   "response may help, or the process is less repeatable at some settings.",
