@@ -15,6 +15,7 @@ from typing import Any
 from flask import Blueprint, current_app, jsonify, request, url_for
 from werkzeug.exceptions import RequestEntityTooLarge
 
+from app.analysis.boxcox import LAMBDA_RANGE
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.ingest import ColumnRole, IngestError, UploadTooLarge, format_size
 from app.store.db import database, get_session
@@ -112,7 +113,9 @@ schema("FitCreate", {
         "terms": {"type": ["array", "null"], "minItems": 1, "items": {"type": "string"},
                   "description": "Explicit terms instead of a model: A, A:B, A^2"},
         "transform": {"type": "string", "enum": list(TRANSFORMS)},
-        "boxcox_lambda": NULLABLE_NUMBER,
+        "boxcox_lambda": {**NULLABLE_NUMBER, "minimum": LAMBDA_RANGE[0],
+                          "maximum": LAMBDA_RANGE[1],
+                          "description": "λ for transform boxcox (estimated when null)"},
         "hierarchy": {"type": "boolean", "description": "Keep parents of every term (true)"},
         "reduce_alpha": {"type": ["number", "null"], "exclusiveMinimum": 0,
                          "exclusiveMaximum": 1,

@@ -2,12 +2,17 @@
 
 from __future__ import annotations
 
+import os
+import re
+import unicodedata
 from collections.abc import Iterator
 from contextlib import contextmanager
+from urllib.parse import quote
 
 from flask import Response, g
 from sqlalchemy.orm import Session
 from werkzeug.routing import IntegerConverter
+from werkzeug.utils import secure_filename
 
 from app.store.db import get_session
 from app.workflow import ID_MAX, NotFound, WorkflowError, in_id_range
@@ -43,10 +48,22 @@ def read_session() -> Iterator[Session]:
 
 
 def attachment(body: bytes | str, filename: str, mimetype: str) -> Response:
-    """A download: always ``Content-Disposition: attachment`` with a safe file name."""
-    safe = "".join(c if c.isalnum() or c in "._-" else "_" for c in filename) or "download"
+    """A download: always ``Content-Disposition: attachment``, under any file name.
+
+    ``filename=`` is an ASCII fallback (werkzeug's ``secure_filename``; ``download`` when
+    nothing of the name is left, keeping its extension). When that is not the name itself,
+    ``filename*=UTF-8''...`` (RFC 5987, as RFC 6266 asks) carries the name as uploaded, e.g.
+    ``Messdaten-Ω-試験.csv``, without its folders or control characters.
+    """
+    base = re.split(r"[\\/]", filename)[-1]
+    name = "".join(c for c in base if unicodedata.category(c)[0] != "C").strip(" .")
+    stem, extension = (secure_filename(part) for part in os.path.splitext(name))
+    fallback = (stem or "download") + ("." + extension if extension else "")
+    names = {"filename": fallback}
+    if name and name != fallback:
+        names["filename*"] = "UTF-8''" + quote(name, safe="!#$&+-.^_`|~")
     response = Response(body, mimetype=mimetype)
-    response.headers["Content-Disposition"] = f'attachment; filename="{safe}"'
+    response.headers.set("Content-Disposition", "attachment", **names)
     return response
 
 

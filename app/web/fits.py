@@ -20,6 +20,7 @@ from flask import (
 from markupsafe import Markup
 from sqlalchemy import select
 
+from app.analysis.boxcox import LAMBDA_RANGE
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.analysis.terms import Term, named_model, sort_key
 from app.store import audit
@@ -80,7 +81,8 @@ def _builder_context(version, form: dict[str, Any]) -> dict[str, Any]:
             "responses": list(table.responses),
             "factors": factor_names, "terms": candidate_terms(factor_names, two_level),
             "models": [(m, MODEL_LABELS[m]) for m in NAMED_MODELS],
-            "transforms": [(t, TRANSFORM_LABELS[t]) for t in TRANSFORMS], "form": form}
+            "transforms": [(t, TRANSFORM_LABELS[t]) for t in TRANSFORMS],
+            "lambda_range": LAMBDA_RANGE, "form": form}
 
 
 def _form_from_fit(fit: Fit) -> dict[str, Any]:

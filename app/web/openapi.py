@@ -352,10 +352,13 @@ def check(value: Any, definition: Schema, field: str = "body") -> Any:
         _refuse(field, "must not be empty." if sch["minLength"] == 1
                 else f"needs at least {sch['minLength']} characters.")
     if _TYPES["number"](value):
-        if "minimum" in sch and value < sch["minimum"]:
-            _refuse(field, f"must be at least {sch['minimum']} (got {value}).")
-        if "maximum" in sch and value > sch["maximum"]:
-            _refuse(field, f"must be at most {sch['maximum']} (got {value}).")
+        least, most = sch.get("minimum"), sch.get("maximum")
+        if least is not None and most is not None and not least <= value <= most:
+            _refuse(field, f"must lie between {least} and {most} (got {value}).")
+        if least is not None and value < least:
+            _refuse(field, f"must be at least {least} (got {value}).")
+        if most is not None and value > most:
+            _refuse(field, f"must be at most {most} (got {value}).")
         low, high = sch.get("exclusiveMinimum"), sch.get("exclusiveMaximum")
         if (low is not None and value <= low) or (high is not None and value >= high):
             _refuse(field, f"must lie strictly between {low} and {high} (got {value}).")

@@ -10,6 +10,7 @@ from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
 from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse
+from app.analysis.boxcox import LAMBDA_RANGE
 from app.store import audit
 from app.store.audit import canonical_json
 from app.store.models import DataVersion, Fit, Signature, User
@@ -35,6 +36,12 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
     pick = lambda role: next((n for n, r in roles.items() if r["role"] == role), None)  # noqa: E731
     covariates = tuple((n, r.get("kind") or "numeric") for n, r in roles.items()
                        if r["role"] == "covariate")
+    low, high = LAMBDA_RANGE
+    # λ as a practitioner would choose it: within the range the Box–Cox search covers (far
+    # outside it y^λ overflows, and no data would suggest such a power).
+    if boxcox_lambda is not None and not low <= boxcox_lambda <= high:
+        raise WorkflowError(f"Box–Cox λ must lie between {low:g} and {high:g}, the range the "
+                            f"λ search covers (got {boxcox_lambda:g}).", field="boxcox_lambda")
     items = exclusions.items() if isinstance(exclusions, dict) else (exclusions or [])
     excl = []
     for row, reason in items:

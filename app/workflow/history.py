@@ -6,7 +6,7 @@ import csv
 import io
 import json
 from dataclasses import dataclass
-from datetime import UTC, datetime, time, timedelta
+from datetime import UTC, datetime, time
 from typing import Any
 
 from sqlalchemy import or_, select
@@ -22,7 +22,6 @@ from app.workflow.uploads import sha256_bytes
 
 EXPORT_COLUMNS = ("seq", "at", "actor_name", "action", "object_type", "object_id", "reason",
                   "old_json", "new_json", "prev_hash", "hash")
-# A spreadsheet treats a cell starting with one of these as a formula (OWASP "CSV injection").
 
 
 @dataclass(frozen=True)
@@ -38,12 +37,14 @@ class Filters:
         return cls(**{k: (args.get(k) or "").strip() for k in cls.__dataclass_fields__})
 
 
-def _day(text: str, field: str) -> datetime:
+def _day(text: str, field: str, at: time) -> datetime:
+    """The moment ``at`` (UTC) on the day ``text`` (YYYY-MM-DD, years 1 to 9999)."""
     try:
-        return datetime.combine(datetime.strptime(text, "%Y-%m-%d").date(), time(), UTC)
+        return datetime.combine(datetime.strptime(text, "%Y-%m-%d").date(), at, UTC)
     except ValueError:
-        raise WorkflowError(f"The date '{text}' is not a date like 2026-03-31.",
-                            field=field) from None
+        shown = text if len(text) <= 24 else text[:20] + "…"
+        raise WorkflowError(f"Field '{field}': '{shown}' is not a date like 2026-03-31 "
+                            "(years 0001 to 9999).", field=field) from None
 
 
 def timeline(session: Session, study: Study, filters: Filters = Filters()) -> list[AuditEvent]:
@@ -61,9 +62,11 @@ def timeline(session: Session, study: Study, filters: Filters = Filters()) -> li
         query = query.where(or_(AuditEvent.action == filters.action,
                                 AuditEvent.action.startswith(filters.action.rstrip(".") + ".")))
     if filters.date_from:
-        query = query.where(AuditEvent.at >= _day(filters.date_from, "date_from"))
+        query = query.where(AuditEvent.at >= _day(filters.date_from, "date_from", time.min))
     if filters.date_to:
-        query = query.where(AuditEvent.at < _day(filters.date_to, "date_to") + timedelta(days=1))
+        # Up to the day's last microsecond (the stored precision): the day after 9999-12-31
+        # is no date, so "before the next day" cannot be written for it.
+        query = query.where(AuditEvent.at <= _day(filters.date_to, "date_to", time.max))
     return list(session.scalars(query.order_by(AuditEvent.seq)))
 
 

@@ -4,10 +4,19 @@ One ZIP holds the original upload bytes and canonical table of every data versio
 snapshot document, the signatures, the whole audit chain (so the hash chain verifies without the
 database), the chain head, and ``manifest.json`` with the SHA-256 of every other file.
 :func:`verify_package` needs only the ZIP.
+
+The canonical table is packaged twice. ``canonical.csv`` holds the stored bytes exactly: their
+SHA-256 is the one each fit snapshot (and so each signature) names, and a copy with cells
+altered could not be checked against it (an apostrophe added by the guard cannot be told from
+one typed in the data). ``canonical-spreadsheet.csv`` is the same table made spreadsheet-safe by
+:func:`app.workflow.csvsafe.safe_csv`, the guard the web download uses (formula-looking text
+cells get a leading apostrophe, numbers stay as they are); the check recomputes it from
+``canonical.csv``, so it cannot say anything the hashed table does not.
 """
 
 from __future__ import annotations
 
+import csv
 import hashlib
 import io
 import json
@@ -23,12 +32,14 @@ from app.store import audit
 from app.store.audit import ChainReport, canonical_json, verify_chain
 from app.store.base import utcnow
 from app.store.models import AuditEvent, Fit, Study
+from app.workflow.csvsafe import safe_csv
 from app.workflow.fits import snapshot_document
 from app.workflow.reviews import signatures_json
 
 FORMAT = "plumbline record package"
 FORMAT_VERSION = 1
 MANIFEST = "manifest.json"
+SPREADSHEET_CSV = "canonical-spreadsheet.csv"
 SIGNED_FIELDS = ("fit_id", "signer_id", "printed_name", "signed_at", "meaning", "comment",
                  "snapshot_sha256")
 README = """Plumbline record package
@@ -37,6 +48,11 @@ manifest.json          SHA-256 of every other file, the study and the chain head
 study.json             the study and its check thresholds
 data/v<N>/             each data version: the original upload bytes, the canonical table and
                        version.json (hashes, roles, who uploaded it, the reason)
+data/v<N>/canonical.csv  the canonical table byte for byte as stored and hashed; text cells are
+                       as recorded, so open it in a text editor, not a spreadsheet
+data/v<N>/canonical-spreadsheet.csv  the same table for spreadsheets: text cells that a
+                       spreadsheet would run as a formula (starting with = + - @, tab or CR)
+                       begin with an apostrophe; numbers are unchanged
 fits/<id>/snapshot.json  the exact document whose SHA-256 is the fit's snapshot hash
 fits/<id>/fit.json     state and who made and submitted it
 fits/<id>/signatures.json  signer, printed name, UTC time, meaning, comment, signed hash
@@ -73,6 +89,7 @@ def build_package(session: Session, study: Study, software_version: str) -> byte
         folder = f"data/v{v.version}"
         files[f"{folder}/original/{_safe_name(v.filename)}"] = v.original_bytes
         files[f"{folder}/canonical.csv"] = v.canonical_csv
+        files[f"{folder}/{SPREADSHEET_CSV}"] = safe_csv(v.canonical_csv)
         files[f"{folder}/version.json"] = _json_bytes({
             "id": v.id, "version": v.version, "filename": v.filename, "file_kind": v.file_kind,
             "sheet": v.sheet, "original_sha256": v.original_sha256,
@@ -144,7 +161,8 @@ def verify_package(data: bytes) -> PackageReport:
     Checks: every file's SHA-256 against the manifest (and no unlisted files); the audit chain
     and its head; each signature's manifest hash, that its snapshot hash is the SHA-256 of the
     fit's snapshot document, and that the chain holds the event that recorded it; each
-    snapshot's data hash against the packaged canonical table.
+    snapshot's data hash against the packaged canonical table; each spreadsheet-safe copy
+    against the one recomputed from its canonical table.
     """
     report = PackageReport()
     try:
@@ -169,6 +187,7 @@ def verify_package(data: bytes) -> PackageReport:
         report.files = len(present)
         _check_chain(zf, manifest, report)
         _check_fits(zf, present, report)
+        _check_spreadsheet_copies(zf, present, report)
     return report
 
 
@@ -228,3 +247,23 @@ def _check_fits(zf: zipfile.ZipFile, present: set[str], report: PackageReport) -
                                        "the snapshot document in the package")
             if sig.get("manifest_sha256") not in recorded:
                 report.problems.append(f"{label}: no event in the audit chain records it")
+
+
+def _check_spreadsheet_copies(zf: zipfile.ZipFile, present: set[str],
+                              report: PackageReport) -> None:
+    """Each ``canonical-spreadsheet.csv`` must be its folder's ``canonical.csv`` through
+    :func:`safe_csv`, and nothing else (packages made before it was added have none)."""
+    for name in sorted(present):
+        if not re.fullmatch(rf"data/v\d+/{re.escape(SPREADSHEET_CSV)}", name):
+            continue
+        source = name.removesuffix(SPREADSHEET_CSV) + "canonical.csv"
+        if source not in present:
+            report.problems.append(f"{name} has no {source} beside it to be derived from")
+            continue
+        try:
+            expected = safe_csv(zf.read(source))
+        except (UnicodeDecodeError, csv.Error) as exc:
+            report.problems.append(f"{source} is not a UTF-8 CSV table ({exc})")
+            continue
+        if zf.read(name) != expected:
+            report.problems.append(f"{name} is not the spreadsheet-safe copy of {source}")

@@ -17,6 +17,7 @@ from sqlalchemy import func, select
 from app import cli as app_cli
 from app import create_app
 from app.analysis import Thresholds
+from app.analysis.boxcox import LAMBDA_RANGE
 from app.demo_data import rsm_study
 from app.ingest import read_upload, validate
 from app.store.audit import canonical_json
@@ -451,6 +452,7 @@ def test_upload_over_the_limit_is_413(small_app, db, users):
     assert counts(db) == before
 
 
+LAMBDA_WORDS = f"must lie between {LAMBDA_RANGE[0]} and {LAMBDA_RANGE[1]}"
 BAD_FITS = [
     ({"response": "Hardness", "colour": "red"}, "colour", "is not known"),
     ({"response": 5}, "response", "must be text, not a whole number"),
@@ -470,6 +472,12 @@ BAD_FITS = [
     ({"response": "Hardness", "model": "linear", "terms": ["Catalyst"]}, "terms", "not both"),
     ({"response": "Hardness", "model": None}, "model", "is required"),
     ({"response": "Hardness", "reduce_alpha": 1.5}, "reduce_alpha", "strictly between"),
+    ({"response": "Hardness", "transform": "boxcox", "boxcox_lambda": 700}, "boxcox_lambda",
+     LAMBDA_WORDS),
+    ({"response": "Hardness", "transform": "boxcox", "boxcox_lambda": 1e308}, "boxcox_lambda",
+     LAMBDA_WORDS),
+    ({"response": "Hardness", "transform": "boxcox", "boxcox_lambda": -800}, "boxcox_lambda",
+     LAMBDA_WORDS),
     ({"response": "Cure time"}, "response", "not a response"),
     ([1, 2], "body", "must be an object"),
 ]
@@ -497,6 +505,11 @@ def test_json_body_must_be_json(client, db, version_id):
     not_a_number = client.post(url, data='{"response": "Hardness", "boxcox_lambda": NaN}',
                                content_type="application/json", headers=auth)
     assert not_a_number.status_code == 400 and "NaN" in not_a_number.get_json()["error"]
+    overflowing = client.post(url, data='{"response": "Hardness", "boxcox_lambda": -1e400}',
+                              content_type="application/json", headers=auth)
+    assert overflowing.status_code == 400
+    assert overflowing.get_json()["field"] == "boxcox_lambda"
+    assert LAMBDA_WORDS in overflowing.get_json()["error"]
 
 
 BAD_STUDIES = [

@@ -12,8 +12,12 @@ from click.testing import CliRunner
 from sqlalchemy import text
 
 from app.cli_audit import audit_group
-from app.store.models import Fit
-from app.workflow import accounts, studies
+from app.demo_data import rsm_study
+from app.ingest import read_upload, validate
+from app.ingest.raw import parse_number
+from app.store.models import DataVersion, Fit
+from app.workflow import accounts, studies, uploads
+from app.workflow.csvsafe import FORMULA_STARTS, safe_csv
 from app.workflow.history import neutralise
 from app.workflow.package import verify_package
 from tests.conftest import PASSWORD
@@ -55,6 +59,43 @@ def test_timeline_filters_by_object_person_action_and_date(db, actions, client, 
     assert "fit.approve" in _events_table(client, base + "?date_to=2999-01-01")
     bad = client.get(base + "?date_to=yesterday")
     assert bad.status_code == 400 and "yesterday" in bad.get_data(as_text=True)
+
+
+EXTREME_DATES = [
+    ("date_to=9999-12-31", True), ("date_from=0001-01-01", True),
+    ("date_from=0001-01-01&date_to=9999-12-31", True),
+    ("date_from=9999-12-31", False), ("date_to=0001-01-01", False),
+]
+BAD_DATES = [("date_to", "99999-01-01"), ("date_from", "10000-01-01"), ("date_to", "2026-02-30"),
+             ("date_from", "-001-01-01"), ("date_to", "0000-12-31"), ("date_from", "9" * 400)]
+TRAIL_VIEWS = ("", "/export.csv", "/export.json")
+
+
+def test_the_first_and_last_representable_days_filter(db, actions, client, signed):
+    study_id, _version, _fit = signed
+    _auditor(actions)
+    for query, matches in EXTREME_DATES:
+        for suffix in TRAIL_VIEWS:
+            response = client.get(f"/history/studies/{study_id}{suffix}?{query}")
+            assert response.status_code == 200, (query, suffix)
+            body = response.get_data(as_text=True)
+            if not suffix:  # the page: its events table, not the filter's choices
+                body = body[body.index('<table class="events">'):]
+            assert ("fit.approve" in body) == matches, (query, suffix)
+
+
+def test_a_date_that_is_no_day_is_400_naming_the_field(db, actions, client, signed):
+    study_id, _version, _fit = signed
+    _auditor(actions)
+    for field, value in BAD_DATES:
+        for suffix in TRAIL_VIEWS:
+            response = client.get(f"/history/studies/{study_id}{suffix}",
+                                  query_string={field: value})
+            assert response.status_code == 400, (field, value, suffix)
+            page = response.get_data(as_text=True)
+            assert f"Field &#39;{field}&#39;" in page and "like 2026-03-31" in page, page
+            if len(value) > 30:  # a long value is not echoed whole
+                assert value[:30] not in page
 
 
 def test_event_detail_shows_before_and_after(db, actions, client, signed):
@@ -231,3 +272,55 @@ def test_cli_verify_against_the_database(app, db, signed, backend, monkeypatch):
     result = runner.invoke(audit_group, ["verify"])
     assert result.exit_code == 1
     assert "chain broken at event #3" in result.output and "altered" in result.output
+
+
+def test_package_csv_is_spreadsheet_safe_and_the_hashed_table_still_verifies(
+        db, actions, client, users, tmp_path):
+    demo = rsm_study()
+    lines = demo.csv_bytes.decode().splitlines()
+    for row, label in ((1, '"=HYPERLINK(""http://x"")"'), (2, "@SUM(A1:A9)"), (3, "-x")):
+        cells = lines[row].split(",")
+        cells[1] = label  # Panel ID, a label column
+        lines[row] = ",".join(cells)
+    data = ("\n".join(lines) + "\n").encode()
+    name = "Messdaten-Ω-試験.csv"
+    study_id = h.make_study(db)
+    with db.transaction() as s:
+        raw = read_upload(data, name)
+        version_id = uploads.add_data_version(
+            s, h.user(s, "erin"), studies.get_study(s, study_id), data=data, filename=name,
+            raw=raw, table=validate(raw, demo.roles)).id
+    fit_id = h.make_fit(db, version_id)
+    h.submit(db, fit_id)
+    h.sign(db, fit_id)
+    with db.session() as s:
+        stored = s.get(DataVersion, version_id).canonical_csv
+    assert b"=HYPERLINK" in stored and b"'=HYPERLINK" not in stored
+
+    _auditor(actions)
+    package = _package(actions, client, study_id)
+    zf = zipfile.ZipFile(io.BytesIO(package))
+    # The hashed table byte for byte (its SHA-256 is the one the signed snapshot names) ...
+    assert zf.read("data/v1/canonical.csv") == stored
+    assert zf.read("data/v1/original/Messdaten-_-__.csv") == data
+    # ... and beside it the copy for spreadsheets, made by the web download's guard.
+    copy = zf.read("data/v1/canonical-spreadsheet.csv")
+    assert copy == safe_csv(stored) == client.get(f"/data/{version_id}/canonical.csv").data
+    cells = [c for row in csv.reader(io.StringIO(copy.decode())) for c in row]
+    assert {"'=HYPERLINK(\"http://x\")", "'@SUM(A1:A9)", "'-x"} <= set(cells)
+    for cell in cells:
+        assert not cell.startswith(FORMULA_STARTS) or parse_number(cell) is not None, cell
+    assert "canonical-spreadsheet.csv" in zf.read("README.txt").decode()
+    report = verify_package(package)
+    assert report.ok, report.problems
+    good = tmp_path / "good.zip"
+    good.write_bytes(package)
+    result = CliRunner().invoke(audit_group, ["verify", "--package", str(good)])
+    assert result.exit_code == 0 and "package intact" in result.output, result.output
+
+    # A copy altered (the manifest fixed up to match) no longer says what the table says.
+    forged = copy.replace(b"'=HYPERLINK", b"=HYPERLINK")
+    report = verify_package(_rewrite(package, {"data/v1/canonical-spreadsheet.csv": forged},
+                                     fix_manifest=True))
+    assert ["data/v1/canonical-spreadsheet.csv is not the spreadsheet-safe copy of "
+            "data/v1/canonical.csv"] == report.problems

@@ -12,6 +12,7 @@ import zipfile
 import pytest
 from openpyxl import Workbook
 from sqlalchemy import func, select
+from werkzeug.http import parse_options_header
 
 from app.demo_data import rsm_study
 from app.store.models import AuditEvent, DataVersion, Study
@@ -226,3 +227,57 @@ def test_canonical_download_neutralises_formula_text_but_keeps_numbers(client, a
     from app.workflow.csvsafe import neutralise
 
     assert neutralise("-1.5") == "-1.5" and neutralise("-x") == "'-x"
+
+
+def _store(client, actions, study_id, data: bytes, name: str) -> int:
+    """Upload, confirm the previewed roles, and return the new data version's id."""
+    response = _upload(actions, study_id, data, name)
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    stored = actions.post(response.headers["Location"], _confirm_form(html))
+    assert stored.status_code == 302
+    return int(stored.headers["Location"].rsplit("/", 1)[1])
+
+
+@pytest.mark.parametrize("name, fallback", [
+    ("Messdaten-Ω-試験.csv", "Messdaten--.csv"),
+    ("данные опыта.csv", "download.csv"),
+    ("Härte Ofen 2, Lauf 1.csv", "Harte_Ofen_2_Lauf_1.csv"),
+])
+def test_original_downloads_under_its_uploaded_name(client, actions, db, study_id, name,
+                                                    fallback):
+    version_id = _store(client, actions, study_id, GOOD, name)
+    download = client.get(f"/data/{version_id}/original")
+    assert download.status_code == 200 and download.data == GOOD
+    header = download.headers["Content-Disposition"]
+    # WSGI servers write headers as ISO-8859-1, so the name cannot go in as it is: an ASCII
+    # fallback name, and the real one encoded per RFC 5987 (as RFC 6266 asks).
+    assert header.isascii()
+    assert header.startswith(f"attachment; filename={fallback}; filename*=UTF-8''"), header
+    disposition, params = parse_options_header(header)
+    assert (disposition, params["filename"]) == ("attachment", name)
+    # The other downloads of the same version and study work too.
+    canonical = client.get(f"/data/{version_id}/canonical.csv")
+    assert canonical.status_code == 200
+    assert canonical.headers["Content-Disposition"] == (
+        f"attachment; filename=study{study_id}_v1_canonical.csv")
+
+
+@pytest.mark.parametrize("name, fallback, full", [
+    ("fit-1-results.json", "fit-1-results.json", None),
+    ("試験.xlsx", "download.xlsx", "試験.xlsx"),
+    ('a "quoted"; name.csv', "a_quoted_name.csv", 'a "quoted"; name.csv'),
+    ("C:\\Users\\me\\Ωmega.csv", "mega.csv", "Ωmega.csv"),
+    ("line\r\nbreak.csv", "linebreak.csv", None),
+    ("..", "download", None),
+])
+def test_attachment_header_is_ascii_under_any_name(app, name, fallback, full):
+    from app.web.common import attachment
+
+    with app.test_request_context():
+        header = attachment(b"x", name, "text/csv").headers["Content-Disposition"]
+    assert header.isascii() and "\r" not in header and "\n" not in header
+    disposition, params = parse_options_header(header)
+    assert disposition == "attachment"
+    assert params["filename"] == (full or fallback)
+    assert header.startswith(f"attachment; filename={fallback}")
+    assert ("filename*=UTF-8''" in header) == (full is not None)
