@@ -1,7 +1,7 @@
 """Durbin–Watson exact p-value (Imhof) against published bound tables and simulation.
 
 Sources (tests/data/reference, see its README): the Savin & White (1977) 1 % table as
-transcribed in a public test-data file, and their 5 % table recalled from memory;
+copied into a public test-data file, and their 5 % table recalled from memory;
 durbin_watson_examples.json (R lmtest data); statsmodels' durbin_watson statistic; a seeded
 Monte Carlo of the null distribution.
 """
@@ -36,7 +36,7 @@ def _savin_white(name, skip=()):
     return out
 
 
-# n=40, k'=5 is a known misprint of the transcribed 1 % table
+# n=40, k'=5 is a known misprint of the copied 1 % table
 TABLE1 = _savin_white("durbin_watson_bounds_1pct_savin_white.txt", skip={(40, 5)})
 # Savin & White (1977) 5 % table, recalled from memory (see the file's header)
 TABLE5 = _savin_white("durbin_watson_bounds_5pct_savin_white.txt")

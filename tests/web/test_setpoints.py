@@ -126,7 +126,7 @@ def _withdrawn(db, study_id, version_id, fit_id):
 
 
 def _new_data(db, study_id, version_id, fit_id):
-    h.add_version(db, study_id, reason="row 4 transcribed wrongly")
+    h.add_version(db, study_id, reason="row 4 typed wrongly")
     return "no longer applies"
 
 

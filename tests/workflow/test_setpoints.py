@@ -118,7 +118,7 @@ def test_withdrawn_fit_is_refused(db, approved):
 
 def test_approval_of_older_data_no_longer_applies(db, approved):
     study_id, _, fit_id = approved
-    h.add_version(db, study_id, reason="row 4 transcribed wrongly")
+    h.add_version(db, study_id, reason="row 4 typed wrongly")
     with pytest.raises(Conflict, match="no longer applies: data version 2 is newer"):
         propose(db, [fit_id])
 
