@@ -302,7 +302,9 @@ def test_package_csv_is_spreadsheet_safe_and_the_hashed_table_still_verifies(
     zf = zipfile.ZipFile(io.BytesIO(package))
     # The hashed table byte for byte (its SHA-256 is the one the signed snapshot names) ...
     assert zf.read("data/v1/canonical.csv") == stored
-    assert zf.read("data/v1/original/Messdaten-_-__.csv") == data
+    # The original under its UTF-8 name (the ZIP's UTF-8 flag set), not mangled to underscores.
+    assert zf.read(f"data/v1/original/{name}") == data
+    assert zf.getinfo(f"data/v1/original/{name}").flag_bits & 0x800
     # ... and beside it the copy for spreadsheets, made by the web download's guard.
     copy = zf.read("data/v1/canonical-spreadsheet.csv")
     assert copy == safe_csv(stored) == client.get(f"/data/{version_id}/canonical.csv").data
