@@ -142,6 +142,37 @@ def users_deactivate(username: str) -> None:
         _fail(exc.message)
 
 
+@users.command("rename")
+@click.argument("username")
+@click.option("--name", "full_name", required=True, help="The new printed name.")
+def users_rename(username: str, full_name: str) -> None:
+    """Change the printed name; it must stay unique among active users."""
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    try:
+        with _application() as app, database(app).transaction() as s:
+            user = accounts.set_full_name(s, None, username, full_name)
+            click.echo(f"{user.username}: {user.full_name}")
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
+@users.command("unlock")
+@click.argument("username")
+def users_unlock(username: str) -> None:
+    """End a signing and password-change lock after too many wrong passwords."""
+    from app.store.db import database
+    from app.workflow import WorkflowError, accounts
+
+    try:
+        with _application() as app, database(app).transaction() as s:
+            accounts.unlock(s, None, username)
+            click.echo(f"{username}: signing and password change unlocked")
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
 # ---- tokens -------------------------------------------------------------------------------
 
 @main.group(help="Personal API tokens.")

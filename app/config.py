@@ -12,6 +12,10 @@ DEFAULTS: dict[str, object] = {
     "ARGON2_MEMORY_KIB": 65536,
     "ARGON2_TIME_COST": 3,
     "ARGON2_PARALLELISM": 1,
+    # Consecutive wrong passwords (at signing and at a password change, one counter) that lock
+    # both for SIGN_LOCK_MINUTES or until an admin unlocks the account.
+    "SIGN_LOCK_FAILURES": 5,
+    "SIGN_LOCK_MINUTES": 15,
     "SESSION_IDLE_MINUTES": 30,
     "SESSION_MAX_HOURS": 12,
     "MAX_UPLOAD_BYTES": 20_000_000,

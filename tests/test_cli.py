@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+from datetime import UTC, datetime, timedelta
+
 import pytest
 from click.testing import CliRunner
-from sqlalchemy import create_engine, func, select
+from sqlalchemy import create_engine, func, select, update
 from sqlalchemy.orm import Session
 
 from app.cli import main
@@ -45,6 +47,42 @@ def test_users_lifecycle(cli_env):
     assert runner.invoke(main, ["users", "deactivate", "mkade"]).exit_code == 0
     rows = _query(url, select(User.roles, User.active).where(User.username == "mkade"))
     assert rows == [("auditor", False)]
+
+
+def test_users_unlock_ends_a_signing_lock(cli_env):
+    runner, url = cli_env
+    added = runner.invoke(main, ["users", "add", "abel", "--name", "Abel Approver", "--roles",
+                                 "approver", "--password-stdin"],
+                          input="a sufficiently long phrase\n")
+    assert added.exit_code == 0, added.output
+    engine = create_engine(url)
+    with Session(engine) as s, s.begin():
+        s.execute(update(User).where(User.username == "abel").values(reauth_failures=5,
+                  reauth_locked_until=datetime.now(UTC) + timedelta(minutes=15)))
+    engine.dispose()
+    result = runner.invoke(main, ["users", "unlock", "abel"])
+    assert result.exit_code == 0 and "unlocked" in result.output
+    rows = _query(url, select(User.reauth_failures, User.reauth_locked_until)
+                  .where(User.username == "abel"))
+    assert rows == [(0, None)]
+    assert runner.invoke(main, ["users", "unlock", "ghost"]).exit_code == 2
+
+
+def test_users_rename_keeps_printed_names_unique(cli_env):
+    runner, url = cli_env
+    for username, name in (("abel", "Abel Approver"), ("ada", "Ada Approver")):
+        added = runner.invoke(main, ["users", "add", username, "--name", name, "--roles",
+                                     "approver", "--password-stdin"],
+                              input="a sufficiently long phrase\n")
+        assert added.exit_code == 0, added.output
+    taken = runner.invoke(main, ["users", "rename", "ada", "--name", "ABEL approver"])
+    assert taken.exit_code == 2 and "already has the printed name" in taken.output
+    renamed = runner.invoke(main, ["users", "rename", "ada", "--name", "Ada Okafor"])
+    assert renamed.exit_code == 0 and "ada: Ada Okafor" in renamed.output
+    both = runner.invoke(main, ["users", "add", "max", "--name", "Max", "--roles",
+                                "admin,approver", "--password-stdin"],
+                         input="a sufficiently long phrase\n")
+    assert both.exit_code == 2 and "admin and the approver" in both.output
 
 
 @pytest.mark.parametrize("args, stdin, message", [

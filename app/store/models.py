@@ -34,6 +34,10 @@ class User(Base):
     must_change_password: Mapped[bool] = mapped_column(Boolean, default=False)
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     password_changed_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # Consecutive wrong passwords at signing or at a password change (one counter for both),
+    # and the end of the lock they led to (app.workflow.signing).
+    reauth_failures: Mapped[int] = mapped_column(Integer, default=0, server_default="0")
+    reauth_locked_until: Mapped[datetime | None] = mapped_column(UTCDateTime)
 
     sessions: Mapped[list[UserSession]] = relationship(back_populates="user")
 

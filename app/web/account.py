@@ -2,14 +2,23 @@
 
 from __future__ import annotations
 
-from flask import Blueprint, flash, g, redirect, render_template, request, session, url_for
+from flask import (
+    Blueprint,
+    current_app,
+    flash,
+    g,
+    redirect,
+    render_template,
+    request,
+    session,
+    url_for,
+)
 from sqlalchemy import select
 
 from app.store.models import ApiToken
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, tx
-from app.workflow import WorkflowError, accounts
-from app.workflow.passwords import verify_password
+from app.web.common import me, read_session, tx
+from app.workflow import WorkflowError, accounts, signing
 
 bp = Blueprint("account", __name__, url_prefix="/account")
 
@@ -55,20 +64,35 @@ def revoke_token(token_id: int):
     return redirect(url_for("account.page"))
 
 
+def _new_password_hash(attempt: signing.Attempt, limits: signing.Lockout) -> str:
+    """The new password checked and hashed before any write; a refusal is audited."""
+    new = request.form.get("new_password", "")
+    try:
+        if new != request.form.get("confirm_password", ""):
+            raise WorkflowError("The new password and its confirmation differ.",
+                                field="confirm_password")
+        return accounts.new_password_hash(new, username=g.user.username)
+    except WorkflowError as exc:
+        with tx() as s:
+            signing.record_refusal(s, me(s), attempt, exc, limits)
+        raise
+
+
 @bp.route("/password", methods=["POST"])
 @allow(SIGNED_IN)
 def change_password():
-    current = request.form.get("current_password", "")
-    new = request.form.get("new_password", "")
-    if new != request.form.get("confirm_password", ""):
-        flash("The new password and its confirmation differ.", "error")
-        return redirect(url_for("account.page"))
-    if not verify_password(g.user.password_hash, current):
-        flash("The current password is wrong.", "error")
-        return redirect(url_for("account.page"))
+    """The current password is checked before the write, against the same counter of wrong
+    passwords as signing; every refusal is audited."""
+    attempt = signing.Attempt(doing="change password", object_type="user",
+                              object_id=g.user.id, action="user.password_change_refused")
+    limits = signing.Lockout.from_config(current_app.config)
     try:
-        with tx() as s:
-            accounts.set_password(s, me(s), g.user.username, new)
+        new_hash = _new_password_hash(attempt, limits)
+        signing.signed(read_session, tx, actor_id=g.user.id,
+                       password=request.form.get("current_password", ""), attempt=attempt,
+                       act=lambda s, actor, proof: accounts.change_own_password(s, actor, proof,
+                                                                                 new_hash),
+                       limits=limits, refusal="The current password is wrong.")
     except WorkflowError as exc:
         flash(exc.message, "error")
         return redirect(url_for("account.page"))

@@ -8,12 +8,12 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import Blueprint, jsonify, url_for
+from flask import Blueprint, current_app, g, jsonify, url_for
 
 from app.web.access import allow
-from app.web.common import me, tx
+from app.web.common import me, read_session, tx
 from app.web.openapi import document, json_body, ref, schema
-from app.workflow import fits, reviews
+from app.workflow import fits, reviews, signing
 
 bp = Blueprint("api_reviews", __name__, url_prefix="/api/v1")
 
@@ -47,7 +47,8 @@ schema("Signature", {
                  "comment", "snapshot_sha256", "manifest_sha256", "status", "status_reason"],
     "properties": {
         "id": {"type": "integer"}, "fit_id": {"type": "integer"},
-        "signer_id": {"type": "integer"}, "signer": {"type": "string"},
+        "signer_id": {"type": "integer"},
+        "signer": {"type": "string", "description": "The signer's user name"},
         "printed_name": {"type": "string"},
         "signed_at": {"type": "string", "format": "date-time", "description": "Server UTC"},
         "meaning": {"type": "string"}, "comment": {"type": "string"},
@@ -92,20 +93,21 @@ def sign(fit_id: int):
     """Approve ("approved for setpoint use") or return ("returned for rework", with a comment).
 
     The password is checked again; a wrong one is refused with 403 and recorded in the audit
-    trail. Nobody signs a fit they made or submitted.
+    trail, and five wrong passwords in a row lock signing for a while. Nobody signs a fit they
+    made, submitted, or whose data version they uploaded; every refusal is recorded.
     """
     body = json_body("SignatureCreate")
-    try:
-        with tx() as s:
-            fit = fits.get_fit(s, fit_id)
-            sig = reviews.sign(s, me(s), fit, meaning=body["meaning"], password=body["password"],
-                               comment=body.get("comment"),
-                               expected_row_version=body.get("row_version"))
-            out = reviews.signature_json(fit, sig)
-    except reviews.SignatureRefused as exc:
-        with tx() as s:
-            reviews.record_refusal(s, me(s), fit_id, "sign", exc.message)
-        raise
+
+    def act(s, actor, proof):
+        fit = fits.get_fit(s, fit_id)
+        sig = reviews.sign(s, actor, fit, meaning=body["meaning"], proof=proof,
+                           comment=body.get("comment"),
+                           expected_row_version=body.get("row_version"))
+        return reviews.signature_json(fit, sig)
+
+    out = signing.signed(read_session, tx, actor_id=g.user.id, password=body["password"],
+                         attempt=reviews.attempt(fit_id, "sign"), act=act,
+                         limits=signing.Lockout.from_config(current_app.config))
     response = jsonify(out)
     response.status_code = 201
     response.headers["Location"] = url_for("api.get_fit", fit_id=fit_id)

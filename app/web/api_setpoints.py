@@ -10,14 +10,14 @@ from __future__ import annotations
 
 import json
 
-from flask import Blueprint, jsonify, request, url_for
+from flask import Blueprint, current_app, g, jsonify, request, url_for
 
 from app.analysis.optimize import CAUTION
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
-from app.web.common import attachment, me, tx
+from app.web.common import attachment, me, read_session, tx
 from app.web.openapi import ID, Media, document, id_parameter, json_body, ref, schema
-from app.workflow import WorkflowError, fits, setpoint_export, setpoints
+from app.workflow import WorkflowError, fits, setpoint_export, setpoints, signing
 
 bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
 
@@ -132,20 +132,21 @@ def get(proposal_id: int):
                      409: ("Not a draft, changed meanwhile, or " + GUARDS[0].lower() + GUARDS[1:],
                            ref("Error"))})
 def release(proposal_id: int):
-    """The password is checked again; a wrong one is refused with 403 and recorded. Nobody
-    releases a proposal they made."""
+    """The password is checked again; a wrong one is refused with 403 and recorded, and five
+    wrong passwords in a row lock signing for a while. Nobody releases a proposal they made or
+    one that uses a fit they made; every refusal is recorded."""
     body = json_body("SetpointRelease")
-    try:
-        with tx() as s:
-            proposal = setpoints.get_proposal(s, proposal_id)
-            sig = setpoints.release(s, me(s), proposal, password=body["password"],
-                                    meaning=body["meaning"], comment=body.get("comment"),
-                                    expected_row_version=body.get("row_version"))
-            out = setpoints.signature_json(s, proposal, sig)
-    except setpoints.SignatureRefused as exc:
-        with tx() as s:
-            setpoints.record_refusal(s, me(s), proposal_id, exc.message)
-        raise
+
+    def act(s, actor, proof):
+        proposal = setpoints.get_proposal(s, proposal_id)
+        sig = setpoints.release(s, actor, proposal, proof=proof, meaning=body["meaning"],
+                                comment=body.get("comment"),
+                                expected_row_version=body.get("row_version"))
+        return setpoints.signature_json(s, proposal, sig)
+
+    out = signing.signed(read_session, tx, actor_id=g.user.id, password=body["password"],
+                         attempt=setpoints.attempt(proposal_id), act=act,
+                         limits=signing.Lockout.from_config(current_app.config))
     response = jsonify(out)
     response.status_code = 201
     response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)

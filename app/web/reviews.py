@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import json
 
-from flask import Blueprint, flash, redirect, render_template, request, url_for
+from flask import Blueprint, current_app, flash, g, redirect, render_template, request, url_for
 
 from app.analysis.calibration import rates_for_design
 from app.store import audit
 from app.store.db import get_session
 from app.web.access import allow
-from app.web.common import me, tx
-from app.workflow import WorkflowError, fits, reviews
+from app.web.common import me, read_session, tx
+from app.workflow import WorkflowError, fits, reviews, signing
 from app.workflow.compare import differences
 from app.workflow.history import events_of_fit
 
@@ -78,6 +78,15 @@ RATE_COLUMNS = (
 )
 
 
+def _barred(fit) -> str | None:
+    """Why separation of duties keeps the viewer from signing this fit, if it does."""
+    try:
+        signing.check_fit_signer(g.user, fit)
+    except signing.DutiesConflict as exc:
+        return exc.message
+    return None
+
+
 def review_context(session, fit) -> dict:
     results = fits.results_of(fit)
     checks = results.get("checks", [])
@@ -92,6 +101,8 @@ def review_context(session, fit) -> dict:
         "previous": previous,
         "diff": None if previous is None else differences(previous, fit),
         "meanings": list(reviews.SIGN_MEANINGS),
+        "duties": signing.SEPARATION_OF_DUTIES,
+        "barred": _barred(fit),
         "design_rates": rates_for_design(results.get("design", {}),
                                          results.get("spec", {}).get("model")),
         "rate_columns": RATE_COLUMNS,
@@ -107,25 +118,25 @@ def review(fit_id: int):
     return render_template("reviews/review.html", **review_context(session, fit))
 
 
-def _refused(fit_id: int, doing: str, exc: reviews.SignatureRefused) -> None:
-    with tx() as s:
-        reviews.record_refusal(s, me(s), fit_id, doing, exc.message)
+def signed(attempt: signing.Attempt, act):
+    """Run a signing step: password checked before the write, every refusal audited."""
+    return signing.signed(read_session, tx, actor_id=g.user.id,
+                          password=request.form.get("password"), attempt=attempt, act=act,
+                          limits=signing.Lockout.from_config(current_app.config))
 
 
 @bp.route("/fits/<int:fit_id>/sign", methods=["POST"])
 @allow("approver")
 def sign(fit_id: int):
     form = request.form
+
+    def act(s, actor, proof):
+        return reviews.sign(s, actor, fits.get_fit(s, fit_id), meaning=form.get("meaning", ""),
+                            proof=proof, comment=form.get("comment"),
+                            expected_row_version=_row_version(form)).meaning
+
     try:
-        with tx() as s:
-            fit = fits.get_fit(s, fit_id)
-            sig = reviews.sign(s, me(s), fit, meaning=form.get("meaning", ""),
-                               password=form.get("password"), comment=form.get("comment"),
-                               expected_row_version=_row_version(form))
-            meaning = sig.meaning
-    except reviews.SignatureRefused as exc:
-        _refused(fit_id, "sign", exc)
-        return _failed(fit_id, exc)
+        meaning = signed(reviews.attempt(fit_id, "sign"), act)
     except WorkflowError as exc:
         if exc.status == 404:
             raise
@@ -138,15 +149,13 @@ def sign(fit_id: int):
 @allow("approver")
 def withdraw(fit_id: int):
     form = request.form
+
+    def act(s, actor, proof):
+        reviews.withdraw(s, actor, fits.get_fit(s, fit_id), proof=proof,
+                         reason=form.get("reason", ""), expected_row_version=_row_version(form))
+
     try:
-        with tx() as s:
-            fit = fits.get_fit(s, fit_id)
-            reviews.withdraw(s, me(s), fit, password=form.get("password"),
-                             reason=form.get("reason", ""),
-                             expected_row_version=_row_version(form))
-    except reviews.SignatureRefused as exc:
-        _refused(fit_id, "withdraw", exc)
-        return _failed(fit_id, exc)
+        signed(reviews.attempt(fit_id, "withdraw"), act)
     except WorkflowError as exc:
         if exc.status == 404:
             raise

@@ -11,6 +11,7 @@ from flask import (
     Blueprint,
     current_app,
     flash,
+    g,
     redirect,
     render_template,
     request,
@@ -22,9 +23,17 @@ from app.analysis.optimize import CAUTION, SetpointError, design_space
 from app.store.db import get_session
 from app.store.models import Fit
 from app.web.access import SIGNED_IN, allow
-from app.web.common import attachment, me, parse_id, tx
+from app.web.common import attachment, me, parse_id, read_session, tx
 from app.web.setpoint_charts import design_space_chart
-from app.workflow import WorkflowError, confirmations, fits, setpoint_export, setpoints, studies
+from app.workflow import (
+    WorkflowError,
+    confirmations,
+    fits,
+    setpoint_export,
+    setpoints,
+    signing,
+    studies,
+)
 
 bp = Blueprint("setpoints", __name__)
 
@@ -157,6 +166,7 @@ def sheet_context(session, proposal) -> dict[str, Any]:
         "confirmations": [(run, confirmations.results_of(run))
                           for run in proposal.confirmations],
         "meanings": setpoints.RELEASE_MEANINGS,
+        "duties": signing.SEPARATION_OF_DUTIES,
         # the fits' own factor order (the stored JSON has its keys sorted)
         "factor_names": list(units) or list(result["optimum"]["settings"]),
     }
@@ -205,11 +215,6 @@ def design_space_page(proposal_id: int):
     return render_template("setpoints/design_space.html", **context)
 
 
-def _refused(proposal_id: int, exc: setpoints.SignatureRefused) -> None:
-    with tx() as s:
-        setpoints.record_refusal(s, me(s), proposal_id, exc.message)
-
-
 @bp.route("/setpoints/<int:proposal_id>/release", methods=["POST"])
 @allow("approver")
 def release(proposal_id: int):
@@ -217,17 +222,18 @@ def release(proposal_id: int):
     raw_version = (form.get("row_version") or "").strip()
     try:
         expected = int(raw_version) if raw_version else None
-        with tx() as s:
-            proposal = setpoints.get_proposal(s, proposal_id)
-            setpoints.release(s, me(s), proposal, password=form.get("password"),
-                              meaning=form.get("meaning", setpoints.RELEASE),
-                              comment=form.get("comment"), expected_row_version=expected)
     except ValueError:
         return _sheet(proposal_id, "row_version must be a whole number.", "row_version", 400)
-    except setpoints.SignatureRefused as exc:
-        get_session().rollback()
-        _refused(proposal_id, exc)
-        return _sheet(proposal_id, exc.message, exc.field, exc.status)
+
+    def act(s, actor, proof):
+        setpoints.release(s, actor, setpoints.get_proposal(s, proposal_id), proof=proof,
+                          meaning=form.get("meaning", setpoints.RELEASE),
+                          comment=form.get("comment"), expected_row_version=expected)
+
+    try:
+        signing.signed(read_session, tx, actor_id=g.user.id, password=form.get("password"),
+                       attempt=setpoints.attempt(proposal_id), act=act,
+                       limits=signing.Lockout.from_config(current_app.config))
     except WorkflowError as exc:
         if exc.status == 404:
             raise

@@ -15,7 +15,7 @@ from sqlalchemy.orm import Session
 from app.store import audit
 from app.store.base import utcnow
 from app.store.models import ROLES, ApiToken, LoginFailure, User, UserSession
-from app.workflow import Conflict, NotFound, WorkflowError, in_id_range
+from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing
 from app.workflow.passwords import dummy_hash, hash_password, password_problem, verify_password
 
 USERNAME_RE = re.compile(r"^[a-z0-9][a-z0-9._-]{1,63}$")
@@ -54,11 +54,13 @@ def create_user(session: Session, actor: User | None, *, username: str, full_nam
         raise WorkflowError("Full name is required: it is printed with every signature.",
                             field="full_name")
     role_list = parse_roles(roles)
+    signing.check_role_combination(role_list)
     problem = password_problem(password, username=username)
     if problem:
         raise WorkflowError(problem, field="password")
     if session.scalar(select(User.id).where(User.username == username)) is not None:
         raise Conflict(f"User name '{username}' is taken.", field="username")
+    signing.check_printed_name(session, full_name)
     user = User(username=username, full_name=full_name.strip(), roles=",".join(role_list),
                 password_hash=hash_password(password), must_change_password=one_time)
     session.add(user)
@@ -74,6 +76,7 @@ def set_roles(session: Session, actor: User | None, username: str, roles: str | 
     user = get_user(session, username)
     old = sorted(user.role_set)
     new = parse_roles(roles)
+    signing.check_role_change(actor, user, new)
     user.roles = ",".join(new)
     audit.record(session, actor=actor, action="user.set_roles", object_type="user",
                  object_id=user.id, old={"roles": old}, new={"roles": new})
@@ -84,6 +87,8 @@ def set_active(session: Session, actor: User | None, username: str, active: bool
     user = get_user(session, username)
     if actor is not None and actor.id == user.id and not active:
         raise WorkflowError("You cannot deactivate your own account.", field="username")
+    if active and not user.active:
+        signing.check_printed_name(session, user.full_name, user_id=user.id)
     old = user.active
     user.active = active
     if not active:
@@ -97,12 +102,24 @@ def set_active(session: Session, actor: User | None, username: str, active: bool
     return user
 
 
-def set_password(session: Session, actor: User | None, username: str, password: str) -> User:
-    user = get_user(session, username)
-    problem = password_problem(password, username=user.username)
+def new_password_hash(password: str, *, username: str) -> str:
+    """The argon2id hash of an acceptable new password. Slow on purpose: call it before the
+    write transaction opens (SQLite has one writer)."""
+    problem = password_problem(password, username=username)
     if problem:
         raise WorkflowError(problem, field="password")
-    user.password_hash = hash_password(password)
+    return hash_password(password)
+
+
+def set_password(session: Session, actor: User | None, username: str, password: str) -> User:
+    user = get_user(session, username)
+    return _store_password(session, actor, user, new_password_hash(password,
+                                                                   username=user.username))
+
+
+def _store_password(session: Session, actor: User | None, user: User,
+                    password_hash: str) -> User:
+    user.password_hash = password_hash
     user.password_changed_at = utcnow()
     # Someone else setting the password makes it one-time; the user setting it clears that.
     user.must_change_password = actor is None or actor.id != user.id
@@ -110,6 +127,56 @@ def set_password(session: Session, actor: User | None, username: str, password: 
     audit.record(session, actor=actor, action="user.set_password", object_type="user",
                  object_id=user.id, new={"password": "changed"})
     return user
+
+
+def set_full_name(session: Session, actor: User | None, username: str, full_name: str) -> User:
+    """Change the printed name; it stays unique among active users."""
+    user = get_user(session, username)
+    full_name = full_name.strip()
+    if not full_name:
+        raise WorkflowError("Full name is required: it is printed with every signature.",
+                            field="full_name")
+    if user.active:
+        signing.check_printed_name(session, full_name, user_id=user.id)
+    old, user.full_name = user.full_name, full_name
+    audit.record(session, actor=actor, action="user.set_full_name", object_type="user",
+                 object_id=user.id, old={"full_name": old}, new={"full_name": full_name})
+    return user
+
+
+def change_own_password(session: Session, actor: User, proof: signing.Reauthenticated | None,
+                        password_hash: str) -> User:
+    """The signed-in user replaces their password with one hashed by
+    :func:`new_password_hash` before this transaction. ``proof`` is the current password, also
+    checked before it (:func:`app.workflow.signing.signed`); success clears the count of wrong
+    passwords."""
+    signing.accept(session, actor, proof)
+    return _store_password(session, actor, actor, password_hash)
+
+
+def unlock(session: Session, actor: User | None, username: str) -> User:
+    """End a signing and password-change lock, and the count of wrong passwords, at once."""
+    user = get_user(session, username)
+    old = {"consecutive_failures": user.reauth_failures,
+           "locked_until": None if user.reauth_locked_until is None
+           else user.reauth_locked_until.strftime("%Y-%m-%dT%H:%M:%SZ")}
+    user.reauth_failures = 0
+    user.reauth_locked_until = None
+    audit.record(session, actor=actor, action="user.unlock", object_type="user",
+                 object_id=user.id, old=old, new={"consecutive_failures": 0,
+                                                  "locked_until": None})
+    return user
+
+
+def record_refused_change(session: Session, actor: User | None, username: str, doing: str,
+                          exc: WorkflowError) -> None:
+    """Audit a refused account change (own roles, admin with approver, a printed name taken),
+    in a transaction of its own after the refused one rolled back."""
+    user = session.scalar(select(User).where(User.username == username))
+    audit.record(session, actor=actor, action="user.change_refused", object_type="user",
+                 object_id=None if user is None else user.id,
+                 new={"username": username[:64], "attempted": doing,
+                      "cause": signing.cause_of(exc), "why": exc.message})
 
 
 def revoke_sessions(session: Session, user_id: int) -> None:

@@ -9,48 +9,52 @@ A returned fit is final: it stays returned as the record of what was refused, an
 makes a new fit with the changes and submits that one. Every state change is a conditional
 ``UPDATE … WHERE id = ? AND state = ? AND row_version = ?``; when no row matches, someone else
 moved the fit first and the caller gets :class:`~app.workflow.Conflict`. Each step appends its
-audit event (old and new state) in the same transaction.
+audit event (old and new state) in the same transaction. Signing and withdrawal follow the one
+set of signing rules in :mod:`app.workflow.signing` (password before the write, separation of
+duties, audited refusals, lockout).
 """
 
 from __future__ import annotations
 
-import hashlib
-from dataclasses import dataclass
 from typing import Any
 
 from sqlalchemy import func, select, update
 from sqlalchemy.orm import Session
 
 from app.store import audit
-from app.store.audit import canonical_json
 from app.store.base import utcnow
 from app.store.models import DataVersion, Fit, Signature, Study, User
-from app.workflow import Conflict, Forbidden, WorkflowError, in_id_range
+from app.workflow import Conflict, WorkflowError, signing
 from app.workflow.fits import snapshot_sha256
-from app.workflow.passwords import verify_password
+from app.workflow.signing import (
+    INVALID,
+    NOT_APPLYING,
+    VALID,
+    Reauthenticated,
+    SignatureCheck,
+    SignatureRefused,
+    clean_comment,
+    manifest_document,
+    manifest_sha256,
+    require_role,
+    signature_summary,
+)
 
 APPROVE = "approved for setpoint use"
 RETURN = "returned for rework"
 WITHDRAW = "withdrawn from use"
 # The meanings an approver may choose when signing a submitted fit, and the state each leads to.
 SIGN_MEANINGS = {APPROVE: "approved", RETURN: "returned"}
-MAX_COMMENT = 4000
-VALID, INVALID, NOT_APPLYING = "valid", "invalid", "not_applying"
+
+__all__ = ["APPROVE", "INVALID", "NOT_APPLYING", "RETURN", "SIGN_MEANINGS", "VALID", "WITHDRAW",
+           "SignatureCheck", "SignatureRefused", "attempt", "check_signature",
+           "manifest_document", "manifest_sha256", "previous_approved", "sign",
+           "signature_json", "signature_status", "signatures_json", "submit", "withdraw"]
 
 
-class SignatureRefused(Forbidden):
-    """The password given at signing was wrong. Record it with :func:`record_refusal`.
-
-    The refusal must outlive the rolled-back signing transaction, so callers write it in a
-    transaction of its own (as login failures are).
-    """
-
-
-# The signing rules below are shared by fit sign-off and setpoint release.
-
-def require_role(actor: User, role: str, doing: str) -> None:
-    if not actor.has_role(role):
-        raise Forbidden(f"Only a user with the {role} role may {doing}.", field="role")
+def attempt(fit_id: int, doing: str) -> signing.Attempt:
+    """What a refused sign-off or withdrawal of ``fit_id`` is recorded as."""
+    return signing.Attempt(doing=doing, object_type="fit", object_id=fit_id)
 
 
 def _latest_version(session: Session, study_id: int) -> int:
@@ -113,52 +117,19 @@ def submit(session: Session, actor: User, fit: Fit,
     return fit
 
 
-def manifest_fields(signature: Signature) -> dict[str, Any]:
-    """What a signature's manifest SHA-256 covers."""
-    return {"fit_id": signature.fit_id, "signer_id": signature.signer_id,
-            "printed_name": signature.printed_name,
-            "signed_at": signature.signed_at.strftime("%Y-%m-%dT%H:%M:%S.%fZ"),
-            "meaning": signature.meaning, "comment": signature.comment or "",
-            "snapshot_sha256": signature.snapshot_sha256}
+def sign(session: Session, actor: User, fit: Fit, *, meaning: str,
+         proof: Reauthenticated | None, comment: str | None = None,
+         expected_row_version: int | None = None) -> Signature:
+    """Sign a submitted fit: approve it or return it.
 
-
-def manifest_sha256(signature: Signature) -> str:
-    return hashlib.sha256(canonical_json(manifest_fields(signature)).encode()).hexdigest()
-
-
-def verify_signer_password(actor: User, password: str | None) -> None:
-    """Password re-entry at the moment of signing (21 CFR 11.200(a))."""
-    if not password or not verify_password(actor.password_hash, password):
-        raise SignatureRefused("The password is wrong; nothing was signed.", field="password")
-
-
-def _add_signature(session: Session, actor: User, fit: Fit, meaning: str,
-                   comment: str) -> Signature:
-    sig = Signature(fit_id=fit.id, signer_id=actor.id, printed_name=actor.full_name,
-                    signed_at=utcnow(), meaning=meaning, comment=comment,
-                    snapshot_sha256=fit.snapshot_sha256, manifest_sha256="")
-    sig.manifest_sha256 = manifest_sha256(sig)
-    session.add(sig)
-    session.flush()
-    return sig
-
-
-def clean_comment(comment: str | None) -> str:
-    text = (comment or "").strip()
-    if len(text) > MAX_COMMENT:
-        raise WorkflowError(f"The comment is longer than {MAX_COMMENT} characters.",
-                            field="comment")
-    return text
-
-
-def sign(session: Session, actor: User, fit: Fit, *, meaning: str, password: str | None,
-         comment: str | None = None, expected_row_version: int | None = None) -> Signature:
-    """Sign a submitted fit with the approver's password again: approve it or return it.
-
-    Approving supersedes the previously approved fit of the same study and response in the same
-    transaction. Raises Forbidden (role, own fit), SignatureRefused (wrong password), Conflict
-    (wrong state, stale version, altered snapshot, newer data), WorkflowError (meaning, comment).
+    ``proof`` is the password check made before this transaction
+    (:func:`app.workflow.signing.reauthenticate`; :func:`app.workflow.signing.signed` runs the
+    sequence). Approving supersedes the previously approved fit of the same study and response
+    in the same transaction. Raises SignatureRefused (proof, lock), Forbidden (role, separation
+    of duties), Conflict (wrong state, stale version, altered snapshot, newer data),
+    WorkflowError (meaning, comment).
     """
+    signing.accept(session, actor, proof)
     require_role(actor, "approver", "sign a fit")
     if meaning not in SIGN_MEANINGS:
         raise WorkflowError(f"Choose a meaning for the signature: {APPROVE!r} or {RETURN!r}.",
@@ -167,15 +138,13 @@ def sign(session: Session, actor: User, fit: Fit, *, meaning: str, password: str
     if meaning == RETURN and not comment:
         raise WorkflowError("Returning a fit needs a comment saying what to rework.",
                             field="comment")
-    if actor.id in (fit.created_by_id, fit.submitted_by_id):
-        raise Forbidden("You made or submitted this fit; someone else must sign it.",
-                        field="signer")
+    signing.check_fit_signer(actor, fit)
     version = _expect(fit, "submitted", expected_row_version, "be signed")
     _check_current(session, fit, "signed")
-    verify_signer_password(actor, password)
     new_state = SIGN_MEANINGS[meaning]
     _move(session, fit, from_state="submitted", to_state=new_state, row_version=version)
-    sig = _add_signature(session, actor, fit, meaning, comment)
+    sig = signing.add_signature(session, actor, meaning=meaning, comment=comment,
+                                snapshot_sha256=fit.snapshot_sha256, fit_id=fit.id)
     audit.record(session, actor=actor, action="fit.approve" if new_state == "approved"
                  else "fit.return", object_type="fit", object_id=fit.id, study_id=fit.study_id,
                  old={"state": "submitted", "row_version": version},
@@ -204,41 +173,24 @@ def _supersede_others(session: Session, actor: User, fit: Fit) -> None:
                      reason=f"fit {fit.id} was approved for the same response")
 
 
-def withdraw(session: Session, actor: User, fit: Fit, *, password: str | None, reason: str,
-             expected_row_version: int | None = None) -> Signature:
+def withdraw(session: Session, actor: User, fit: Fit, *, proof: Reauthenticated | None,
+             reason: str, expected_row_version: int | None = None) -> Signature:
     """Withdraw an approved fit from use (approved → withdrawn), signed with a reason."""
+    signing.accept(session, actor, proof)
     require_role(actor, "approver", "withdraw an approved fit")
     reason = clean_comment(reason)
     if not reason:
         raise WorkflowError("Withdrawing a fit needs a reason.", field="reason")
     version = _expect(fit, "approved", expected_row_version, "be withdrawn")
-    verify_signer_password(actor, password)
     _move(session, fit, from_state="approved", to_state="withdrawn", row_version=version)
-    sig = _add_signature(session, actor, fit, WITHDRAW, reason)
+    sig = signing.add_signature(session, actor, meaning=WITHDRAW, comment=reason,
+                                snapshot_sha256=fit.snapshot_sha256, fit_id=fit.id)
     audit.record(session, actor=actor, action="fit.withdraw", object_type="fit",
                  object_id=fit.id, study_id=fit.study_id,
                  old={"state": "approved", "row_version": version},
                  new={"state": "withdrawn", "row_version": fit.row_version,
                       "signature": signature_summary(sig)}, reason=reason)
     return sig
-
-
-def record_refusal(session: Session, actor: User, fit_id: int, doing: str, why: str) -> None:
-    """Audit a refused signature (wrong password), in its own transaction."""
-    fit = session.get(Fit, fit_id) if in_id_range(fit_id) else None
-    audit.record(session, actor=actor, action="signature.refused", object_type="fit",
-                 object_id=fit_id, study_id=None if fit is None else fit.study_id,
-                 new={"attempted": doing, "why": why})
-
-
-def signature_summary(sig: Signature) -> dict[str, Any]:
-    return {"id": sig.id, **manifest_fields(sig), "manifest_sha256": sig.manifest_sha256}
-
-
-@dataclass(frozen=True)
-class SignatureCheck:
-    status: str          # valid | invalid | not_applying
-    reason: str
 
 
 def check_signature(fit: Fit, sig: Signature) -> SignatureCheck:
@@ -270,8 +222,7 @@ def signature_status(fit: Fit, sig: Signature) -> str:
 def signature_json(fit: Fit, sig: Signature) -> dict[str, Any]:
     """One signature with its current validity, for the API and the record package."""
     check = check_signature(fit, sig)
-    return {**signature_summary(sig), "signer": sig.signer.username, "status": check.status,
-            "status_reason": check.reason}
+    return {**signature_summary(sig), "status": check.status, "status_reason": check.reason}
 
 
 def signatures_json(fit: Fit) -> list[dict[str, Any]]:

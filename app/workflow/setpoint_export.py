@@ -50,7 +50,8 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "snapshot_intact": proposal_intact(session, proposal),
         "fits": [{"id": f.id, "response": f.response, "state": f.state,
                   "data_version": f.data_version.version, "snapshot_sha256": f.snapshot_sha256,
-                  "approvals": [{"printed_name": s.printed_name, "signed_at": _when(s.signed_at),
+                  "approvals": [{"printed_name": s.printed_name, "signer": s.signer.username,
+                                 "signed_at": _when(s.signed_at),
                                  "meaning": s.meaning, "status": check_signature(f, s).status}
                                 for s in f.signatures if s.meaning == APPROVE]}
                  for f in fits],
@@ -94,16 +95,17 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
         rows.append([response, value, ci[0], ci[1], pi[0], pi[1], each.get(response, "")])
     rows += [["composite desirability", opt["desirability"]], [],
              ["fit id", "response", "data version", "snapshot sha256", "approved by",
-              "approved at (UTC)", "meaning"]]
+              "user name", "approved at (UTC)", "meaning"]]
     for fit in doc["fits"]:
         approval = fit["approvals"][-1] if fit["approvals"] else {}
         rows.append([fit["id"], fit["response"], fit["data_version"], fit["snapshot_sha256"],
-                     approval.get("printed_name"), approval.get("signed_at"),
+                     approval.get("printed_name"), approval.get("signer"),
+                     approval.get("signed_at"),
                      approval.get("meaning")])
-    rows += [[], ["signed by", "signed at (UTC)", "meaning", "comment", "status",
+    rows += [[], ["signed by", "user name", "signed at (UTC)", "meaning", "comment", "status",
                   "manifest sha256"]]
-    rows += [[s["printed_name"], s["signed_at"], s["meaning"], s["comment"], s["status"],
-              s["manifest_sha256"]] for s in doc["signatures"]] or [["not released"]]
+    rows += [[s["printed_name"], s["signer"], s["signed_at"], s["meaning"], s["comment"],
+              s["status"], s["manifest_sha256"]] for s in doc["signatures"]] or [["not released"]]
     rows += [[], ["confirmation", "file", "response", "observed", "95% PI low", "95% PI high",
                   "verdict"]]
     for run in doc["confirmations"]:

@@ -7,10 +7,11 @@ States::
 A proposal is made from one approved fit per response of one study. Every step re-checks that
 each fit is still approved, that its approval still applies (no newer data version) and that its
 signature is still bound to the snapshot; when one does not hold, the caller gets
-:class:`~app.workflow.Conflict` (HTTP 409) with a plain message. Release follows the sign-off
-rules of fits (app.workflow.reviews): the password again, never one's own proposal, a conditional
-update on (state, row_version), and a signature that stores the proposal's snapshot SHA-256 and a
-manifest hash. Each step appends its audit event in the same transaction.
+:class:`~app.workflow.Conflict` (HTTP 409) with a plain message. Release follows the signing
+rules of app.workflow.signing (the password again, checked before the write; separation of
+duties; audited refusals), a conditional update on (state, row_version), and a signature that
+stores the proposal's snapshot SHA-256 and a manifest hash. Each step appends its audit event in
+the same transaction.
 """
 
 from __future__ import annotations
@@ -28,31 +29,35 @@ from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError
 from app.analysis.optimize import propose as search_setpoint
 from app.store import audit
 from app.store.audit import canonical_json
-from app.store.base import utcnow
 from app.store.models import Fit, SetpointProposal, Signature, User
-from app.workflow import Conflict, Forbidden, NotFound, WorkflowError, in_id_range
+from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing
 from app.workflow.fits import results_of
-from app.workflow.reviews import (
-    APPROVE,
+from app.workflow.reviews import APPROVE, check_signature
+from app.workflow.signing import (
     INVALID,
     NOT_APPLYING,
     VALID,
+    Reauthenticated,
     SignatureCheck,
     SignatureRefused,
-    check_signature,
     clean_comment,
-    manifest_fields,
+    manifest_sha256,
     require_role,
-    verify_signer_password,
+    signature_summary,
 )
 
 RELEASE = "released for production use"
 RELEASE_MEANINGS = (RELEASE,)
 GOAL_FIELDS = ("goal", "target", "low", "high", "weight", "importance")
 
-__all__ = ["CAUTION", "RELEASE", "SignatureRefused", "fit_problem", "get_proposal",
-           "manifest_sha256", "propose", "proposal_intact", "record_refusal", "release",
-           "release_signatures", "signature_check", "snapshot_sha256"]
+__all__ = ["CAUTION", "RELEASE", "SignatureRefused", "attempt", "fit_problem", "get_proposal",
+           "manifest_sha256", "propose", "proposal_intact", "release", "release_signatures",
+           "signature_check", "signature_summary", "snapshot_sha256"]
+
+
+def attempt(proposal_id: int) -> signing.Attempt:
+    """What a refused release of ``proposal_id`` is recorded as."""
+    return signing.Attempt(doing="release", object_type="setpoint", object_id=proposal_id)
 
 
 # ---- the fits a proposal may come from ----------------------------------------------------
@@ -261,15 +266,6 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
 
 # ---- release ---------------------------------------------------------------------------------
 
-def manifest_document(sig: Signature) -> dict[str, Any]:
-    """A release signature's manifest: the fit-signature fields plus the setpoint id."""
-    return {**manifest_fields(sig), "setpoint_id": sig.setpoint_id}
-
-
-def manifest_sha256(sig: Signature) -> str:
-    return hashlib.sha256(canonical_json(manifest_document(sig)).encode()).hexdigest()
-
-
 def release_signatures(session: Session, proposal: SetpointProposal) -> list[Signature]:
     return list(session.scalars(select(Signature).where(Signature.setpoint_id == proposal.id)
                                 .order_by(Signature.id)))
@@ -296,22 +292,22 @@ def _check_current(session: Session, proposal: SetpointProposal, doing: str) -> 
 
 
 def release(session: Session, actor: User, proposal: SetpointProposal, *,
-            password: str | None, meaning: str = RELEASE, comment: str | None = None,
+            proof: Reauthenticated | None, meaning: str = RELEASE, comment: str | None = None,
             expected_row_version: int | None = None) -> Signature:
-    """An approver signs the setpoint sheet (draft → released) with the password again.
+    """An approver signs the setpoint sheet (draft → released).
 
-    Raises Forbidden (role, own proposal), SignatureRefused (wrong password), Conflict (not a
-    draft, changed meanwhile, altered snapshot, a fit no longer approved), WorkflowError
-    (meaning, comment).
+    ``proof`` is the password check made before this transaction
+    (:func:`app.workflow.signing.signed` runs the sequence). Raises SignatureRefused (proof,
+    lock), Forbidden (role, separation of duties), Conflict (not a draft, changed meanwhile,
+    altered snapshot, a fit no longer approved), WorkflowError (meaning, comment).
     """
+    signing.accept(session, actor, proof)
     require_role(actor, "approver", "release setpoints")
     if meaning not in RELEASE_MEANINGS:
         raise WorkflowError(f"Choose the meaning {RELEASE!r} to release setpoints.",
                             field="meaning")
     comment = clean_comment(comment)
-    if actor.id == proposal.created_by_id:
-        raise Forbidden("You proposed these setpoints; someone else must release them.",
-                        field="signer")
+    signing.check_releaser(actor, proposal, fits_of(session, proposal))
     if proposal.state != "draft":
         raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}; only a draft "
                        "proposal can be released.", field="state")
@@ -320,7 +316,6 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
         raise Conflict(f"Setpoint proposal {proposal.id} changed since you opened it; reload "
                        "it and look again.", field="row_version")
     _check_current(session, proposal, "released")
-    verify_signer_password(actor, password)
     moved = session.execute(
         update(SetpointProposal)
         .where(SetpointProposal.id == proposal.id, SetpointProposal.state == "draft",
@@ -331,13 +326,9 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
         raise Conflict(f"Setpoint proposal {proposal.id} was changed by someone else a moment "
                        "ago; reload it and look again.", field="row_version")
     session.refresh(proposal)
-    sig = Signature(setpoint_id=proposal.id, fit_id=None, signer_id=actor.id,
-                    printed_name=actor.full_name, signed_at=utcnow(), meaning=meaning,
-                    comment=comment, snapshot_sha256=proposal.snapshot_sha256,
-                    manifest_sha256="")
-    sig.manifest_sha256 = manifest_sha256(sig)
-    session.add(sig)
-    session.flush()
+    sig = signing.add_signature(session, actor, meaning=meaning, comment=comment,
+                                snapshot_sha256=proposal.snapshot_sha256,
+                                setpoint_id=proposal.id)
     audit.record(session, actor=actor, action="setpoint.release", object_type="setpoint",
                  object_id=proposal.id, study_id=proposal.study_id,
                  old={"state": "draft", "row_version": version},
@@ -346,22 +337,7 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
     return sig
 
 
-def signature_summary(sig: Signature) -> dict[str, Any]:
-    return {"id": sig.id, **manifest_document(sig), "manifest_sha256": sig.manifest_sha256}
-
-
 def signature_json(session: Session, proposal: SetpointProposal,
                    sig: Signature) -> dict[str, Any]:
     check = signature_check(session, proposal, sig)
-    return {**signature_summary(sig), "signer": sig.signer.username, "status": check.status,
-            "status_reason": check.reason}
-
-
-def record_refusal(session: Session, actor: User, proposal_id: int, why: str) -> None:
-    """Audit a refused release (wrong password), in a transaction of its own."""
-    proposal = (session.get(SetpointProposal, proposal_id) if in_id_range(proposal_id)
-                else None)
-    audit.record(session, actor=actor, action="signature.refused", object_type="setpoint",
-                 object_id=proposal_id,
-                 study_id=None if proposal is None else proposal.study_id,
-                 new={"attempted": "release", "why": why})
+    return {**signature_summary(sig), "status": check.status, "status_reason": check.reason}

@@ -37,6 +37,7 @@ POLICY: dict[str, set[str] | str] = {
     "admin.add_user": {"admin"},
     "admin.set_roles": {"admin"},
     "admin.set_active": {"admin"},
+    "admin.unlock": {"admin"},
     "studies.index": ANY,
     "studies.create": {"engineer"},
     "studies.view": ANY,

@@ -12,7 +12,7 @@ from sqlalchemy import func, select, text
 
 from app.analysis.optimize import CAUTION
 from app.store.models import AuditEvent, Fit, SetpointProposal
-from app.workflow import accounts, fits, reviews, setpoints
+from app.workflow import accounts, fits, setpoints
 from tests.conftest import PASSWORD
 from tests.workflow import helpers as h
 
@@ -119,9 +119,7 @@ def _superseded(db, study_id, version_id, fit_id):
 
 
 def _withdrawn(db, study_id, version_id, fit_id):
-    with db.transaction() as s:
-        reviews.withdraw(s, h.user(s, "abel"), fits.get_fit(s, fit_id), password=PASSWORD,
-                         reason="gauge out of calibration")
+    h.withdraw(db, fit_id, who="abel", reason="gauge out of calibration")
     return "withdrawn"
 
 

@@ -8,7 +8,7 @@ from app.analysis import Thresholds
 from app.demo_data import rsm_study
 from app.ingest import read_upload, validate
 from app.store.models import User
-from app.workflow import fits, reviews, studies, uploads
+from app.workflow import fits, reviews, signing, studies, uploads
 from tests.conftest import PASSWORD
 
 
@@ -21,13 +21,13 @@ def make_study(db, title: str = "Cure study") -> int:
         return studies.create_study(s, user(s, "erin"), title=title).id
 
 
-def add_version(db, study_id: int, reason: str | None = None) -> int:
+def add_version(db, study_id: int, reason: str | None = None, who: str = "erin") -> int:
     """Upload the demo cure-oven data (again) as the study's next data version."""
     demo = rsm_study()
     with db.transaction() as s:
         study = studies.get_study(s, study_id)
         raw = read_upload(demo.csv_bytes, demo.filename)
-        return uploads.add_data_version(s, user(s, "erin"), study, data=demo.csv_bytes,
+        return uploads.add_data_version(s, user(s, who), study, data=demo.csv_bytes,
                                         filename=demo.filename, raw=raw,
                                         table=validate(raw, demo.roles), reason=reason).id
 
@@ -46,12 +46,32 @@ def submit(db, fit_id: int, who: str = "erin") -> None:
         reviews.submit(s, user(s, who), fits.get_fit(s, fit_id))
 
 
+def signed(db, who: str, password: str | None, attempt: signing.Attempt, act,
+           limits: signing.Lockout = signing.Lockout()):
+    """A signing step as the pages run it: the password checked in a read session, then
+    ``act(session, actor, proof)`` in one write transaction; a refusal is audited."""
+    with db.session(write=False) as s:
+        actor_id = user(s, who).id
+    return signing.signed(lambda: db.session(write=False), db.transaction, actor_id=actor_id,
+                          password=password, attempt=attempt, act=act, limits=limits)
+
+
 def sign(db, fit_id: int, who: str = "abel", meaning: str = reviews.APPROVE,
          password: str = PASSWORD, comment: str | None = None, expected_row_version=None):
-    with db.transaction() as s:
-        return reviews.sign(s, user(s, who), fits.get_fit(s, fit_id), meaning=meaning,
-                            password=password, comment=comment,
-                            expected_row_version=expected_row_version).id
+    def act(s, actor, proof):
+        return reviews.sign(s, actor, fits.get_fit(s, fit_id), meaning=meaning, proof=proof,
+                            comment=comment, expected_row_version=expected_row_version).id
+
+    return signed(db, who, password, reviews.attempt(fit_id, "sign"), act)
+
+
+def withdraw(db, fit_id: int, who: str = "ada", password: str = PASSWORD,
+             reason: str = "Catalyst lot recalled"):
+    def act(s, actor, proof):
+        return reviews.withdraw(s, actor, fits.get_fit(s, fit_id), proof=proof,
+                                reason=reason).id
+
+    return signed(db, who, password, reviews.attempt(fit_id, "withdraw"), act)
 
 
 def approved_fit(db, *, model: str = "quadratic") -> tuple[int, int, int]:

@@ -14,8 +14,7 @@ from sqlalchemy import func, select
 
 from app.store import audit
 from app.store.models import AuditEvent, Fit, Signature
-from app.workflow import Conflict, fits, reviews
-from tests.conftest import PASSWORD
+from app.workflow import Conflict
 from tests.workflow import helpers as h
 
 TRIALS = 200
@@ -40,9 +39,7 @@ def _submitted_copies(db, fit_id: int, n: int) -> list[int]:
 def _approve(db, fit_id: int, who: str, barrier: threading.Barrier, outcome: list) -> None:
     barrier.wait()
     try:
-        with db.transaction() as s:
-            reviews.sign(s, h.user(s, who), fits.get_fit(s, fit_id), meaning=reviews.APPROVE,
-                         password=PASSWORD, expected_row_version=2)
+        h.sign(db, fit_id, who=who, expected_row_version=2)
         outcome.append(("won", who))
     except Conflict as exc:
         lost_at = "update" if exc.field == "row_version" else "state"

@@ -42,10 +42,13 @@ def propose(db, fit_ids, goals=None, bounds=None, fixed=None, who="erin") -> int
         return setpoints.propose(s, h.user(s, who), chosen, goals or GOALS, bounds, fixed).id
 
 
-def release(db, proposal_id, who="abel", password=PASSWORD, comment=None):
-    with db.transaction() as s:
-        return setpoints.release(s, h.user(s, who), setpoints.get_proposal(s, proposal_id),
-                                 password=password, comment=comment).id
+def release(db, proposal_id, who="abel", password=PASSWORD, comment=None,
+            expected_row_version=None):
+    def act(s, actor, proof):
+        return setpoints.release(s, actor, setpoints.get_proposal(s, proposal_id), proof=proof,
+                                 comment=comment, expected_row_version=expected_row_version).id
+
+    return h.signed(db, who, password, setpoints.attempt(proposal_id), act)
 
 
 def confirm(db, proposal_id, body: bytes, who="erin", name="confirm.csv") -> int:
@@ -109,9 +112,7 @@ def test_superseded_fit_is_refused(db, approved):
 
 def test_withdrawn_fit_is_refused(db, approved):
     _, _, fit_id = approved
-    with db.transaction() as s:
-        reviews.withdraw(s, h.user(s, "abel"), fits.get_fit(s, fit_id), password=PASSWORD,
-                         reason="gauge found out of calibration")
+    h.withdraw(db, fit_id, who="abel", reason="gauge found out of calibration")
     with pytest.raises(Conflict, match="withdrawn"):
         propose(db, [fit_id])
 
@@ -207,8 +208,6 @@ def test_wrong_password_signs_nothing(db, approved):
     pid = propose(db, [approved[2]])
     with pytest.raises(setpoints.SignatureRefused):
         release(db, pid, password="not the password")
-    with db.transaction() as s:
-        setpoints.record_refusal(s, h.user(s, "abel"), pid, "wrong password")
     with db.session() as s:
         assert s.get(SetpointProposal, pid).state == "draft"
         assert s.scalar(select(Signature.id).where(Signature.setpoint_id == pid)) is None
@@ -217,9 +216,8 @@ def test_wrong_password_signs_nothing(db, approved):
 
 def test_release_twice_and_stale_version_are_conflicts(db, approved):
     pid = propose(db, [approved[2]])
-    with db.transaction() as s, pytest.raises(Conflict, match="changed since"):
-        setpoints.release(s, h.user(s, "abel"), setpoints.get_proposal(s, pid),
-                          password=PASSWORD, expected_row_version=7)
+    with pytest.raises(Conflict, match="changed since"):
+        release(db, pid, expected_row_version=7)
     release(db, pid)
     with pytest.raises(Conflict, match="only a draft"):
         release(db, pid, who="ada")

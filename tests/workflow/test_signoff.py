@@ -11,7 +11,7 @@ from sqlalchemy import select, text
 from app.store import audit
 from app.store.audit import canonical_json
 from app.store.models import AuditEvent, Fit, Signature
-from app.workflow import Conflict, Forbidden, WorkflowError, accounts, fits, reviews
+from app.workflow import Conflict, Forbidden, WorkflowError, accounts, reviews
 from app.workflow.fits import snapshot_document
 from tests.conftest import PASSWORD
 from tests.workflow import helpers as h
@@ -123,9 +123,7 @@ def test_wrong_password_is_refused_and_recorded(db, draft):
         h.sign(db, draft, password="not the password")
     assert info.value.status == 403 and info.value.field == "password"
     assert _fit(db, draft) == ("submitted", 2)
-    # The signing transaction rolled back; the refusal is written in its own transaction.
-    with db.transaction() as s:
-        reviews.record_refusal(s, h.user(s, "abel"), draft, "sign", info.value.message)
+    # The signing transaction rolled back; the refusal was written in its own transaction.
     (event,) = _events(db, "signature.refused")
     assert event.object_id == str(draft) and event.study_id is not None
     with db.session() as s:
@@ -135,9 +133,8 @@ def test_wrong_password_is_refused_and_recorded(db, draft):
 def test_steps_out_of_order_are_conflicts(db, draft):
     with pytest.raises(Conflict, match="must be submitted"):
         h.sign(db, draft)
-    with db.transaction() as s, pytest.raises(Conflict, match="must be approved"):
-        reviews.withdraw(s, h.user(s, "abel"), fits.get_fit(s, draft), password=PASSWORD,
-                         reason="no")
+    with pytest.raises(Conflict, match="must be approved"):
+        h.withdraw(db, draft, who="abel", reason="no")
     h.submit(db, draft)
     with pytest.raises(Conflict, match="must be draft"):
         h.submit(db, draft)
@@ -162,7 +159,7 @@ def test_signature_covers_exactly_its_snapshot_hash(db, draft):
         fit, sig = s.get(Fit, draft), s.get(Signature, sig_id)
         document = canonical_json(snapshot_document(fit)).encode()
         assert sig.snapshot_sha256 == hashlib.sha256(document).hexdigest() == fit.snapshot_sha256
-        fields = reviews.manifest_fields(sig)
+        fields = reviews.manifest_document(sig)
         assert set(fields) == {"fit_id", "signer_id", "printed_name", "signed_at", "meaning",
                                "comment", "snapshot_sha256"}
         assert sig.manifest_sha256 == hashlib.sha256(canonical_json(fields).encode()).hexdigest()
@@ -252,16 +249,14 @@ def test_new_approval_supersedes_the_previous_one_for_the_same_response(db, user
 
 def test_withdraw_is_signed_with_a_reason(db, users):
     _study, _version, fit_id = h.approved_fit(db)
-    with db.transaction() as s, pytest.raises(WorkflowError) as info:
-        reviews.withdraw(s, h.user(s, "ada"), fits.get_fit(s, fit_id), password=PASSWORD,
-                         reason="")
+    with pytest.raises(WorkflowError) as info:
+        h.withdraw(db, fit_id, reason="")
     assert info.value.field == "reason"
-    with db.transaction() as s, pytest.raises(reviews.SignatureRefused):
-        reviews.withdraw(s, h.user(s, "ada"), fits.get_fit(s, fit_id), password="wrong",
-                         reason="Catalyst lot recalled")
-    with db.transaction() as s:
-        sig = reviews.withdraw(s, h.user(s, "ada"), fits.get_fit(s, fit_id), password=PASSWORD,
-                               reason="Catalyst lot recalled")
+    with pytest.raises(reviews.SignatureRefused):
+        h.withdraw(db, fit_id, password="wrong")
+    sig_id = h.withdraw(db, fit_id)
+    with db.session() as s:
+        sig = s.get(Signature, sig_id)
         assert sig.meaning == reviews.WITHDRAW and sig.comment == "Catalyst lot recalled"
     assert _fit(db, fit_id)[0] == "withdrawn"
     (event,) = _events(db, "fit.withdraw")
