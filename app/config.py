@@ -16,6 +16,12 @@ DEFAULTS: dict[str, object] = {
     # both for SIGN_LOCK_MINUTES or until an admin unlocks the account.
     "SIGN_LOCK_FAILURES": 5,
     "SIGN_LOCK_MINUTES": 15,
+    # Key of the HMAC-SHA-256 that stands in the audit trail for a sign-in name matching no
+    # account (a password typed there by mistake is never kept); unset, SECRET_KEY is used.
+    "LOGIN_NAME_KEY": None,
+    # Days a new API token lives unless its maker asks for fewer (or more, up to the maximum).
+    "API_TOKEN_DAYS": 90,
+    "API_TOKEN_MAX_DAYS": 365,
     "SESSION_IDLE_MINUTES": 30,
     "SESSION_MAX_HOURS": 12,
     "MAX_UPLOAD_BYTES": 20_000_000,

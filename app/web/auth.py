@@ -5,10 +5,19 @@ from __future__ import annotations
 import secrets
 from urllib.parse import urlsplit
 
-from flask import Blueprint, flash, g, redirect, render_template, request, session, url_for
+from flask import (
+    Blueprint,
+    current_app,
+    flash,
+    g,
+    redirect,
+    render_template,
+    request,
+    session,
+    url_for,
+)
 
 from app.store.db import database
-from app.store.models import User
 from app.web.access import PUBLIC, SIGNED_IN, allow
 from app.workflow import accounts
 
@@ -25,6 +34,12 @@ def _safe_next(target: str | None) -> str:
     return target
 
 
+def _login_name_key() -> bytes:
+    """The key for the keyed hash that stands for a user name matching no account."""
+    key = current_app.config.get("LOGIN_NAME_KEY") or current_app.config["SECRET_KEY"]
+    return key if isinstance(key, bytes) else str(key).encode()
+
+
 @bp.route("/login", methods=["GET", "POST"])
 @allow(PUBLIC)
 def login():
@@ -35,20 +50,12 @@ def login():
     username = request.form.get("username", "")
     password = request.form.get("password", "")
     addr = request.remote_addr
-    db = database()
     try:
-        with db.session(write=False) as s:
-            user = accounts.authenticate(s, username, password, addr)
-        with db.transaction() as s:
-            token = accounts.start_session(s, s.get(User, user.id), addr)
-    except accounts.LoginThrottled as exc:
+        _user_id, token = accounts.sign_in(database().transaction, username, password, addr,
+                                           name_key=_login_name_key())
+    except (accounts.LoginThrottled, accounts.LoginRefused) as exc:
         return render_template("auth/login.html", error=exc.message, username=username,
-                               next=request.form.get("next", "")), 429
-    except accounts.LoginRefused as exc:
-        with db.transaction() as s:
-            accounts.record_failed_login(s, username, addr, "wrong user name or password")
-        return render_template("auth/login.html", error=exc.message, username=username,
-                               next=request.form.get("next", "")), 401
+                               next=request.form.get("next", "")), exc.status
     session.clear()  # a fresh signed cookie: no session fixation across the login
     session["sid"] = token
     session["csrf"] = secrets.token_urlsafe(32)

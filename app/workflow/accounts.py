@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import hmac
 import re
 import secrets
 from dataclasses import dataclass
@@ -126,6 +127,7 @@ def _store_password(session: Session, actor: User | None, user: User,
     revoke_sessions(session, user.id)
     audit.record(session, actor=actor, action="user.set_password", object_type="user",
                  object_id=user.id, new={"password": "changed"})
+    revoke_user_tokens(session, actor, user, why="password changed")
     return user
 
 
@@ -187,40 +189,47 @@ def revoke_sessions(session: Session, user_id: int) -> None:
 
 # ---- login throttling -------------------------------------------------------------------
 
+UNKNOWN_USER = "(unknown)"
+
+
 @dataclass(frozen=True)
 class Throttle:
-    """Failures within the window before each further attempt must wait.
+    """Failed sign-ins within the window before each further attempt must wait.
 
-    Counted per account and per address.
+    Counted per account and address (``free_attempts``) and per account from any address
+    (``account_free_attempts``, larger), never per address alone: one person behind a shared
+    NAT or proxy must not lock everyone else there out. Past the free failures each attempt
+    waits 2, 4, 8 … seconds (at most ``max_delay_seconds``) after the last failure. The failure
+    that starts the wait was itself checked, so a burst has ``free_attempts + 1`` passwords
+    checked at most.
     """
 
     window: timedelta = timedelta(minutes=15)
     free_attempts: int = 5
+    account_free_attempts: int = 20
     max_delay_seconds: int = 300
 
 
-def throttle_delay(session: Session, username: str, remote_addr: str | None,
-                   now: datetime, rules: Throttle = Throttle()) -> int:
-    """Seconds the next attempt must wait: doubles with each failure past the free ones."""
-    since = now - rules.window
-    by_user = session.scalar(select(func.count()).select_from(LoginFailure).where(
-        LoginFailure.username == username, LoginFailure.at >= since)) or 0
-    by_addr = 0
-    if remote_addr:
-        by_addr = session.scalar(select(func.count()).select_from(LoginFailure).where(
-            LoginFailure.remote_addr == remote_addr, LoginFailure.at >= since)) or 0
-    # An address may try several accounts; give it a larger allowance than one account.
-    excess = max(by_user - rules.free_attempts, by_addr - 4 * rules.free_attempts)
-    if excess <= 0:
-        return 0
-    last = session.scalar(select(func.max(LoginFailure.at)).where(
-        (LoginFailure.username == username) | (LoginFailure.remote_addr == remote_addr)))
-    delay = min(rules.max_delay_seconds, 2 ** min(excess, 12))
-    if last is None:
+def _wait(excess: int, last: datetime | None, now: datetime, rules: Throttle) -> int:
+    if excess <= 0 or last is None:
         return 0
     last = last if last.tzinfo else last.replace(tzinfo=now.tzinfo)
-    remaining = delay - (now - last).total_seconds()
-    return max(0, int(remaining + 0.999))
+    delay = min(rules.max_delay_seconds, 2 ** min(excess, 12))
+    return max(0, int(delay - (now - last).total_seconds() + 0.999))
+
+
+def throttle_delay(session: Session, account: str, remote_addr: str | None,
+                   now: datetime, rules: Throttle = Throttle()) -> int:
+    """Seconds the next attempt on ``account`` (as :class:`LoginName` records it) from
+    ``remote_addr`` must wait: doubles with each failure past the free ones."""
+    recent = select(func.count(), func.max(LoginFailure.at)).where(
+        LoginFailure.username == account, LoginFailure.at >= now - rules.window)
+    by_account, last_account = session.execute(recent).one()
+    same_addr = (LoginFailure.remote_addr.is_(None) if remote_addr is None
+                 else LoginFailure.remote_addr == remote_addr)
+    by_pair, last_pair = session.execute(recent.where(same_addr)).one()
+    return max(_wait(by_pair - rules.free_attempts, last_pair, now, rules),
+               _wait(by_account - rules.account_free_attempts, last_account, now, rules))
 
 
 class LoginRefused(WorkflowError):
@@ -231,36 +240,110 @@ class LoginThrottled(WorkflowError):
     status = 429
 
 
-def authenticate(session: Session, username: str, password: str,
-                 remote_addr: str | None) -> User:
-    """Check a password; only reads. Raises LoginRefused/LoginThrottled.
+@dataclass(frozen=True)
+class LoginName:
+    """The user name a sign-in gave, as the records keep it.
 
-    Run it in a read session: the deliberately slow argon2 verify must not hold a write lock.
-    Then :func:`start_session` (success) or :func:`record_failed_login` (failure) writes, each
-    in its own short transaction.
+    A name that matches an account is kept as it is. Any other is kept only as a keyed hash
+    (HMAC-SHA-256): people type passwords into the name field by mistake, and the audit trail
+    can never be edited. ``failure_key`` is what ``login_failures.username`` holds: the user
+    name, or ``?`` and 63 hex digits of the hash (``?`` is never part of a user name).
     """
-    username = (username or "").strip().lower()
-    now = utcnow()
-    wait = throttle_delay(session, username, remote_addr, now)
+
+    user_id: int | None
+    failure_key: str
+    audit: dict[str, str]
+
+    @classmethod
+    def of(cls, typed: str, user: User | None, key: bytes) -> LoginName:
+        if user is not None:
+            return cls(user.id, user.username, {"username": user.username})
+        digest = hmac.new(key, typed.encode(), hashlib.sha256).hexdigest()
+        return cls(None, "?" + digest[:63], {"username": UNKNOWN_USER, "username_hmac": digest})
+
+
+@dataclass(frozen=True)
+class LoginAttempt:
+    """A sign-in let through to the password check, already counted as a failure
+    (``failure_id``), or refused as throttled (``wait_seconds`` > 0)."""
+
+    name: LoginName
+    remote_addr: str | None
+    failure_id: int | None = None
+    password_hash: str | None = None
+    active: bool = False
+    wait_seconds: int = 0
+
+
+def _serialize_attempts(session: Session, failure_key: str) -> None:
+    """Let one transaction at a time count attempts on this account. SQLite write transactions
+    (BEGIN IMMEDIATE) already run one at a time; PostgreSQL takes a transaction-scoped advisory
+    lock on the account."""
+    if session.get_bind().dialect.name == "postgresql":
+        lock_id = int.from_bytes(hashlib.sha256(b"login:" + failure_key.encode()).digest()[:8],
+                                 "big", signed=True)
+        session.execute(select(func.pg_advisory_xact_lock(lock_id)))
+
+
+def begin_login(session: Session, username: str, remote_addr: str | None, *, name_key: bytes,
+                rules: Throttle = Throttle(), now: datetime | None = None) -> LoginAttempt:
+    """Decide in one write transaction whether this attempt may have its password checked, and
+    count it as a failure in the same transaction before the check runs (the check, outside any
+    transaction, then clears it or keeps it). Deciding and counting together keeps any number
+    of concurrent attempts within the allowance. A throttled attempt is audited here
+    (``auth.login_throttled``)."""
+    now = now or utcnow()
+    typed = (username or "").strip().lower()
+    user = session.scalar(select(User).where(User.username == typed)) if typed else None
+    name = LoginName.of(typed, user, name_key)
+    _serialize_attempts(session, name.failure_key)
+    wait = throttle_delay(session, name.failure_key, remote_addr, now, rules)
     if wait > 0:
-        raise LoginThrottled(f"Too many failed sign-ins. Try again in {wait} seconds.")
-    user = session.scalar(select(User).where(User.username == username))
-    if user is None:
-        verify_password(dummy_hash(), password)
-        raise LoginRefused("User name or password is wrong.")
-    if not verify_password(user.password_hash, password) or not user.active:
-        raise LoginRefused("User name or password is wrong.")
-    return user
+        audit.record(session, actor=None, action="auth.login_throttled", object_type="user",
+                     object_id=name.user_id,
+                     new={**name.audit, "remote_addr": remote_addr, "wait_seconds": wait})
+        return LoginAttempt(name, remote_addr, wait_seconds=wait)
+    failure = LoginFailure(username=name.failure_key, remote_addr=remote_addr, at=now)
+    session.add(failure)
+    session.flush()
+    return LoginAttempt(name, remote_addr, failure_id=failure.id,
+                        password_hash=None if user is None else user.password_hash,
+                        active=user is not None and user.active)
 
 
-def record_failed_login(session: Session, username: str, remote_addr: str | None,
-                        why: str) -> None:
-    username = (username or "").strip().lower()[:64]
-    session.add(LoginFailure(username=username, remote_addr=remote_addr))
-    user = session.scalar(select(User).where(User.username == username))
+def record_failed_login(session: Session, attempt: LoginAttempt, why: str) -> None:
+    """Audit a failed sign-in; its failure was counted by :func:`begin_login` and now dates
+    from the failure."""
+    if attempt.failure_id is not None:
+        session.execute(update(LoginFailure).where(LoginFailure.id == attempt.failure_id)
+                        .values(at=utcnow()))
     audit.record(session, actor=None, action="auth.login_failed", object_type="user",
-                 object_id=None if user is None else user.id,
-                 new={"username": username, "remote_addr": remote_addr, "why": why})
+                 object_id=attempt.name.user_id,
+                 new={**attempt.name.audit, "remote_addr": attempt.remote_addr, "why": why})
+
+
+def sign_in(write: signing.Sessions, username: str, password: str, remote_addr: str | None, *,
+            name_key: bytes, rules: Throttle = Throttle()) -> tuple[int, str]:
+    """The whole sign-in: :func:`begin_login` in one ``write()`` transaction, the deliberately
+    slow argon2 check outside any transaction (SQLite has one writer), then
+    :func:`start_session` or :func:`record_failed_login` in another. Returns the user id and
+    the raw session token; raises :class:`LoginThrottled` or :class:`LoginRefused`."""
+    with write() as session:
+        attempt = begin_login(session, username, remote_addr, name_key=name_key, rules=rules)
+    if attempt.wait_seconds:
+        raise LoginThrottled(f"Too many failed sign-ins. Try again in {attempt.wait_seconds} "
+                             "seconds.")
+    if attempt.password_hash is None:
+        verify_password(dummy_hash(), password or "")  # the same time as for a real account
+    elif verify_password(attempt.password_hash, password or "") and attempt.active:
+        with write() as session:
+            user = session.get(User, attempt.name.user_id)
+            # Still the password just checked, and still active.
+            if user is not None and user.active and user.password_hash == attempt.password_hash:
+                return user.id, start_session(session, user, remote_addr)
+    with write() as session:
+        record_failed_login(session, attempt, "wrong user name or password")
+    raise LoginRefused("User name or password is wrong.")
 
 
 def start_session(session: Session, user: User, remote_addr: str | None) -> str:
@@ -310,23 +393,73 @@ def session_user(session: Session, token: str, *, idle: timedelta, max_age: time
 # ---- API tokens ---------------------------------------------------------------------------
 
 TOKEN_PREFIX = "plb_"  # noqa: S105  (a public prefix, not a secret)
+READ, READ_WRITE = "read", "read-write"
+TOKEN_SCOPES = (READ, READ_WRITE)
+# Methods a read token may use; anything else needs a read-write token.
+READ_METHODS = frozenset({"GET", "HEAD"})
+TOKEN_DAYS = 90        # API_TOKEN_DAYS
+TOKEN_MAX_DAYS = 365   # API_TOKEN_MAX_DAYS
+# last_used_at is written at most this often per token, so that reads stay reads.
+TOKEN_TOUCH_SECONDS = 60
 
 
-def create_token(
-    session: Session, actor: User | None, user: User, name: str
-) -> tuple[ApiToken, str]:
+def token_days(value: Any, max_days: int = TOKEN_MAX_DAYS) -> int:
+    """A token's lifetime in whole days, 1 to ``max_days``."""
+    try:
+        days = int(str(value).strip())
+    except (TypeError, ValueError):
+        days = 0
+    if not 1 <= days <= max_days:
+        raise WorkflowError(f"A token lives 1 to {max_days} days.", field="days")
+    return days
+
+
+def create_token(session: Session, actor: User | None, user: User, name: str, *,
+                 scope: str = READ_WRITE, days: int | str = TOKEN_DAYS,
+                 max_days: int = TOKEN_MAX_DAYS,
+                 proof: signing.Reauthenticated | None = None,
+                 now: datetime | None = None) -> tuple[ApiToken, str]:
+    """Mint a token; returns the row and the raw token (shown once, only its hash is kept).
+
+    ``actor`` None is the command line, run by an administrator on the server. A signed-in
+    actor must have entered the password again just before (``proof`` from
+    :func:`app.workflow.signing.signed`, checked outside this transaction).
+    """
+    if actor is not None:
+        signing.accept(session, actor, proof)
     name = (name or "").strip()
     if not name:
         raise WorkflowError("A token needs a name saying what it is for.", field="name")
+    if scope not in TOKEN_SCOPES:
+        raise WorkflowError(f"A token's scope is {READ} or {READ_WRITE}.", field="scope")
+    days = token_days(days, max_days)
+    now = now or utcnow()
     raw = TOKEN_PREFIX + secrets.token_urlsafe(32)
     token = ApiToken(user_id=user.id, name=name[:100], token_sha256=sha256_hex(raw),
-                     prefix=raw[:10])
+                     prefix=raw[:10], scope=scope, created_at=now,
+                     expires_at=now + timedelta(days=days))
     session.add(token)
     session.flush()
     audit.record(session, actor=actor if actor is not None else None, action="token.create",
                  object_type="api_token", object_id=token.id,
-                 new={"user": user.username, "name": token.name, "prefix": token.prefix})
+                 new={"user": user.username, "name": token.name, "prefix": token.prefix,
+                      "scope": scope,
+                      "expires_at": token.expires_at.strftime("%Y-%m-%dT%H:%M:%SZ")})
     return token, raw
+
+
+def revoke_user_tokens(session: Session, actor: User | None, user: User, *, why: str) -> int:
+    """Revoke every active token of ``user`` in the caller's transaction; audited when any."""
+    tokens = list(session.scalars(select(ApiToken).where(ApiToken.user_id == user.id,
+                                                         ApiToken.revoked_at.is_(None))))
+    now = utcnow()
+    for token in tokens:
+        token.revoked_at = now
+    if tokens:
+        audit.record(session, actor=actor, action="token.revoke_all", object_type="user",
+                     object_id=user.id, new={"prefixes": [t.prefix for t in tokens],
+                                             "why": why})
+    return len(tokens)
 
 
 def revoke_token(session: Session, actor: User, token_id: int) -> ApiToken:
@@ -340,9 +473,41 @@ def revoke_token(session: Session, actor: User, token_id: int) -> ApiToken:
     return token
 
 
-def token_user(session: Session, raw: str) -> User | None:
+@dataclass(frozen=True)
+class TokenUse:
+    """Who a valid token acts for, with what scope; ``last_used_at`` as stored before."""
+
+    user: User
+    token_id: int
+    scope: str
+    last_used_at: datetime | None
+
+
+def token_use(session: Session, raw: str, *, now: datetime | None = None) -> TokenUse | None:
+    """The valid token behind ``raw``, or None when unknown, revoked, expired, or its user is
+    deactivated. Only reads."""
     token = session.scalar(select(ApiToken).where(ApiToken.token_sha256 == sha256_hex(raw)))
-    if token is None or token.revoked_at is not None:
+    if token is None or token.revoked_at is not None or token.expires_at <= (now or utcnow()):
         return None
     user = session.get(User, token.user_id)
-    return user if user is not None and user.active else None
+    if user is None or not user.active:
+        return None
+    return TokenUse(user=user, token_id=token.id, scope=token.scope,
+                    last_used_at=token.last_used_at)
+
+
+def token_user(session: Session, raw: str) -> User | None:
+    found = token_use(session, raw)
+    return None if found is None else found.user
+
+
+def token_touch_due(use: TokenUse, now: datetime) -> bool:
+    """Whether ``last_used_at`` is unset or older than TOKEN_TOUCH_SECONDS."""
+    return (use.last_used_at is None
+            or (now - use.last_used_at).total_seconds() > TOKEN_TOUCH_SECONDS)
+
+
+def touch_token(session: Session, use: TokenUse, now: datetime) -> None:
+    """Write ``last_used_at`` (not audited: it records use, it changes nothing)."""
+    session.execute(update(ApiToken).where(ApiToken.id == use.token_id)
+                    .values(last_used_at=now))
