@@ -180,17 +180,25 @@ def tokens() -> None:
     pass
 
 
-@tokens.command("create")
+@tokens.command("create", help="Print a new personal API token for USERNAME once. Run on the "
+                "server by its administrator, so no password is asked.")
 @click.argument("username")
 @click.option("--name", default="command line", show_default=True)
-def tokens_create(username: str, name: str) -> None:
+@click.option("--scope", type=click.Choice(["read", "read-write"]), default="read-write",
+              show_default=True, help="read: GET only; read-write: every call the user may make.")
+@click.option("--days", type=int, default=None,
+              help="Days until the token expires [default: API_TOKEN_DAYS, 90].")
+def tokens_create(username: str, name: str, scope: str, days: int | None) -> None:
     from app.store.db import database
     from app.workflow import WorkflowError, accounts
 
     try:
         with _application() as app, database(app).transaction() as s:
             user = accounts.get_user(s, username)
-            _token, raw = accounts.create_token(s, None, user, name)
+            _token, raw = accounts.create_token(
+                s, None, user, name, scope=scope,
+                days=int(app.config["API_TOKEN_DAYS"]) if days is None else days,
+                max_days=int(app.config["API_TOKEN_MAX_DAYS"]))
     except WorkflowError as exc:
         _fail(exc.message)
     click.echo(raw)

@@ -66,6 +66,10 @@ class UserSession(Base):
 
 
 class ApiToken(Base):
+    """A personal API token: only its SHA-256 is kept. ``scope`` is "read" (GET and HEAD only)
+    or "read-write"; past ``expires_at`` it is refused like an unknown token. ``last_used_at``
+    is written at most once a minute (app.web.access)."""
+
     __tablename__ = "api_tokens"
 
     id: Mapped[int] = mapped_column(primary_key=True)
@@ -76,6 +80,9 @@ class ApiToken(Base):
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     revoked_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
     last_used_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+    scope: Mapped[str] = mapped_column(String(16), default="read-write",
+                                       server_default="read-write")
+    expires_at: Mapped[datetime] = mapped_column(UTCDateTime)
 
     user: Mapped[User] = relationship()
 

@@ -70,13 +70,21 @@ def _deny(status: int, message: str):
 
 
 def _load_user() -> None:
-    g.user, g.via_token = None, False
+    g.user, g.via_token, g.token_scope = None, False, None
     db = database()
     auth = request.headers.get("Authorization", "")
     if auth.startswith("Bearer "):
-        with db.session(write=False) as s:
-            g.user = accounts.token_user(s, auth[7:].strip())
         g.via_token = True
+        now = utcnow()
+        with db.session(write=False) as s:
+            found = accounts.token_use(s, auth[7:].strip(), now=now)
+        if found is None:
+            return
+        g.user, g.token_scope = found.user, found.scope
+        # last_used_at at most once a minute per token, so that reading is not a write each time.
+        if accounts.token_touch_due(found, now):
+            with db.transaction() as s:
+                accounts.touch_token(s, found, now)
         return
     token = session.get("sid")
     if not token:
@@ -120,6 +128,9 @@ def enforce_access():
         _deny(403, "This page has no access rule and is refused.")
     if is_api() and PUBLIC not in roles and g.user is None:
         _deny(401, NOT_SIGNED_IN)
+    if g.token_scope == accounts.READ and request.method not in accounts.READ_METHODS:
+        _deny(403, f"This API token has the scope '{accounts.READ}': it may only read (GET). "
+                   f"A {request.method} needs a token with the scope '{accounts.READ_WRITE}'.")
     if request.method in WRITE_METHODS and not g.via_token:
         sent = request.headers.get("X-CSRF-Token") or request.form.get("csrf_token")
         expected = session.get("csrf")

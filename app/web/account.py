@@ -15,6 +15,7 @@ from flask import (
 )
 from sqlalchemy import select
 
+from app.store.base import utcnow
 from app.store.models import ApiToken
 from app.web.access import SIGNED_IN, allow
 from app.web.common import me, read_session, tx
@@ -23,33 +24,46 @@ from app.workflow import WorkflowError, accounts, signing
 bp = Blueprint("account", __name__, url_prefix="/account")
 
 
-def _tokens(s):
-    return list(s.scalars(select(ApiToken).where(ApiToken.user_id == g.user.id)
-                          .order_by(ApiToken.created_at.desc())))
+def _page(new_token: str | None):
+    from app.store.db import get_session
+
+    tokens = list(get_session().scalars(select(ApiToken).where(ApiToken.user_id == g.user.id)
+                                        .order_by(ApiToken.created_at.desc())))
+    return render_template("account/page.html", tokens=tokens, new_token=new_token,
+                           now=utcnow(), token_days=int(current_app.config["API_TOKEN_DAYS"]),
+                           token_max_days=int(current_app.config["API_TOKEN_MAX_DAYS"]))
 
 
 @bp.route("/")
 @allow(SIGNED_IN)
 def page():
-    from app.store.db import get_session
-
-    return render_template("account/page.html", tokens=_tokens(get_session()), new_token=None)
+    return _page(None)
 
 
 @bp.route("/tokens", methods=["POST"])
 @allow(SIGNED_IN)
 def create_token():
+    """The password is entered again and checked before the write, against the same counter of
+    wrong passwords as signing; every refusal is audited."""
+    cfg = current_app.config
+    attempt = signing.Attempt(doing="create API token", object_type="user",
+                              object_id=g.user.id, action="token.create_refused")
+    form = request.form
     try:
-        with tx() as s:
-            user = me(s)
-            _token, raw = accounts.create_token(s, user, user, request.form.get("name", ""))
+        _token, raw = signing.signed(
+            read_session, tx, actor_id=g.user.id, password=form.get("password", ""),
+            attempt=attempt, limits=signing.Lockout.from_config(cfg),
+            refusal="The password is wrong; no token was made.",
+            act=lambda s, actor, proof: accounts.create_token(
+                s, actor, actor, form.get("name", ""),
+                scope=form.get("scope", accounts.READ_WRITE),
+                days=form.get("days") or int(cfg["API_TOKEN_DAYS"]),
+                max_days=int(cfg["API_TOKEN_MAX_DAYS"]), proof=proof))
     except WorkflowError as exc:
         flash(exc.message, "error")
         return redirect(url_for("account.page"))
-    from app.store.db import get_session
-
     # The raw token is shown once, now; only its SHA-256 is stored.
-    return render_template("account/page.html", tokens=_tokens(get_session()), new_token=raw)
+    return _page(raw)
 
 
 @bp.route("/tokens/<int:token_id>/revoke", methods=["POST"])

@@ -245,9 +245,11 @@ def _default_errors(op: Operation, roles: frozenset[str], has_ids: bool
     elif op.method in WRITE_METHODS:
         out.append((400, "A browser session sent no `X-CSRF-Token` header"))
     if PUBLIC not in roles:
-        out += [(401, "No credentials, or the API token is unknown, revoked or belongs to a "
-                      "deactivated user; answered before the request itself is checked"),
-                (403, "Signed in, but the user's roles do not allow this, or the one-time "
+        out += [(401, "No credentials, or the API token is unknown, revoked, expired or "
+                      "belongs to a deactivated user; answered before the request itself is "
+                      "checked"),
+                (403, "Signed in, but the user's roles do not allow this, the API token has "
+                      "the scope `read` and the method is not GET or HEAD, or the one-time "
                       "password must be changed first")]
     if has_ids:
         out.append((404, f"No such object (an id outside 1 to {ID_MAX} matches none)"))
@@ -282,9 +284,14 @@ def build_document(software_version: str, session_cookie: str = "plumbline") -> 
             "version": software_version,
             "description": (
                 "Studies, data versions and fits of designed experiments. Send a personal API "
-                "token (created on your account page or with `plumbline tokens create "
-                "USERNAME`) as `Authorization: Bearer plb_...`; it carries the same roles as "
-                "its user. Browser sessions work too, but then every POST needs the "
+                "token (created on your account page, which asks for your password again, or "
+                "with `plumbline tokens create USERNAME [--scope read|read-write] [--days N]`) "
+                "as `Authorization: Bearer plb_...`; it carries the same roles as its user. A "
+                "token has a scope: `read` tokens may only call GET and HEAD (anything else "
+                "answers 403 naming the scope), `read-write` tokens may call everything their "
+                "user may. Every token expires (90 days unless chosen otherwise) and then "
+                "answers 401 like an unknown one; changing the password revokes all of the "
+                "user's tokens. Browser sessions work too, but then every POST needs the "
                 "`X-CSRF-Token` header. Errors are JSON `{error, status, field}`; rows are the "
                 "1-based data rows of the uploaded table."),
         },
@@ -294,7 +301,9 @@ def build_document(software_version: str, session_cookie: str = "plumbline") -> 
         "components": {
             "securitySchemes": {
                 "bearerAuth": {"type": "http", "scheme": "bearer",
-                               "description": "Personal API token, prefix plb_"},
+                               "description": "Personal API token, prefix plb_, with a scope "
+                                              "(read: GET and HEAD only; read-write) and an "
+                                              "expiry"},
                 "sessionCookie": {"type": "apiKey", "in": "cookie", "name": session_cookie},
             },
             "schemas": dict(sorted(SCHEMAS.items())),

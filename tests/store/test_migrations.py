@@ -53,3 +53,39 @@ def test_upgrade_check_downgrade_postgres(backend, app):
     engine.dispose()
     upgrade(url)
     assert _diff_ignoring_types(url) == []
+
+
+def test_0004_gives_existing_tokens_read_write_and_an_expiry(tmp_path):
+    from datetime import UTC, datetime, timedelta
+
+    url = f"sqlite:///{tmp_path / 'tokens.db'}"
+    upgrade(url, "0003")
+    engine = create_engine(url)
+    with engine.begin() as conn:
+        conn.execute(text("INSERT INTO users (id, username, full_name, password_hash, roles, "
+                          "active, must_change_password, created_at, password_changed_at) "
+                          "VALUES (1, 'erin', 'Erin', 'x', 'engineer', 1, 0, "
+                          "'2026-01-01 00:00:00.000000', '2026-01-01 00:00:00.000000')"))
+        conn.execute(text("INSERT INTO api_tokens (id, user_id, name, token_sha256, prefix, "
+                          "created_at) VALUES (1, 1, 'old', :sha, 'plb_old', "
+                          "'2026-01-01 00:00:00.000000')"), {"sha": "0" * 64})
+    engine.dispose()
+    before = datetime.now(UTC).replace(tzinfo=None)
+    upgrade(url)
+    assert _diff_ignoring_types(url) == []
+    engine = create_engine(url)
+    with engine.begin() as conn:
+        scope, expires = conn.execute(text(
+            "SELECT scope, expires_at FROM api_tokens WHERE id = 1")).one()
+        assert scope == "read-write"
+        expires = datetime.fromisoformat(expires)
+        assert before + timedelta(days=90) <= expires <= before + timedelta(days=90, hours=1)
+        # New rows get their expiry from the service: the column has no default left.
+        default = {c["name"]: c["default"] for c in inspect(conn).get_columns("api_tokens")}
+        assert default["expires_at"] is None and "read-write" in default["scope"]
+    engine.dispose()
+    downgrade(url, "0003")
+    engine = create_engine(url)
+    columns = {c["name"] for c in inspect(engine).get_columns("api_tokens")}
+    assert "scope" not in columns and "expires_at" not in columns
+    engine.dispose()
