@@ -247,13 +247,16 @@ def release(proposal_id: int):
 def confirm(proposal_id: int):
     file = request.files.get("file")
     cfg = current_app.config
+    data = b"" if file is None else file.read()
+    filename = "" if file is None else (file.filename or "")
     try:
+        # Parsed before the write transaction opens: a slow file never holds other writes.
+        raw = confirmations.read_file(data, filename, max_bytes=int(cfg["MAX_UPLOAD_BYTES"]),
+                                      max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
         with tx() as s:
             proposal = setpoints.get_proposal(s, proposal_id)
-            run = confirmations.record(
-                s, me(s), proposal, data=b"" if file is None else file.read(),
-                filename="" if file is None else (file.filename or ""),
-                max_bytes=int(cfg["MAX_UPLOAD_BYTES"]), max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
+            run = confirmations.record(s, me(s), proposal, data=data, filename=filename,
+                                       raw=raw)
             verdict = confirmations.results_of(run)["verdict"]
     except WorkflowError as exc:
         if exc.status == 404:

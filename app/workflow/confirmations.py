@@ -15,7 +15,7 @@ from typing import Any
 
 from sqlalchemy.orm import Session
 
-from app.ingest import IngestError, read_upload
+from app.ingest import IngestError, RawTable, read_upload
 from app.ingest.raw import parse_number
 from app.store import audit
 from app.store.audit import canonical_json
@@ -52,15 +52,25 @@ def judge(observed: dict[str, list[tuple[int, float]]], pi: dict[str, list]) -> 
     return out
 
 
-def read_observations(data: bytes, filename: str, responses: list[str], *, max_bytes: int,
-                      max_cells: int) -> dict[str, list[tuple[int, float]]]:
-    """(row, value) pairs per response from the upload; errors name the row and column."""
+def read_file(data: bytes, filename: str, *, max_bytes: int = 20_000_000,
+              max_cells: int = 2_000_000) -> RawTable:
+    """Parse an uploaded confirmation file; errors name the file, row and column.
+
+    Callers parse before their write transaction opens (SQLite has one writer, and a large or
+    slow file must not hold other users' writes), then hand the table to :func:`record`.
+    """
+    if not filename:
+        raise WorkflowError("Choose a file of confirmation runs (field 'file').", field="file")
     try:
-        raw = read_upload(data, filename, None, max_bytes=max_bytes, max_cells=max_cells)
+        return read_upload(data, filename, None, max_bytes=max_bytes, max_cells=max_cells)
     except IngestError as exc:
         first = "; ".join(p.message for p in exc.problems[:3])
         raise WorkflowError(f"The confirmation file was not stored: {first}",
                             field="file") from None
+
+
+def read_observations(raw: RawTable, responses: list[str]) -> dict[str, list[tuple[int, float]]]:
+    """(row, value) pairs per response from the parsed upload; errors name row and column."""
     missing = [r for r in responses if r not in raw.frame.columns]
     if missing:
         raise WorkflowError(f"The confirmation file has no column '{missing[0]}' (it needs one "
@@ -84,13 +94,13 @@ def read_observations(data: bytes, filename: str, responses: list[str], *, max_b
 
 
 def record(session: Session, actor: User, proposal: SetpointProposal, *, data: bytes,
-           filename: str, max_bytes: int = 20_000_000,
-           max_cells: int = 2_000_000) -> ConfirmationRun:
+           filename: str, raw: RawTable) -> ConfirmationRun:
     """Store confirmation runs at released setpoints with the verdict per response.
 
-    Raises Conflict (409) before release, when the proposal or its release signature no longer
-    holds, or a fit behind it is no longer approved; WorkflowError naming the row and column for
-    a file that cannot be read.
+    ``raw`` is ``data`` parsed by :func:`read_file` before the transaction. Raises Conflict
+    (409) before release, when the proposal or its release signature no longer holds, or a fit
+    behind it is no longer approved; WorkflowError naming the row and column for a file whose
+    columns or cells do not fit the proposal.
     """
     require_role(actor, "engineer", "record confirmation runs")
     if proposal.state != "released":
@@ -101,12 +111,9 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     if not sigs or signature_check(session, proposal, sigs[-1]).status != VALID:
         raise Conflict(f"The release signature of setpoint proposal {proposal.id} is not valid.",
                        field="signature")
-    if not filename:
-        raise WorkflowError("Choose a file of confirmation runs (field 'file').", field="file")
     result = result_of(proposal)
     pi = result["optimum"]["pi"]
-    observed = read_observations(data, filename, list(pi), max_bytes=max_bytes,
-                                 max_cells=max_cells)
+    observed = read_observations(raw, list(pi))
     verdicts = judge(observed, pi)
     overall = "pass" if all(v["verdict"] == "pass" for v in verdicts.values()) else "fail"
     doc = {"responses": verdicts, "verdict": overall,

@@ -295,3 +295,42 @@ def test_study_link_snippet_lists_proposals(app, db, approved):
             html = render_template_string('{% include "setpoints/_study_link.html" %}',
                                           study=study)
     assert f"/setpoints/{pid}" in html and "Propose setpoints" in html and "draft" in html
+
+
+def test_confirmation_file_is_parsed_before_the_write_transaction(db, approved, actions,
+                                                                   backend, monkeypatch):
+    # Seen: the confirmation file was parsed inside the write transaction; SQLite has one
+    # writer, so a slow or large file held every other user's writes while it was read.
+    if backend != "sqlite":
+        pytest.skip("SQLite's single writer is what parsing inside the write would hold")
+    from app.store import audit
+    from app.store.db import Database
+    from app.workflow import confirmations
+    from tests.workflow.test_setpoints import propose, release
+
+    _, _, fit_id = approved
+    pid = propose(db, [fit_id])
+    release(db, pid)
+    other = Database(db.url, busy_timeout_ms=200)  # waits 0.2 s for the lock, not 15 s
+    outcomes = []
+    real_read = confirmations.read_upload
+
+    def read_while_someone_writes(*args, **kwargs):
+        try:
+            with other.transaction() as s:
+                audit.record(s, actor=None, action="test.concurrent_write", object_type="test")
+            outcomes.append("written")
+        except Exception as exc:  # "database is locked" if the page holds the write lock
+            outcomes.append(f"blocked: {exc}")
+        return real_read(*args, **kwargs)
+
+    monkeypatch.setattr(confirmations, "read_upload", read_while_someone_writes)
+    actions.login("erin")
+    try:
+        done = actions.post(f"/setpoints/{pid}/confirmations",
+                            {"file": (io.BytesIO(b"Run,Hardness\nC1,130\n"), "confirm.csv")},
+                            content_type="multipart/form-data")
+    finally:
+        other.dispose()
+    assert done.status_code == 302
+    assert outcomes == ["written"]

@@ -52,9 +52,10 @@ def release(db, proposal_id, who="abel", password=PASSWORD, comment=None,
 
 
 def confirm(db, proposal_id, body: bytes, who="erin", name="confirm.csv") -> int:
+    raw = confirmations.read_file(body, name)  # parsed before the write, as the page does
     with db.transaction() as s:
         return confirmations.record(s, h.user(s, who), setpoints.get_proposal(s, proposal_id),
-                                    data=body, filename=name).id
+                                    data=body, filename=name, raw=raw).id
 
 
 def _events(db, action):
