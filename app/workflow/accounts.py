@@ -6,6 +6,7 @@ import hashlib
 import hmac
 import re
 import secrets
+import time
 from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
@@ -210,10 +211,20 @@ class Throttle:
     max_delay_seconds: int = 300
 
 
+# An attempt let through to the password check is counted at once, dated this far ahead until
+# its check settles it (then it is dated when it failed, or cleared by a success): a row dated
+# in the future is an attempt still in flight. A crashed check stays in flight this long.
+IN_FLIGHT = timedelta(seconds=30)
+# While attempts on the account are in flight, a refused attempt waits for them to settle
+# (a concurrent success clears the count) before it is refused: at most this long.
+IN_FLIGHT_WAIT_SECONDS = 5.0
+
+
 def _wait(excess: int, last: datetime | None, now: datetime, rules: Throttle) -> int:
     if excess <= 0 or last is None:
         return 0
     last = last if last.tzinfo else last.replace(tzinfo=now.tzinfo)
+    last = min(last, now)  # an attempt in flight counts from now
     delay = min(rules.max_delay_seconds, 2 ** min(excess, 12))
     return max(0, int(delay - (now - last).total_seconds() + 0.999))
 
@@ -273,6 +284,7 @@ class LoginAttempt:
     password_hash: str | None = None
     active: bool = False
     wait_seconds: int = 0
+    in_flight: int = 0   # other attempts on the account whose check has not settled yet
 
 
 def _serialize_attempts(session: Session, failure_key: str) -> None:
@@ -286,7 +298,8 @@ def _serialize_attempts(session: Session, failure_key: str) -> None:
 
 
 def begin_login(session: Session, username: str, remote_addr: str | None, *, name_key: bytes,
-                rules: Throttle = Throttle(), now: datetime | None = None) -> LoginAttempt:
+                rules: Throttle = Throttle(), now: datetime | None = None,
+                audit_throttle: bool = True) -> LoginAttempt:
     """Decide in one write transaction whether this attempt may have its password checked, and
     count it as a failure in the same transaction before the check runs (the check, outside any
     transaction, then clears it or keeps it). Deciding and counting together keeps any number
@@ -299,16 +312,27 @@ def begin_login(session: Session, username: str, remote_addr: str | None, *, nam
     _serialize_attempts(session, name.failure_key)
     wait = throttle_delay(session, name.failure_key, remote_addr, now, rules)
     if wait > 0:
-        audit.record(session, actor=None, action="auth.login_throttled", object_type="user",
-                     object_id=name.user_id,
-                     new={**name.audit, "remote_addr": remote_addr, "wait_seconds": wait})
-        return LoginAttempt(name, remote_addr, wait_seconds=wait)
-    failure = LoginFailure(username=name.failure_key, remote_addr=remote_addr, at=now)
+        in_flight = session.scalar(select(func.count()).where(
+            LoginFailure.username == name.failure_key, LoginFailure.at > now)) or 0
+        attempt = LoginAttempt(name, remote_addr, wait_seconds=wait, in_flight=in_flight)
+        if audit_throttle:
+            audit_throttled(session, attempt)
+        return attempt
+    failure = LoginFailure(username=name.failure_key, remote_addr=remote_addr,
+                           at=now + IN_FLIGHT)
     session.add(failure)
     session.flush()
     return LoginAttempt(name, remote_addr, failure_id=failure.id,
                         password_hash=None if user is None else user.password_hash,
                         active=user is not None and user.active)
+
+
+def audit_throttled(session: Session, attempt: LoginAttempt) -> None:
+    """Audit a sign-in refused as throttled (``auth.login_throttled``)."""
+    audit.record(session, actor=None, action="auth.login_throttled", object_type="user",
+                 object_id=attempt.name.user_id,
+                 new={**attempt.name.audit, "remote_addr": attempt.remote_addr,
+                      "wait_seconds": attempt.wait_seconds})
 
 
 def record_failed_login(session: Session, attempt: LoginAttempt, why: str) -> None:
@@ -328,9 +352,19 @@ def sign_in(write: signing.Sessions, username: str, password: str, remote_addr: 
     slow argon2 check outside any transaction (SQLite has one writer), then
     :func:`start_session` or :func:`record_failed_login` in another. Returns the user id and
     the raw session token; raises :class:`LoginThrottled` or :class:`LoginRefused`."""
-    with write() as session:
-        attempt = begin_login(session, username, remote_addr, name_key=name_key, rules=rules)
+    deadline = time.monotonic() + IN_FLIGHT_WAIT_SECONDS
+    while True:
+        with write() as session:
+            attempt = begin_login(session, username, remote_addr, name_key=name_key,
+                                  rules=rules, audit_throttle=False)
+        # Refused only because other checks on this account are still running: wait for them
+        # (several correct sign-ins at once clear each other's count), then decide again.
+        if not (attempt.wait_seconds and attempt.in_flight) or time.monotonic() > deadline:
+            break
+        time.sleep(0.05)
     if attempt.wait_seconds:
+        with write() as session:
+            audit_throttled(session, attempt)
         raise LoginThrottled(f"Too many failed sign-ins. Try again in {attempt.wait_seconds} "
                              "seconds.")
     if attempt.password_hash is None:
