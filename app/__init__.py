@@ -69,6 +69,9 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     if test_config is None:
         app.config.from_pyfile("config.py", silent=True)
         app.config.from_prefixed_env("PLUMBLINE")
+        if os.environ.get("PLUMBLINE_INTEGRITY_KEY"):
+            # Taken as written: the JSON parsing above would turn an all-digit key into a number.
+            app.config["INTEGRITY_KEY"] = os.environ["PLUMBLINE_INTEGRITY_KEY"]
     else:
         app.config.from_mapping(test_config)
     Path(app.instance_path).mkdir(parents=True, exist_ok=True)

@@ -10,7 +10,7 @@ from sqlalchemy import create_engine, func, select, update
 from sqlalchemy.orm import Session
 
 from app.cli import main
-from app.store.models import ApiToken, DataVersion, Study, User
+from app.store.models import ApiToken, AuditEvent, DataVersion, Study, User
 
 
 @pytest.fixture
@@ -158,3 +158,67 @@ def test_restore_refuses_a_broken_backup(cli_env, tmp_path):
     result = runner.invoke(main, ["restore", str(target), "--yes"])
     assert result.exit_code == 2
     assert "chain broken at event #2" in result.output
+
+
+def _add_users(runner, *usernames):
+    for username in usernames:
+        added = runner.invoke(main, ["users", "add", username, "--name", username.title(),
+                                     "--roles", "engineer", "--password-stdin"],
+                              input="a sufficiently long phrase\n")
+        assert added.exit_code == 0, added.output
+
+
+def test_audit_anchor_prints_the_keyed_head(cli_env, tmp_path):
+    import json
+
+    from app.store.models import ChainHead
+
+    runner, url = cli_env
+    _add_users(runner, "mkade")
+    result = runner.invoke(main, ["audit", "anchor"])
+    assert result.exit_code == 0, result.output
+    line = json.loads(result.output)
+    assert _query(url, select(ChainHead.seq, ChainHead.hash)) == [(line["seq"], line["hash"])]
+    assert set(line) == {"v", "seq", "hash", "at", "key_id", "mac"}
+    kept = tmp_path / "external.log"  # the printed line is what an external log keeps
+    kept.write_text(result.output)
+    checked = runner.invoke(main, ["audit", "verify", "--anchor", str(kept)])
+    assert checked.exit_code == 0, checked.output
+    assert "anchors hold: 1 anchored heads" in checked.output
+    line["mac"] = "0" * 64
+    kept.write_text(json.dumps(line) + "\n")
+    forged = runner.invoke(main, ["audit", "verify", "--anchor", str(kept)])
+    assert forged.exit_code == 1 and "invalid MAC" in forged.output
+
+
+def test_audit_verify_anchor_finds_a_removed_tail(cli_env, tmp_path):
+    import sqlite3
+
+    runner, url = cli_env
+    _add_users(runner, "abel", "ada", "erin", "otto")
+    anchor_file = tmp_path / "instance" / "audit-anchor.log"
+    assert runner.invoke(main, ["audit", "verify", "--anchor", str(anchor_file)]).exit_code == 0
+    top = _query(url, select(func.max(AuditEvent.seq)))[0][0]
+    # A database writer removes the last two users' events and moves the chain head back.
+    conn = sqlite3.connect(tmp_path / "cli.db")
+    triggers = conn.execute("SELECT name, sql FROM sqlite_master WHERE type = 'trigger' "
+                            "AND tbl_name IN ('audit_events', 'chain_head')").fetchall()
+    for name, _sql in triggers:
+        conn.execute(f'DROP TRIGGER "{name}"')
+    keep = _query(url, select(AuditEvent.seq).where(AuditEvent.object_id == "3")
+                  .order_by(AuditEvent.seq))[0][0] - 1  # events before the third user
+    assert 0 < keep < top - 1
+    conn.execute("DELETE FROM audit_events WHERE seq > ?", (keep,))
+    conn.execute("UPDATE chain_head SET seq = ?, hash = (SELECT hash FROM audit_events "
+                 "WHERE seq = ?) WHERE id = 1", (keep, keep))
+    for _name, sql in triggers:
+        conn.execute(sql)
+    conn.commit()
+    conn.close()
+    assert runner.invoke(main, ["audit", "verify"]).exit_code == 0  # the chain alone holds
+    result = runner.invoke(main, ["audit", "verify", "--anchor", str(anchor_file)])
+    assert result.exit_code == 1
+    assert f"anchored head #{top} is missing from the chain" in result.output
+    both = runner.invoke(main, ["audit", "verify", "--anchor", str(anchor_file), "--package",
+                                str(anchor_file)])
+    assert both.exit_code == 2

@@ -22,6 +22,9 @@ from app.store.base import utcnow
 from app.store.models import AuditEvent, ChainHead
 
 GENESIS_HASH = "0" * 64
+# session.info key: the head this transaction moved the chain to, anchored after the commit
+# (app.store.anchor).
+PENDING_HEAD = "plumbline_audit_head"
 HASHED_FIELDS = (
     "seq", "at", "actor_id", "actor_name", "action", "object_type", "object_id", "study_id",
     "old_json", "new_json", "reason", "prev_hash",
@@ -94,6 +97,7 @@ def record(
     head.seq = fields["seq"]
     head.hash = fields["hash"]
     session.flush()
+    session.info[PENDING_HEAD] = (head.seq, head.hash)
     return event
 
 

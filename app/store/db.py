@@ -9,10 +9,14 @@ from __future__ import annotations
 
 from collections.abc import Iterator
 from contextlib import contextmanager
+from typing import TYPE_CHECKING
 
 from flask import Flask, current_app, g, has_request_context, request
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
+
+if TYPE_CHECKING:
+    from app.store.anchor import AuditAnchor
 
 WRITE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
 
@@ -42,9 +46,14 @@ def make_engine(url: str, *, write: bool, busy_timeout_ms: int = 15000) -> Engin
 
 
 class Database:
-    """Holds a read engine and a write engine for one application."""
+    """Holds a read engine and a write engine for one application.
 
-    def __init__(self, url: str, busy_timeout_ms: int = 15000) -> None:
+    With ``anchor``, every session it hands out appends the audit chain's new head to the
+    anchor file after a commit that appended audit events (:mod:`app.store.anchor`).
+    """
+
+    def __init__(self, url: str, busy_timeout_ms: int = 15000,
+                 anchor: AuditAnchor | None = None) -> None:
         self.url = url
         self.write_engine = make_engine(url, write=True, busy_timeout_ms=busy_timeout_ms)
         if url.startswith("sqlite"):
@@ -53,6 +62,10 @@ class Database:
             self.read_engine = self.write_engine
         self._write = sessionmaker(self.write_engine, expire_on_commit=False)
         self._read = sessionmaker(self.read_engine, expire_on_commit=False)
+        self.anchor = anchor
+        if anchor is not None:
+            anchor.watch(self._write)
+            anchor.watch(self._read)
 
     def session(self, *, write: bool = True) -> Session:
         return (self._write if write else self._read)()
@@ -70,8 +83,11 @@ class Database:
 
 
 def init_app(app: Flask) -> None:
+    from app.store.anchor import AuditAnchor
+
     app.extensions["plumbline_db"] = Database(
-        app.config["DATABASE_URL"], int(app.config["SQLITE_BUSY_TIMEOUT_MS"])
+        app.config["DATABASE_URL"], int(app.config["SQLITE_BUSY_TIMEOUT_MS"]),
+        anchor=AuditAnchor(app),
     )
     app.teardown_appcontext(_close_session)
 
