@@ -151,7 +151,8 @@ class Fit(Base):
     """A fit snapshot: inputs, results, thresholds and software version, hashed once at creation.
 
     Only ``state``, ``row_version`` and the submission fields change later, and only by
-    conditional updates on (state, row_version).
+    conditional updates on (state, row_version); database triggers (migration 0005) refuse
+    changes to the snapshot columns and deletion.
     """
 
     __tablename__ = "fits"

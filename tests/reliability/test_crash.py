@@ -438,6 +438,8 @@ def _checks_catch_half_done_operations(db_path: Path, tmp_path: Path,
         copy = tmp_path / f"half-{number}.db"
         with closing(sqlite3.connect(db_path)) as src, closing(sqlite3.connect(copy)) as dst:
             src.backup(dst)
+            # Removing a signature as a database writer would: its guarding trigger goes first.
+            dst.execute("DROP TRIGGER IF EXISTS signatures_no_delete")
             if sql is None:
                 columns = ", ".join(r[1] for r in dst.execute("PRAGMA table_info(fits)")
                                     if r[1] != "id")

@@ -89,3 +89,35 @@ def test_0004_gives_existing_tokens_read_write_and_an_expiry(tmp_path):
     columns = {c["name"] for c in inspect(engine).get_columns("api_tokens")}
     assert "scope" not in columns and "expires_at" not in columns
     engine.dispose()
+
+
+SIGNED_ROW_TRIGGERS = {"signatures_no_update", "signatures_no_delete", "fits_snapshot_no_update",
+                       "fits_no_delete", "setpoint_proposals_snapshot_no_update",
+                       "setpoint_proposals_no_delete"}
+
+
+def _triggers(url: str) -> set[str]:
+    engine = create_engine(url)
+    with engine.connect() as conn:
+        if engine.dialect.name == "sqlite":
+            sql = "SELECT name FROM sqlite_master WHERE type = 'trigger'"
+        else:
+            sql = "SELECT tgname FROM pg_trigger WHERE NOT tgisinternal"
+        names = {r[0] for r in conn.execute(text(sql))}
+    engine.dispose()
+    return names
+
+
+def test_0005_guards_signed_rows_and_goes_down_and_up(backend, app):
+    """Any later batch rebuild of these tables on SQLite must recreate the triggers."""
+    url = app.config["DATABASE_URL"]  # migrated to head from the template
+    extra = set() if backend == "sqlite" else {
+        "signatures_no_truncate", "fits_no_truncate", "setpoint_proposals_no_truncate"}
+    assert SIGNED_ROW_TRIGGERS | extra <= _triggers(url)
+    downgrade(url, "0004")
+    left = _triggers(url)
+    assert not left & (SIGNED_ROW_TRIGGERS | extra)
+    assert "audit_events_no_update" in left
+    upgrade(url)
+    assert SIGNED_ROW_TRIGGERS | extra <= _triggers(url)
+    assert _diff_ignoring_types(url) == []

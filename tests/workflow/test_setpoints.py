@@ -26,6 +26,7 @@ from app.workflow import (
     setpoints,
 )
 from tests.conftest import PASSWORD
+from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow import helpers as h
 
 GOALS = {"Hardness": {"goal": "maximize", "spec": {"lower": 120}}}
@@ -130,6 +131,7 @@ def test_altered_results_make_the_approval_invalid(db, approved):
     with db.transaction() as s:
         doc = json.loads(s.get(Fit, fit_id).results_json)
         doc["model"]["coefficients"][0] += 5.0
+        drop_signed_row_triggers(s)
         s.execute(text("UPDATE fits SET results_json = :j WHERE id = :i"),
                   {"j": json.dumps(doc), "i": fit_id})
     with pytest.raises(Conflict, match="signature of fit .* is invalid"):
@@ -242,6 +244,7 @@ def test_altered_proposal_cannot_be_released_and_its_signature_shows_invalid(db,
         with db.transaction() as s:
             doc = json.loads(s.get(SetpointProposal, target).result_json)
             doc["optimum"]["pi"]["Hardness"] = [0.0, 1000.0]
+            drop_signed_row_triggers(s)
             s.execute(text("UPDATE setpoint_proposals SET result_json = :j WHERE id = :i"),
                       {"j": json.dumps(doc), "i": target})
     with pytest.raises(Conflict, match="no longer matches its recorded SHA-256"):

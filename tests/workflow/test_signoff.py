@@ -14,6 +14,7 @@ from app.store.models import AuditEvent, Fit, Signature
 from app.workflow import Conflict, Forbidden, WorkflowError, accounts, reviews
 from app.workflow.fits import snapshot_document
 from tests.conftest import PASSWORD
+from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow import helpers as h
 
 
@@ -171,6 +172,7 @@ def test_altered_results_make_the_signature_invalid(db, draft):
     with db.transaction() as s:
         doc = json.loads(s.get(Fit, draft).results_json)
         doc["coefficients"][1]["estimate"] += 1e-6
+        drop_signed_row_triggers(s)
         s.execute(text("UPDATE fits SET results_json = :j WHERE id = :i"),
                   {"j": canonical_json(doc), "i": draft})
     with db.session() as s:
@@ -182,6 +184,7 @@ def test_altered_signature_record_is_invalid(db, draft):
     h.submit(db, draft)
     sig_id = h.sign(db, draft)
     with db.transaction() as s:
+        drop_signed_row_triggers(s)
         s.execute(text("UPDATE signatures SET meaning = :m WHERE id = :i"),
                   {"m": "returned for rework", "i": sig_id})
     with db.session() as s:
@@ -196,6 +199,7 @@ def test_signature_moved_to_another_fit_is_invalid(db, draft):
         version_id = s.get(Fit, draft).data_version_id
     other = h.make_fit(db, version_id, model="linear")
     with db.transaction() as s:
+        drop_signed_row_triggers(s)
         s.execute(text("UPDATE signatures SET fit_id = :f WHERE id = :i"),
                   {"f": other, "i": sig_id})
     with db.session() as s:

@@ -1,0 +1,23 @@
+"""Dropping the triggers that guard signatures, fit and setpoint snapshots (migration 0005),
+the way someone with write access to the database could, so tests can tamper on purpose."""
+
+from __future__ import annotations
+
+from sqlalchemy import text
+from sqlalchemy.orm import Session
+
+TRIGGERS = {
+    "signatures": ("signatures_no_update", "signatures_no_delete", "signatures_no_truncate"),
+    "fits": ("fits_snapshot_no_update", "fits_no_delete", "fits_no_truncate"),
+    "setpoint_proposals": ("setpoint_proposals_snapshot_no_update",
+                           "setpoint_proposals_no_delete", "setpoint_proposals_no_truncate"),
+}
+
+
+def drop_signed_row_triggers(s: Session) -> None:
+    """Drop them inside the caller's transaction (before its tampering statement)."""
+    sqlite = s.get_bind().dialect.name == "sqlite"
+    for table, names in TRIGGERS.items():
+        for name in names:
+            s.execute(text(f"DROP TRIGGER IF EXISTS {name}" if sqlite
+                           else f"DROP TRIGGER IF EXISTS {name} ON {table}"))
