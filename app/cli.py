@@ -6,7 +6,7 @@ import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import click
 
@@ -76,6 +76,19 @@ def _fail(message: str) -> None:
     sys.exit(2)
 
 
+@contextmanager
+def _account_change() -> Iterator[Any]:
+    """One transaction for an account command; a refusal ends the command with its message."""
+    from app.store.db import database
+    from app.workflow import WorkflowError
+
+    try:
+        with _application() as app, database(app).transaction() as s:
+            yield s
+    except WorkflowError as exc:
+        _fail(exc.message)
+
+
 @users.command("add")
 @click.argument("username")
 @click.option("--name", "full_name", required=True, help="Full name, printed with signatures.")
@@ -117,29 +130,21 @@ def users_list() -> None:
 @click.argument("username")
 @click.argument("roles")
 def users_set_roles(username: str, roles: str) -> None:
-    from app.store.db import database
-    from app.workflow import WorkflowError, accounts
+    from app.workflow import accounts
 
-    try:
-        with _application() as app, database(app).transaction() as s:
-            user = accounts.set_roles(s, None, username, roles)
-            click.echo(f"{user.username}: {user.roles}")
-    except WorkflowError as exc:
-        _fail(exc.message)
+    with _account_change() as s:
+        user = accounts.set_roles(s, None, username, roles)
+        click.echo(f"{user.username}: {user.roles}")
 
 
 @users.command("deactivate")
 @click.argument("username")
 def users_deactivate(username: str) -> None:
-    from app.store.db import database
-    from app.workflow import WorkflowError, accounts
+    from app.workflow import accounts
 
-    try:
-        with _application() as app, database(app).transaction() as s:
-            accounts.set_active(s, None, username, False)
-            click.echo(f"{username}: deactivated; sessions and tokens revoked")
-    except WorkflowError as exc:
-        _fail(exc.message)
+    with _account_change() as s:
+        accounts.set_active(s, None, username, False)
+        click.echo(f"{username}: deactivated; sessions and tokens revoked")
 
 
 @users.command("rename")
@@ -147,30 +152,22 @@ def users_deactivate(username: str) -> None:
 @click.option("--name", "full_name", required=True, help="The new printed name.")
 def users_rename(username: str, full_name: str) -> None:
     """Change the printed name; it must stay unique among active users."""
-    from app.store.db import database
-    from app.workflow import WorkflowError, accounts
+    from app.workflow import accounts
 
-    try:
-        with _application() as app, database(app).transaction() as s:
-            user = accounts.set_full_name(s, None, username, full_name)
-            click.echo(f"{user.username}: {user.full_name}")
-    except WorkflowError as exc:
-        _fail(exc.message)
+    with _account_change() as s:
+        user = accounts.set_full_name(s, None, username, full_name)
+        click.echo(f"{user.username}: {user.full_name}")
 
 
 @users.command("unlock")
 @click.argument("username")
 def users_unlock(username: str) -> None:
     """End a signing and password-change lock after too many wrong passwords."""
-    from app.store.db import database
-    from app.workflow import WorkflowError, accounts
+    from app.workflow import accounts
 
-    try:
-        with _application() as app, database(app).transaction() as s:
-            accounts.unlock(s, None, username)
-            click.echo(f"{username}: signing and password change unlocked")
-    except WorkflowError as exc:
-        _fail(exc.message)
+    with _account_change() as s:
+        accounts.unlock(s, None, username)
+        click.echo(f"{username}: signing and password change unlocked")
 
 
 # ---- tokens -------------------------------------------------------------------------------

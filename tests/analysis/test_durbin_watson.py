@@ -54,6 +54,14 @@ def _random_q(n, k, seed):
     return q
 
 
+def _imhof_bounds(n, k, *, alpha):
+    """dL, dU: the alpha points of the Durbin & Watson (1950) bounding laws by Imhof inversion."""
+    nu = _bound_nu(n)
+    lower = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[: n - k - 1] - d) - alpha, 0.01, 3.99)
+    upper = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[k:] - d) - alpha, 0.01, 3.99)
+    return lower, upper
+
+
 def test_savin_white_table_has_expected_extent():
     assert len(TABLE1) > 200 and (200, 5) in TABLE1
 
@@ -62,12 +70,7 @@ def test_savin_white_table_has_expected_extent():
 def test_imhof_on_bounding_distributions_reproduces_savin_white_1pct(key):
     # source: Savin & White (1977) 1 % table (printed to 3 decimals); the lower bound law uses
     # nu_1..nu_{n-k'-1} and the upper nu_{k'+1}..nu_{n-1} (Durbin & Watson 1950)
-    n, k = key
-    dl, du = TABLE1[key]
-    nu = _bound_nu(n)
-    got_l = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[: n - k - 1] - d) - 0.01, 0.01, 3.99)
-    got_u = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[k:] - d) - 0.01, 0.01, 3.99)
-    assert_allclose([got_l, got_u], [dl, du], atol=1.5e-3)
+    assert_allclose(_imhof_bounds(*key, alpha=0.01), TABLE1[key], atol=1.5e-3)
 
 
 def test_savin_white_5pct_table_has_expected_extent():
@@ -77,12 +80,7 @@ def test_savin_white_5pct_table_has_expected_extent():
 @pytest.mark.parametrize("key", sorted(TABLE5))
 def test_imhof_on_bounding_distributions_reproduces_savin_white_5pct(key):
     # source: Savin & White (1977) 5 % table, 3 decimals, recalled from memory
-    n, k = key
-    dl, du = TABLE5[key]
-    nu = _bound_nu(n)
-    got_l = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[: n - k - 1] - d) - 0.05, 0.01, 3.99)
-    got_u = optimize.brentq(lambda d: imhof_cdf_at_zero(nu[k:] - d) - 0.05, 0.01, 3.99)
-    assert_allclose([got_l, got_u], [dl, du], atol=1.5e-3)
+    assert_allclose(_imhof_bounds(*key, alpha=0.05), TABLE5[key], atol=1.5e-3)
 
 
 @pytest.mark.parametrize("key", sorted(TABLE5))
