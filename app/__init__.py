@@ -69,9 +69,11 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
     if test_config is None:
         app.config.from_pyfile("config.py", silent=True)
         app.config.from_prefixed_env("PLUMBLINE")
-        if os.environ.get("PLUMBLINE_INTEGRITY_KEY"):
-            # Taken as written: the JSON parsing above would turn an all-digit key into a number.
-            app.config["INTEGRITY_KEY"] = os.environ["PLUMBLINE_INTEGRITY_KEY"]
+        for name in ("INTEGRITY_KEY", "INTEGRITY_RETIRED_KEYS"):
+            if os.environ.get(f"PLUMBLINE_{name}"):
+                # Taken as written: the JSON parsing above would turn an all-digit key into a
+                # number.
+                app.config[name] = os.environ[f"PLUMBLINE_{name}"]
     else:
         app.config.from_mapping(test_config)
     Path(app.instance_path).mkdir(parents=True, exist_ok=True)

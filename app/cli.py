@@ -51,11 +51,19 @@ def db() -> None:
 @db.command("upgrade", help="Apply all migrations (creates the database when new).")
 @click.option("--revision", default="head", show_default=True)
 def db_upgrade(revision: str) -> None:
+    from app.store import audit
+    from app.store.db import database
     from app.store.migrate import upgrade
 
     with _application() as app:
         upgrade(app.config["DATABASE_URL"], revision)
         click.echo(f"database at {revision}: {_redacted(app.config['DATABASE_URL'])}")
+        if revision == "head":
+            with database(app).transaction() as s:
+                earlier = audit.begin_sealing(s)
+            if earlier:
+                click.echo(f"audit trail: {earlier} events written before sealing began are "
+                           "now covered by a sealed event")
 
 
 def _redacted(url: str) -> str:
@@ -238,11 +246,13 @@ def serve(host: str, port: int, threads: int) -> None:
 @click.argument("file", type=click.Path(dir_okay=False, path_type=Path))
 def backup_command(file: Path) -> None:
     from app.store.backup import BackupError, backup
+    from app.store.db import database
 
     with _application() as app:
         url = app.config["DATABASE_URL"]
+        ring = database(app).keys.ring()
     try:
-        report = backup(url, file)
+        report = backup(url, file, ring)
     except BackupError as exc:
         _fail(str(exc))
     click.echo(f"backup {report.path}: integrity {report.integrity}; {report.chain.describe()}")
@@ -253,13 +263,15 @@ def backup_command(file: Path) -> None:
 @click.option("--yes", is_flag=True, help="Do not ask for confirmation.")
 def restore_command(file: Path, yes: bool) -> None:
     from app.store.backup import BackupError, restore
+    from app.store.db import database
 
     with _application() as app:
         url = app.config["DATABASE_URL"]
+        ring = database(app).keys.ring()
     if not yes:
         click.confirm(f"Replace {_redacted(url)} with {file}?", abort=True)
     try:
-        report = restore(url, file)
+        report = restore(url, file, ring)
     except BackupError as exc:
         _fail(str(exc))
     click.echo(f"restored: integrity {report.integrity}; {report.chain.describe()}")

@@ -19,9 +19,13 @@ DEFAULTS: dict[str, object] = {
     # Key of the HMAC-SHA-256 that stands in the audit trail for a sign-in name matching no
     # account (a password typed there by mistake is never kept); unset, SECRET_KEY is used.
     "LOGIN_NAME_KEY": None,
-    # Key of the HMAC-SHA-256 on each audit chain head appended to instance/audit-anchor.log
-    # (app.store.anchor); unset, a key is generated once into instance/integrity_key.
+    # The integrity key: HMAC-SHA-256 seals on every audit event, snapshot, signature and
+    # confirmation result, and on each chain head in instance/audit-anchor.log (app.store.keys);
+    # unset, a key is generated once into instance/integrity_key.
     "INTEGRITY_KEY": None,
+    # Keys taken out of service, comma-separated, so that older seals still check (besides
+    # instance/integrity_keys.retired, which `plumbline audit rotate-key` appends to).
+    "INTEGRITY_RETIRED_KEYS": None,
     # Days a new API token lives unless its maker asks for fewer (or more, up to the maximum).
     "API_TOKEN_DAYS": 90,
     "API_TOKEN_MAX_DAYS": 365,

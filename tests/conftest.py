@@ -146,3 +146,21 @@ def client(app):
 @pytest.fixture
 def actions(client):
     return Actions(client)
+
+
+@pytest.fixture
+def cli_env(tmp_path, monkeypatch):
+    """A SQLite database and instance folder of its own for the `plumbline` command."""
+    url = f"sqlite:///{tmp_path / 'cli.db'}"
+    monkeypatch.setenv("PLUMBLINE_DATABASE_URL", url)
+    monkeypatch.setenv("PLUMBLINE_INSTANCE_PATH", str(tmp_path / "instance"))
+    monkeypatch.setenv("PLUMBLINE_ARGON2_MEMORY_KIB", "19456")
+    monkeypatch.setenv("PLUMBLINE_ARGON2_TIME_COST", "2")
+    from click.testing import CliRunner
+
+    from app.cli import main
+
+    runner = CliRunner()
+    result = runner.invoke(main, ["db", "upgrade"])
+    assert result.exit_code == 0, result.output
+    return runner, url

@@ -5,25 +5,11 @@ from __future__ import annotations
 from datetime import UTC, datetime, timedelta
 
 import pytest
-from click.testing import CliRunner
 from sqlalchemy import create_engine, func, select, update
 from sqlalchemy.orm import Session
 
 from app.cli import main
 from app.store.models import ApiToken, AuditEvent, DataVersion, Study, User
-
-
-@pytest.fixture
-def cli_env(tmp_path, monkeypatch):
-    url = f"sqlite:///{tmp_path / 'cli.db'}"
-    monkeypatch.setenv("PLUMBLINE_DATABASE_URL", url)
-    monkeypatch.setenv("PLUMBLINE_INSTANCE_PATH", str(tmp_path / "instance"))
-    monkeypatch.setenv("PLUMBLINE_ARGON2_MEMORY_KIB", "19456")
-    monkeypatch.setenv("PLUMBLINE_ARGON2_TIME_COST", "2")
-    runner = CliRunner()
-    result = runner.invoke(main, ["db", "upgrade"])
-    assert result.exit_code == 0, result.output
-    return runner, url
 
 
 def _query(url, stmt):

@@ -11,9 +11,8 @@ never mix, though they may land out of order. Writing happens after the commit: 
 transaction leaves no line, and a file that cannot be written is logged, never turned into a
 failed request (the change is already committed).
 
-The integrity key is ``INTEGRITY_KEY`` (``PLUMBLINE_INTEGRITY_KEY``), else a key generated once
-into ``integrity_key`` in the instance folder (mode 0600). Each line names the key by its id,
-the first 8 hex digits of the key's SHA-256.
+The key is the current integrity key (:mod:`app.store.keys`); each line names it by its id, and
+lines made under a retired key are still checked with that key.
 """
 
 from __future__ import annotations
@@ -23,8 +22,6 @@ import hmac
 import json
 import logging
 import os
-import secrets
-import tempfile
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,6 +31,7 @@ from sqlalchemy import event
 
 from app.store.audit import GENESIS_HASH, PENDING_HEAD, canonical_json
 from app.store.base import utcnow
+from app.store.keys import Keyring, KeySource, key_id
 
 if TYPE_CHECKING:
     from flask import Flask
@@ -42,12 +40,7 @@ if TYPE_CHECKING:
 log = logging.getLogger(__name__)
 
 ANCHOR_FILE = "audit-anchor.log"
-KEY_FILE = "integrity_key"
 FORMAT = 1
-
-
-def key_id(key: bytes) -> str:
-    return hashlib.sha256(key).hexdigest()[:8]
 
 
 def _mac(key: bytes, seq: int, head_hash: str, at: str, kid: str) -> str:
@@ -76,32 +69,6 @@ def append_line(path: Path, line: str) -> None:
         os.close(fd)
 
 
-def load_or_create_key(configured: Any, key_file: Path) -> bytes:
-    """The configured key, else the key in ``key_file``, generated there once (mode 0600)."""
-    if configured:
-        return str(configured).encode()
-    if not key_file.exists():
-        key_file.parent.mkdir(parents=True, exist_ok=True)
-        # Write a temporary file and link it into place: a second process either wins the
-        # link or reads the complete key, never an empty file.
-        fd, tmp = tempfile.mkstemp(dir=key_file.parent, prefix=".integrity_key.")
-        try:
-            with os.fdopen(fd, "w") as fh:
-                fh.write(secrets.token_hex(32))
-                fh.flush()
-                os.fsync(fh.fileno())
-            try:
-                os.link(tmp, key_file)
-            except FileExistsError:
-                pass
-        finally:
-            os.unlink(tmp)
-    key = key_file.read_text().strip()
-    if not key:
-        raise RuntimeError(f"the integrity key file {key_file} is empty")
-    return key.encode()
-
-
 class AuditAnchor:
     """Anchors the heads committed through one application's sessions.
 
@@ -109,16 +76,16 @@ class AuditAnchor:
     built, so an instance path set after ``create_app`` (as the tests do) is the one used.
     """
 
-    def __init__(self, app: Flask) -> None:
+    def __init__(self, app: Flask, keys: KeySource) -> None:
         self.app = app
+        self.keys = keys
 
     @property
     def path(self) -> Path:
         return Path(self.app.instance_path) / ANCHOR_FILE
 
     def key(self) -> bytes:
-        return load_or_create_key(self.app.config.get("INTEGRITY_KEY"),
-                                  Path(self.app.instance_path) / KEY_FILE)
+        return self.keys.ring().current
 
     def line(self, seq: int, head_hash: str) -> str:
         return anchor_line(self.key(), seq, head_hash)
@@ -175,8 +142,8 @@ class AnchorReport:
         return out
 
     def notes(self) -> list[str]:
-        return [f"{n} anchor line(s) made with key {kid} cannot be checked with the current key"
-                for kid, n in sorted(self.other_keys.items())]
+        return [f"{n} anchor line(s) made with key {kid} cannot be checked: that key is not "
+                "held here" for kid, n in sorted(self.other_keys.items())]
 
     def describe(self) -> str:
         if not self.ok:
@@ -186,13 +153,17 @@ class AnchorReport:
         return f"anchors hold: {self.checked} anchored heads, the highest #{self.highest}"
 
 
-def check_anchors(lines: Iterable[str], key: bytes, chain: Mapping[int, str]) -> AnchorReport:
+def check_anchors(lines: Iterable[str], ring: Keyring | bytes,
+                  chain: Mapping[int, str]) -> AnchorReport:
     """Check every anchor line against ``chain`` (sequence number → event hash).
 
-    Lines may be in any order. A line under another key is counted as not checkable; a line
+    Lines may be in any order. A line under a key the ring does not hold (current or retired)
+    is counted as not checkable; a line
     that is malformed or whose MAC does not verify is a problem.
     """
-    report, kid = AnchorReport(), key_id(key)
+    if isinstance(ring, bytes):
+        ring = Keyring(ring, {})
+    report = AnchorReport()
     for number, raw in enumerate(lines, start=1):
         if not raw.strip():
             continue
@@ -206,7 +177,8 @@ def check_anchors(lines: Iterable[str], key: bytes, chain: Mapping[int, str]) ->
         except (ValueError, KeyError, TypeError):
             report.bad_lines.append(f"anchor line {number} is not an anchor record")
             continue
-        if line_kid != kid:
+        key = ring.key(line_kid)
+        if key is None:
             report.other_keys[line_kid] = report.other_keys.get(line_kid, 0) + 1
             continue
         if not hmac.compare_digest(mac, _mac(key, seq, head_hash, at, line_kid)):

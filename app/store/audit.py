@@ -1,7 +1,11 @@
 """The audit trail: an append-only, hash-chained event log.
 
 Each event's hash is SHA-256 over a canonical JSON of its fields and the previous event's hash,
-so :func:`verify_chain` names the first altered, missing or reordered event. Appends lock the
+so :func:`verify_chain` names the first altered, missing or reordered event. Each event is also
+sealed: HMAC-SHA-256 of its hash under the integrity key, whose id it keeps
+(:mod:`app.store.keys`). Anyone can recompute the hashes (a record package is checked offline
+that way); only the key's holder can make seals, so an event rewritten and re-hashed by someone
+who can write the database but lacks the key fails its seal. Appends lock the
 single ``chain_head`` row, which serializes them on PostgreSQL (``SELECT … FOR UPDATE``); on
 SQLite write transactions already begin IMMEDIATE.
 """
@@ -10,15 +14,17 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable
+from collections.abc import Iterable, Iterator
+from contextlib import closing
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.store.base import utcnow
+from app.store.keys import Keyring, ring_of, sealing_ring
 from app.store.models import AuditEvent, ChainHead
 
 GENESIS_HASH = "0" * 64
@@ -37,22 +43,24 @@ def canonical_json(value: Any) -> str:
                       allow_nan=False, default=str)
 
 
-def _iso(at: datetime | str) -> str:
+def iso(at: datetime | str) -> str:
     return at if isinstance(at, str) else at.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
 def event_hash(fields: dict[str, Any]) -> str:
     """SHA-256 of an event's hashed fields (``at`` as ISO-8601 UTC)."""
     payload = {name: fields.get(name) for name in HASHED_FIELDS}
-    payload["at"] = _iso(payload["at"])
+    payload["at"] = iso(payload["at"])
     return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
 
 
 def event_to_dict(event: AuditEvent) -> dict[str, Any]:
     out = {name: getattr(event, name) for name in HASHED_FIELDS}
-    out["at"] = _iso(event.at)
+    out["at"] = iso(event.at)
     out["id"] = event.id
     out["hash"] = event.hash
+    out["key_id"] = event.key_id
+    out["seal"] = event.seal
     return out
 
 
@@ -72,6 +80,7 @@ def record(
 
     ``actor`` is a User (``id``, ``full_name``, ``username``) or None for the command line.
     """
+    ring = sealing_ring(session)
     head = session.execute(
         select(ChainHead).where(ChainHead.id == 1).with_for_update()
     ).scalar_one()
@@ -92,6 +101,7 @@ def record(
     }
     # Hash the stored (microsecond) time exactly as it will be read back.
     fields["hash"] = event_hash(fields)
+    fields["key_id"], fields["seal"] = ring.seal("event", fields["hash"])
     event = AuditEvent(**fields)
     session.add(event)
     head.seq = fields["seq"]
@@ -110,49 +120,136 @@ class ChainReport:
     broken_seq: int | None = None
     broken_id: int | None = None
     problem: str | None = None
+    # Events whose seal was checked with the integrity key; events written before sealing
+    # began (an unsealed start of the chain); None when no key ring was given (offline).
+    sealed: int | None = None
+    unsealed_start: int = 0
+    # What the broken event was about, e.g. "fit.return on fit 3".
+    broken_subject: str | None = None
 
     def describe(self) -> str:
-        if self.ok:
-            return f"chain intact: {self.checked} events, head #{self.head_seq} {self.head_hash}"
-        return f"chain broken at event #{self.broken_seq} (id {self.broken_id}): {self.problem}"
+        if not self.ok:
+            about = ", ".join(str(part) for part in (
+                None if self.broken_id is None else f"id {self.broken_id}",
+                self.broken_subject) if part)
+            about = f" ({about})" if about else ""
+            return f"chain broken at event #{self.broken_seq}{about}: {self.problem}"
+        seals = ("" if self.sealed is None else
+                 f", {self.sealed} seals checked with the integrity key" +
+                 (f" ({self.unsealed_start} events from before sealing began)"
+                  if self.unsealed_start else ""))
+        return (f"chain intact: {self.checked} events{seals}, head #{self.head_seq} "
+                f"{self.head_hash}")
 
 
-def verify_chain(events: Iterable[dict[str, Any]], head: dict[str, Any] | None) -> ChainReport:
-    """Check hashes, links and sequence numbers; name the first event that does not hold."""
+def _seal_problem(ring: Keyring, ev: dict[str, Any], sealing_began: bool) -> str | None:
+    kid, seal = ev.get("key_id"), ev.get("seal")
+    if not kid and not seal:
+        return ("it has no seal although earlier events do (written or rewritten without the "
+                "integrity key)") if sealing_began else None
+    held = ring.holds("event", ev["hash"], kid, seal)
+    if held is None:
+        return f"it is sealed with key {kid}, which is not held here (no retired key of that id)"
+    if not held:
+        return ("its seal does not match its hash (rewritten and re-hashed without the "
+                "integrity key)")
+    return None
+
+
+def verify_chain(events: Iterable[dict[str, Any]], head: dict[str, Any] | None,
+                 ring: Keyring | None = None) -> ChainReport:
+    """Check hashes, links, sequence numbers and, with ``ring``, seals; name the first event
+    that does not hold. Unsealed events are accepted only before the first sealed one."""
     prev_hash, expected_seq, checked = GENESIS_HASH, 1, 0
+    sealed = unsealed = 0
     last = {"seq": 0, "hash": GENESIS_HASH}
+
+    def broken(seq: Any, ev_id: Any, problem: str, ev: dict | None = None) -> ChainReport:
+        subject = None
+        if ev is not None:
+            subject = f"{ev.get('action')} on {ev.get('object_type')}"
+            if ev.get("object_id") is not None:
+                subject += f" {ev.get('object_id')}"
+        return ChainReport(False, checked, last["seq"], last["hash"], seq, ev_id, problem,
+                           None if ring is None else sealed, unsealed, subject)
+
     for ev in events:
         seq, ev_id = ev.get("seq"), ev.get("id")
         if seq != expected_seq:
             if isinstance(seq, int) and seq > expected_seq:
-                problem = f"event #{expected_seq} is missing (next present is #{seq})"
-                return ChainReport(False, checked, last["seq"], last["hash"], expected_seq,
-                                   ev_id, problem)
-            return ChainReport(False, checked, last["seq"], last["hash"], seq, ev_id,
-                               f"out of order: expected #{expected_seq}, found #{seq}")
+                return broken(expected_seq, ev_id,
+                              f"event #{expected_seq} is missing (next present is #{seq})")
+            return broken(seq, ev_id, f"out of order: expected #{expected_seq}, found #{seq}")
         if ev.get("prev_hash") != prev_hash:
-            return ChainReport(False, checked, last["seq"], last["hash"], seq, ev_id,
-                               "its link to the previous event does not match (missing or "
-                               "reordered event before it)")
+            return broken(seq, ev_id, "its link to the previous event does not match (missing "
+                                      "or reordered event before it)", ev)
         if event_hash(ev) != ev.get("hash"):
-            return ChainReport(False, checked, last["seq"], last["hash"], seq, ev_id,
-                               "its content does not match its hash (altered)")
+            return broken(seq, ev_id, "its content does not match its hash (altered)", ev)
+        if ring is not None:
+            problem = _seal_problem(ring, ev, sealed > 0)
+            if problem:
+                return broken(seq, ev_id, problem, ev)
+            if ev.get("seal"):
+                sealed += 1
+            else:
+                unsealed += 1
         prev_hash, expected_seq, checked = ev["hash"], expected_seq + 1, checked + 1
         last = {"seq": seq, "hash": ev["hash"]}
+    if ring is not None and checked and not sealed:
+        return broken(last["seq"], None,
+                      "no event carries a seal under the integrity key (seals removed, or a "
+                      "trail from before sealing began: `plumbline db upgrade` seals its end)")
     if head is not None and (head.get("seq") != last["seq"] or head.get("hash") != last["hash"]):
-        return ChainReport(False, checked, last["seq"], last["hash"], head.get("seq"), None,
-                           f"the chain head records #{head.get('seq')} but the last event "
-                           f"present is #{last['seq']} (events removed from the end)")
-    return ChainReport(True, checked, last["seq"], last["hash"])
+        return broken(head.get("seq"), None,
+                      f"the chain head records #{head.get('seq')} but the last event present "
+                      f"is #{last['seq']} (events removed from the end)")
+    return ChainReport(True, checked, last["seq"], last["hash"],
+                       sealed=None if ring is None else sealed, unsealed_start=unsealed)
 
 
-def verify(session: Session) -> ChainReport:
-    """Verify the whole stored chain against the recorded head."""
-    # Read in insertion (id) order: a row whose seq does not follow was moved.
-    rows = session.execute(select(AuditEvent).order_by(AuditEvent.id)).scalars()
+EVENT_COLUMNS = ("id", *HASHED_FIELDS, "hash", "key_id", "seal")
+BATCH = 5000
+
+
+def stored_events(session: Session) -> Iterator[dict[str, Any]]:
+    """Every stored event as a dict, in insertion (id) order, read in batches."""
+    table = AuditEvent.__table__
+    query = select(*(table.c[name] for name in EVENT_COLUMNS)).order_by(table.c.id)
+    result = session.execute(query.execution_options(yield_per=BATCH))
+    try:
+        for row in result:
+            ev = dict(zip(EVENT_COLUMNS, row, strict=True))
+            ev["at"] = iso(ev["at"])
+            yield ev
+    finally:
+        result.close()  # a server-side cursor on PostgreSQL when the reader stops early
+
+
+def verify(session: Session, ring: Keyring | None = None) -> ChainReport:
+    """Verify the whole stored chain against the recorded head; seals too, with the session's
+    key ring (or ``ring``) when it has one."""
+    ring = ring if ring is not None else ring_of(session)
     head = session.get(ChainHead, 1)
     head_dict = None if head is None else {"seq": head.seq, "hash": head.hash}
-    return verify_chain((event_to_dict(e) for e in rows), head_dict)
+    # Read in insertion (id) order: a row whose seq does not follow was moved.
+    with closing(stored_events(session)) as events:
+        return verify_chain(events, head_dict, ring)
+
+
+def begin_sealing(session: Session) -> int | None:
+    """Seal the end of a trail written before events were sealed (migration 0007): one sealed
+    event naming how many unsealed events come before it, whose hash covers them all. Returns
+    that number, or None when there is nothing to do (no events, or some already sealed)."""
+    table = AuditEvent.__table__
+    if session.scalar(select(table.c.id).where(table.c.seal.is_not(None)).limit(1)) is not None:
+        return None
+    count = session.scalar(select(func.count()).select_from(table)) or 0
+    if not count:
+        return None
+    record(session, actor=None, action="integrity.sealing_began", object_type="integrity",
+           new={"unsealed_events": count},
+           reason="events from here on are sealed with the integrity key")
+    return count
 
 
 def chain_head(session: Session) -> tuple[int, str]:

@@ -14,6 +14,7 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.orm import Session
 
 from app.store import audit
+from app.store.keys import Keyring
 
 
 class BackupError(Exception):
@@ -39,8 +40,9 @@ def sqlite_path(url: str) -> Path:
     return Path(parsed.database)
 
 
-def check_file(path: Path) -> BackupReport:
-    """PRAGMA integrity_check and the audit chain of one SQLite file."""
+def check_file(path: Path, ring: Keyring | None = None) -> BackupReport:
+    """PRAGMA integrity_check and the audit chain of one SQLite file (with ``ring``, its seals
+    too)."""
     conn = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:
         integrity = "; ".join(r[0] for r in conn.execute("PRAGMA integrity_check"))
@@ -49,7 +51,7 @@ def check_file(path: Path) -> BackupReport:
     engine = create_engine(f"sqlite:///{path}")
     try:
         with Session(engine) as s:
-            chain = audit.verify(s)
+            chain = audit.verify(s, ring)
     finally:
         engine.dispose()
     return BackupReport(str(path), integrity, chain)
@@ -66,7 +68,7 @@ def _copy(source: Path, target: Path) -> None:
         src.close()
 
 
-def backup(url: str, target: Path) -> BackupReport:
+def backup(url: str, target: Path, ring: Keyring | None = None) -> BackupReport:
     source = sqlite_path(url)
     if not source.exists():
         raise BackupError(f"no database at {source}")
@@ -74,24 +76,24 @@ def backup(url: str, target: Path) -> BackupReport:
     if target.exists():
         raise BackupError(f"{target} exists; choose a new file name")
     _copy(source, target)
-    report = check_file(target)
+    report = check_file(target, ring)
     if not report.ok:
         raise BackupError(f"backup written but it does not check out: integrity "
                           f"{report.integrity}; {report.chain.describe()}")
     return report
 
 
-def restore(url: str, source: Path) -> BackupReport:
+def restore(url: str, source: Path, ring: Keyring | None = None) -> BackupReport:
     """Replace the database with a backup (stop the server first). The backup is checked
     before anything is overwritten, and the result after."""
     source = Path(source)
     if not source.exists():
         raise BackupError(f"no backup at {source}")
-    before = check_file(source)
+    before = check_file(source, ring)
     if not before.ok:
         raise BackupError(f"refusing to restore: the backup does not check out: integrity "
                           f"{before.integrity}; {before.chain.describe()}")
     target = sqlite_path(url)
     target.parent.mkdir(parents=True, exist_ok=True)
     _copy(source, target)
-    return check_file(target)
+    return check_file(target, ring)

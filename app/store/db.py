@@ -15,8 +15,11 @@ from flask import Flask, current_app, g, has_request_context, request
 from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.orm import Session, sessionmaker
 
+from app.store.keys import SESSION_KEYS
+
 if TYPE_CHECKING:
     from app.store.anchor import AuditAnchor
+    from app.store.keys import KeySource
 
 WRITE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
 
@@ -48,21 +51,25 @@ def make_engine(url: str, *, write: bool, busy_timeout_ms: int = 15000) -> Engin
 class Database:
     """Holds a read engine and a write engine for one application.
 
-    With ``anchor``, every session it hands out appends the audit chain's new head to the
-    anchor file after a commit that appended audit events (:mod:`app.store.anchor`).
+    With ``keys``, every session it hands out seals what it writes to the audit trail and the
+    signed tables with the integrity key (:mod:`app.store.keys`); with ``anchor``, it appends
+    the audit chain's new head to the anchor file after a commit that appended audit events
+    (:mod:`app.store.anchor`).
     """
 
     def __init__(self, url: str, busy_timeout_ms: int = 15000,
-                 anchor: AuditAnchor | None = None) -> None:
+                 anchor: AuditAnchor | None = None, keys: KeySource | None = None) -> None:
         self.url = url
         self.write_engine = make_engine(url, write=True, busy_timeout_ms=busy_timeout_ms)
         if url.startswith("sqlite"):
             self.read_engine = make_engine(url, write=False, busy_timeout_ms=busy_timeout_ms)
         else:
             self.read_engine = self.write_engine
-        self._write = sessionmaker(self.write_engine, expire_on_commit=False)
-        self._read = sessionmaker(self.read_engine, expire_on_commit=False)
+        info = {} if keys is None else {SESSION_KEYS: keys}
+        self._write = sessionmaker(self.write_engine, expire_on_commit=False, info=info)
+        self._read = sessionmaker(self.read_engine, expire_on_commit=False, info=info)
         self.anchor = anchor
+        self.keys = keys
         if anchor is not None:
             anchor.watch(self._write)
             anchor.watch(self._read)
@@ -84,10 +91,12 @@ class Database:
 
 def init_app(app: Flask) -> None:
     from app.store.anchor import AuditAnchor
+    from app.store.keys import KeySource
 
+    keys = KeySource(app)
     app.extensions["plumbline_db"] = Database(
         app.config["DATABASE_URL"], int(app.config["SQLITE_BUSY_TIMEOUT_MS"]),
-        anchor=AuditAnchor(app),
+        anchor=AuditAnchor(app, keys), keys=keys,
     )
     app.teardown_appcontext(_close_session)
 

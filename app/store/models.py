@@ -172,6 +172,10 @@ class Fit(Base):
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
     submitted_by_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
     submitted_at: Mapped[datetime | None] = mapped_column(UTCDateTime)
+    # HMAC-SHA-256 of ``snapshot_sha256`` under the integrity key ``key_id``
+    # (app.store.keys); None only for rows written before migration 0007.
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
 
     study: Mapped[Study] = relationship()
     data_version: Mapped[DataVersion] = relationship()
@@ -198,6 +202,10 @@ class Signature(Base):
     snapshot_sha256: Mapped[str] = mapped_column(String(64))
     # SHA-256 over (signer, name, time, meaning, comment, snapshot hash): binds the manifest.
     manifest_sha256: Mapped[str] = mapped_column(String(64))
+    # HMAC-SHA-256 of ``manifest_sha256`` under the integrity key ``key_id``
+    # (app.store.keys); None only for rows written before migration 0007.
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
 
     fit: Mapped[Fit | None] = relationship(back_populates="signatures")
     signer: Mapped[User] = relationship()
@@ -222,6 +230,10 @@ class AuditEvent(Base):
     reason: Mapped[str | None] = mapped_column(Text)
     prev_hash: Mapped[str] = mapped_column(String(64))
     hash: Mapped[str] = mapped_column(String(64), unique=True)
+    # HMAC-SHA-256 of ``hash`` under the integrity key ``key_id`` (app.store.keys); None only
+    # for events written before migration 0007, which then form the start of the chain.
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
 
 
 class ChainHead(Base):
@@ -258,6 +270,10 @@ class SetpointProposal(Base):
     row_version: Mapped[int] = mapped_column(Integer, default=1)
     created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # HMAC-SHA-256 of ``snapshot_sha256`` under the integrity key ``key_id``
+    # (app.store.keys); None only for rows written before migration 0007.
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
 
     study: Mapped[Study] = relationship()
     created_by: Mapped[User] = relationship()
@@ -280,6 +296,11 @@ class ConfirmationRun(Base):
     results_json: Mapped[str] = mapped_column(Text)
     created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
     created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+    # HMAC-SHA-256 of the run's record digest (app.workflow.confirmations.record_sha256)
+    # under the integrity key ``key_id`` (app.store.keys); None only for rows written before
+    # migration 0007.
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
 
     setpoint: Mapped[SetpointProposal] = relationship(back_populates="confirmations")
     created_by: Mapped[User] = relationship()

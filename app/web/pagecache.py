@@ -2,10 +2,11 @@
 
 A page is a function of the stored records and of who asks. Every change to the stored records
 goes through a service that appends an audit event in the same transaction, and every event
-advances the chain head; so the chain head's sequence number, the viewer (id, name, roles, form
-token) and the address identify one rendering. Pages that show a live integrity check (the fit
-page's snapshot hash and signature validity) add a digest of the rows they check, so a change
-made behind the services' back shows on the next request whether the page was cached or not.
+advances the chain head; so the chain head (sequence number and hash), the viewer (id, name,
+roles, form token) and the address identify one rendering. Pages that show a live integrity
+check (the fit page's snapshot hash and signature validity) add a digest of the rows they check,
+so a change made behind the services' back shows on the next request whether the page was
+cached or not.
 
 Not cached: a request with flashed messages waiting (they are shown once), and anything that
 raises (a 404 stays a 404). The cache is per process, bounded in bytes
@@ -77,12 +78,16 @@ def _cache() -> PageCache | None:
     return cache
 
 
-_CHAIN_SEQ = select(ChainHead.__table__.c.seq).where(ChainHead.__table__.c.id == 1)
+_HEAD = ChainHead.__table__
+_CHAIN_HEAD = select(_HEAD.c.seq, _HEAD.c.hash).where(_HEAD.c.id == 1)
 
 
-def chain_seq() -> int:
-    """The audit chain head's sequence number: it advances with every stored change."""
-    return get_session().execute(_CHAIN_SEQ).scalar() or 0
+def chain_position() -> tuple[int, str]:
+    """The audit chain head (sequence number and hash): the number advances with every stored
+    change, and the hash changes too when events are rewritten behind the services' back (the
+    fit page's signature checks replay the fit's events)."""
+    row = get_session().execute(_CHAIN_HEAD).first()
+    return (0, "") if row is None else (row[0], row[1])
 
 
 def rows_digest(rows: Iterable[Iterable]) -> str:
@@ -110,7 +115,7 @@ def render(page: tuple, build: Callable[[], str], live: str = "") -> bytes | str
         return build()
     user = g.user
     token = csrf_token()  # made before the key, so every page of a session carries the same one
-    key = (page, request.full_path, chain_seq(), live,
+    key = (page, request.full_path, chain_position(), live,
            None if user is None else (user.id, user.full_name, user.roles,
                                       user.must_change_password),
            token)

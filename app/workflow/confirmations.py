@@ -19,6 +19,7 @@ from app.ingest import IngestError, RawTable, read_upload
 from app.ingest.raw import parse_number
 from app.store import audit
 from app.store.audit import canonical_json
+from app.store.keys import sealing_ring
 from app.store.models import ConfirmationRun, SetpointProposal, User
 from app.workflow import Conflict, WorkflowError
 from app.workflow.reviews import VALID, require_role
@@ -122,14 +123,26 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     run = ConfirmationRun(setpoint_id=proposal.id, filename=filename[:255], original_bytes=data,
                           original_sha256=hashlib.sha256(data).hexdigest(),
                           results_json=canonical_json(doc), created_by_id=actor.id)
+    digest = record_sha256(run)
+    run.key_id, run.seal = sealing_ring(session).seal("confirmation", digest)
     session.add(run)
     session.flush()
     audit.record(session, actor=actor, action="setpoint.confirmation", object_type="setpoint",
                  object_id=proposal.id, study_id=proposal.study_id,
                  new={"confirmation_run": run.id, "filename": run.filename,
-                      "original_sha256": run.original_sha256, "verdict": overall,
+                      "original_sha256": run.original_sha256, "record_sha256": digest,
+                      "verdict": overall,
                       "verdicts": {r: v["verdict"] for r, v in verdicts.items()}})
     return run
+
+
+def record_sha256(run: ConfirmationRun) -> str:
+    """SHA-256 over what a confirmation run records: its proposal, file name, the file's
+    SHA-256 and the results (observations and verdicts); sealed on the row, kept in its event."""
+    return hashlib.sha256(canonical_json({
+        "setpoint_id": run.setpoint_id, "filename": run.filename,
+        "original_sha256": run.original_sha256, "results_json": run.results_json,
+    }).encode()).hexdigest()
 
 
 def results_of(run: ConfirmationRun) -> dict[str, Any]:

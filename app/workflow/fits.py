@@ -13,6 +13,7 @@ from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse
 from app.analysis.boxcox import LAMBDA_RANGE
 from app.store import audit
 from app.store.audit import canonical_json
+from app.store.keys import sealing_ring
 from app.store.models import DataVersion, Fit, Signature, User
 from app.workflow import NotFound, WorkflowError, in_id_range
 from app.workflow.uploads import design_table
@@ -140,6 +141,7 @@ def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpe
               software_version=results.get("software_version", "unknown"),
               snapshot_sha256="", state="draft", created_by_id=actor.id)
     fit.snapshot_sha256 = snapshot_sha256(fit)
+    fit.key_id, fit.seal = sealing_ring(session).seal("fit", fit.snapshot_sha256)
     session.add(fit)
     session.flush()
     verdicts = {c["id"]: c["verdict"] for c in results.get("checks", [])}

@@ -12,8 +12,8 @@ from typing import Any
 from sqlalchemy import or_, select
 from sqlalchemy.orm import Session
 
-from app.store import audit
-from app.store.models import AuditEvent, DataVersion, Fit, Study
+from app.store import audit, keys
+from app.store.models import AuditEvent, DataVersion, Fit, SetpointProposal, Study
 from app.workflow import NotFound, WorkflowError, in_id_range
 from app.workflow.csvsafe import neutralise_all as neutralise
 from app.workflow.fits import snapshot_intact
@@ -117,19 +117,46 @@ def export_json(study: Study, events: list[AuditEvent], head: tuple[int, str]) -
 
 
 def integrity(session: Session) -> dict[str, Any]:
-    """The chain, every data version's hashes, every fit's snapshot, every signature's status."""
+    """The chain with its seals; every data version's hashes; every fit and setpoint snapshot,
+    fit and setpoint signature and confirmation run with its seal; and the replay of the trail
+    against the tables (:mod:`app.workflow.replay`)."""
+    from app.workflow import confirmations, replay, setpoints
+
     chain = audit.verify(session)
     versions = [{"version": v, "original_ok": sha256_bytes(v.original_bytes) == v.original_sha256,
                  "canonical_ok": sha256_bytes(v.canonical_csv) == v.canonical_sha256}
                 for v in session.scalars(select(DataVersion).order_by(DataVersion.id))]
-    fit_rows, signature_rows = [], []
+    fit_rows, signature_rows, setpoint_rows, confirmation_rows = [], [], [], []
     for fit in session.scalars(select(Fit).order_by(Fit.id)):
-        fit_rows.append({"fit": fit, "intact": snapshot_intact(fit)})
+        seal = keys.seal_state(session, "fit", fit.snapshot_sha256, fit.key_id, fit.seal)
+        fit_rows.append({"fit": fit, "intact": snapshot_intact(fit), "seal": seal})
         for sig in fit.signatures:
-            signature_rows.append({"fit": fit, "signature": sig,
+            signature_rows.append({"object": f"fit {fit.id}", "signature": sig,
                                    "check": check_signature(fit, sig)})
+    for proposal in session.scalars(select(SetpointProposal).order_by(SetpointProposal.id)):
+        seal = keys.seal_state(session, "setpoint", proposal.snapshot_sha256, proposal.key_id,
+                               proposal.seal)
+        setpoint_rows.append({"proposal": proposal, "seal": seal,
+                              "intact": setpoints.proposal_intact(session, proposal)})
+        for sig in setpoints.release_signatures(session, proposal):
+            signature_rows.append({"object": f"setpoint {proposal.id}", "signature": sig,
+                                   "check": setpoints.signature_check(session, proposal, sig)})
+        for run in proposal.confirmations:
+            digest = confirmations.record_sha256(run)
+            confirmation_rows.append({
+                "run": run, "proposal": proposal,
+                "verdict": confirmations.results_of(run).get("verdict"),
+                "seal": keys.seal_state(session, "confirmation", digest, run.key_id, run.seal)})
+    disagreements = replay.disagreements(session)
     ok = (chain.ok and all(v["original_ok"] and v["canonical_ok"] for v in versions)
-          and all(f["intact"] for f in fit_rows)
-          and all(s["check"].status != "invalid" for s in signature_rows))
+          and all(f["intact"] for f in fit_rows) and all(p["intact"] for p in setpoint_rows)
+          and all(s["check"].status != "invalid" for s in signature_rows)
+          and not any(r["seal"] in BAD_SEALS
+                      for r in (*fit_rows, *setpoint_rows, *confirmation_rows))
+          and not disagreements)
     return {"ok": ok, "chain": chain, "versions": versions, "fits": fit_rows,
-            "signatures": signature_rows}
+            "setpoints": setpoint_rows, "signatures": signature_rows,
+            "confirmations": confirmation_rows, "disagreements": disagreements}
+
+
+BAD_SEALS = (keys.BROKEN, keys.KEY_NOT_HELD)

@@ -19,9 +19,9 @@ from __future__ import annotations
 from typing import Any
 
 from sqlalchemy import func, select, update
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, object_session
 
-from app.store import audit
+from app.store import audit, keys
 from app.store.base import utcnow
 from app.store.models import DataVersion, Fit, Signature, Study, User
 from app.workflow import Conflict, WorkflowError, signing
@@ -196,17 +196,30 @@ def withdraw(session: Session, actor: User, fit: Fit, *, proof: Reauthenticated 
 def check_signature(fit: Fit, sig: Signature) -> SignatureCheck:
     """Is the signature still bound to what it signed?
 
-    Invalid when its manifest no longer hashes to the stored value, when it names another
-    snapshot than the fit's, or when the fit's stored snapshot no longer hashes to the signed
-    value. An approval of an older data version is shown as not applying.
+    Invalid when its manifest no longer hashes to the stored value or its seal under the
+    integrity key does not hold, when it names another snapshot than the fit's, when the fit's
+    stored snapshot no longer hashes to the signed value, or when the fit's own audit events
+    disagree with the fit or its signatures (:func:`app.workflow.replay.fit_disagreements`). An
+    approval of an older data version is shown as not applying.
     """
+    session = object_session(fit)
     if manifest_sha256(sig) != sig.manifest_sha256:
         return SignatureCheck(INVALID, "the signature's own record was altered")
+    seal = keys.seal_state(session, "signature", sig.manifest_sha256, sig.key_id, sig.seal)
+    if seal in (keys.BROKEN, keys.KEY_NOT_HELD) or (seal == keys.UNSEALED and fit.seal):
+        return SignatureCheck(INVALID, "the signature's record is not sealed by the integrity "
+                                       "key (" + keys.SEAL_PROBLEMS[seal] + ")")
     if sig.fit_id != fit.id or sig.snapshot_sha256 != fit.snapshot_sha256:
         return SignatureCheck(INVALID, "it names a different snapshot than this fit's")
     if snapshot_sha256(fit) != sig.snapshot_sha256:
         return SignatureCheck(INVALID, "the fit's stored snapshot no longer matches what was "
                                        "signed")
+    if session is not None:
+        from app.workflow.replay import fit_disagreements
+
+        for found in fit_disagreements(session, fit):
+            if found.kind == "fit" or (found.kind == "signature" and found.object_id == sig.id):
+                return SignatureCheck(INVALID, "the audit trail disagrees: " + found.describe())
     if sig.meaning == APPROVE:
         versions = [v.version for v in fit.study.data_versions]
         if versions and max(versions) > fit.data_version.version:

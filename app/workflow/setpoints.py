@@ -27,8 +27,9 @@ from sqlalchemy.orm import Session, joinedload
 from app.analysis import AnalysisError
 from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError
 from app.analysis.optimize import propose as search_setpoint
-from app.store import audit
+from app.store import audit, keys
 from app.store.audit import canonical_json
+from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
 from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing
 from app.workflow.fits import results_of
@@ -251,6 +252,8 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
         snapshot_sha256="", state="draft", row_version=1, created_by_id=actor.id)
     proposal.snapshot_sha256 = hashlib.sha256(canonical_json(
         snapshot_document(proposal, fits)).encode()).hexdigest()
+    proposal.key_id, proposal.seal = sealing_ring(session).seal("setpoint",
+                                                                proposal.snapshot_sha256)
     session.add(proposal)
     session.flush()
     optimum = result["optimum"]
@@ -276,6 +279,10 @@ def signature_check(session: Session, proposal: SetpointProposal,
     """Valid while the manifest and the proposal's stored snapshot still hash as signed."""
     if manifest_sha256(sig) != sig.manifest_sha256:
         return SignatureCheck(INVALID, "the signature's own record was altered")
+    seal = keys.seal_state(session, "signature", sig.manifest_sha256, sig.key_id, sig.seal)
+    if seal in (keys.BROKEN, keys.KEY_NOT_HELD) or (seal == keys.UNSEALED and proposal.seal):
+        return SignatureCheck(INVALID, "the signature's record is not sealed by the integrity "
+                                       "key (" + keys.SEAL_PROBLEMS[seal] + ")")
     if sig.setpoint_id != proposal.id or sig.snapshot_sha256 != proposal.snapshot_sha256:
         return SignatureCheck(INVALID, "it names a different snapshot than this proposal's")
     if snapshot_sha256(session, proposal) != sig.snapshot_sha256:

@@ -43,6 +43,7 @@ from sqlalchemy.orm import Session
 from app.store import audit
 from app.store.audit import canonical_json
 from app.store.base import utcnow
+from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
 from app.workflow import Conflict, Forbidden, NotFound, WorkflowError, in_id_range
 from app.workflow.passwords import verify_password
@@ -388,6 +389,7 @@ def add_signature(session: Session, actor: User, *, meaning: str, comment: str,
                     printed_name=actor.full_name, signed_at=utcnow(), meaning=meaning,
                     comment=comment, snapshot_sha256=snapshot_sha256, manifest_sha256="")
     sig.manifest_sha256 = manifest_sha256(sig)
+    sig.key_id, sig.seal = sealing_ring(session).seal("signature", sig.manifest_sha256)
     session.add(sig)
     session.flush()
     return sig

@@ -1,5 +1,6 @@
-"""Dropping the triggers that guard signatures, fit and setpoint snapshots (migration 0005),
-the way someone with write access to the database could, so tests can tamper on purpose."""
+"""Dropping the triggers that guard signatures, fit and setpoint snapshots and confirmation
+runs (migrations 0005 and 0007), the way someone with write access to the database could, so
+tests can tamper on purpose."""
 
 from __future__ import annotations
 
@@ -11,6 +12,8 @@ TRIGGERS = {
     "fits": ("fits_snapshot_no_update", "fits_no_delete", "fits_no_truncate"),
     "setpoint_proposals": ("setpoint_proposals_snapshot_no_update",
                            "setpoint_proposals_no_delete", "setpoint_proposals_no_truncate"),
+    "confirmation_runs": ("confirmation_runs_no_update", "confirmation_runs_no_delete",
+                          "confirmation_runs_no_truncate"),
 }
 
 

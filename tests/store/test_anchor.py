@@ -11,7 +11,8 @@ import pytest
 from sqlalchemy import select, text
 
 from app.store import audit
-from app.store.anchor import ANCHOR_FILE, KEY_FILE, check_anchors, key_id
+from app.store.anchor import ANCHOR_FILE, check_anchors
+from app.store.keys import KEY_FILE, key_id
 from app.store.models import AuditEvent
 
 
@@ -109,7 +110,7 @@ def test_lines_under_another_key_are_not_checkable(app, db):
     report = _check(app, db, raw)
     assert report.ok and report.checked == 0
     assert report.notes() == [f"1 anchor line(s) made with key {json.loads(raw[0])['key_id']} "
-                              "cannot be checked with the current key"]
+                              "cannot be checked: that key is not held here"]
 
 
 def test_an_unwritable_anchor_file_never_fails_the_commit(app, db, caplog):

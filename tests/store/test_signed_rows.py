@@ -52,6 +52,8 @@ def test_signatures_cannot_change_or_go(db, rows, statement, key):
     ("UPDATE fits SET snapshot_sha256 = 'ab' WHERE id = :i", "fit"),
     ("UPDATE fits SET data_version_id = data_version_id + 1 WHERE id = :i", "draft"),
     ("UPDATE fits SET response = 'Gloss' WHERE id = :i", "fit"),
+    ("UPDATE fits SET seal = NULL WHERE id = :i", "fit"),
+    ("UPDATE fits SET key_id = 'other' WHERE id = :i", "draft"),
     ("UPDATE fits SET state = 'draft', results_json = '{}' WHERE id = :i", "fit"),
     ("DELETE FROM fits WHERE id = :i", "draft"),
     ("DELETE FROM fits WHERE id = :i", "fit"),

@@ -313,7 +313,8 @@ def test_confirmation_file_is_parsed_before_the_write_transaction(db, approved, 
     _, _, fit_id = approved
     pid = propose(db, [fit_id])
     release(db, pid)
-    other = Database(db.url, busy_timeout_ms=200)  # waits 0.2 s for the lock, not 15 s
+    # waits 0.2 s for the lock, not 15 s
+    other = Database(db.url, busy_timeout_ms=200, keys=db.keys)
     outcomes = []
     real_read = confirmations.read_upload
 

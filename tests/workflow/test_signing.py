@@ -278,7 +278,7 @@ def test_a_concurrent_writer_is_not_held_while_a_signing_password_is_checked(
         pytest.skip("SQLite's single writer is what a check inside the write would hold")
     fit_id = _submitted(db)
     # Another writer that waits at most 0.2 s for the lock instead of the usual 15 s.
-    other = Database(db.url, busy_timeout_ms=200)
+    other = Database(db.url, busy_timeout_ms=200, keys=db.keys)
     outcomes = []
     real_verify = signing.verify_password
 
