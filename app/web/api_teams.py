@@ -84,7 +84,10 @@ def list_members(study_id: int):
 @document("POST", "/studies/{study_id}/members", "Add an engineer to a study's team",
           request_schema="TeamMemberCreate", tags=("Studies",),
           responses={201: ("The new team member", ref("TeamMember")),
-                     409: ("The user is already on the team", ref("Error"))})
+                     409: ("The user is already on the team", ref("Error")),
+                     # werkzeug matches the method before the id's range: a study id above
+                     # 2**31 - 1 finds the GET rule of this path and answers 405, not 404.
+                     405: ("A study id above 2147483647 (no study has one)", ref("Error"))})
 def add_member(study_id: int):
     """Only the study's owner or an admin; the change and every refusal for want of that
     authority are recorded in the audit trail."""
