@@ -116,6 +116,31 @@ class Study(Base):
     )
 
 
+STUDY_MEMBER_ROLES = ("engineer",)
+
+
+class StudyMember(Base):
+    """An engineer on a study's team besides its owner (the owner is always a member).
+
+    Added and removed by the owner or an admin (app.workflow.teams), each change audited.
+    ``role`` is "engineer" for now; the column is kept for roles a team may gain later."""
+
+    __tablename__ = "study_members"
+    __table_args__ = (UniqueConstraint("study_id", "user_id"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    user_id: Mapped[int] = mapped_column(ForeignKey("users.id"), index=True)
+    role: Mapped[str] = mapped_column(String(16), default="engineer",
+                                      server_default="engineer")
+    added_by_id: Mapped[int | None] = mapped_column(ForeignKey("users.id"))
+    added_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    study: Mapped[Study] = relationship()
+    user: Mapped[User] = relationship(foreign_keys=[user_id])
+    added_by: Mapped[User | None] = relationship(foreign_keys=[added_by_id])
+
+
 class DataVersion(Base):
     """An immutable upload: original bytes and the canonical table, each with its SHA-256."""
 

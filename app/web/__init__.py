@@ -62,6 +62,7 @@ def register(app: Flask) -> None:
         api,
         api_reviews,
         api_setpoints,
+        api_teams,
         auth,
         data,
         fits,
@@ -80,7 +81,7 @@ def register(app: Flask) -> None:
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
-                   setpoints, api_setpoints):
+                   setpoints, api_setpoints, api_teams):
         app.register_blueprint(module.bp)
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")

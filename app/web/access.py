@@ -12,8 +12,8 @@ from sqlalchemy import update
 
 from app.store.base import utcnow
 from app.store.db import WRITE_METHODS, database, get_session
-from app.store.models import UserSession
-from app.workflow import accounts
+from app.store.models import User, UserSession
+from app.workflow import NotFound, accounts, teams
 
 F = TypeVar("F", bound=Callable)
 PUBLIC = "public"
@@ -150,6 +150,35 @@ def enforce_access():
             _deny(401, NOT_SIGNED_IN)
         return redirect(url_for("auth.login", next=request.full_path.rstrip("?")))
     if SIGNED_IN in roles or g.user.has_role(*roles):
+        check_team()
         return None
     _deny(403, "Your roles do not allow this. Needed: " + ", ".join(sorted(roles)) + ".")
     return None
+
+
+def check_team() -> None:
+    """Every study, fit, data version or setpoint proposal named in the address must be one
+    the user may read (app.workflow.teams), or the route answers 404 as for a missing row,
+    before the view runs. A refused write under an existing study is audited."""
+    args = request.view_args or {}
+    named = [(kind, args[kind]) for kind in teams.LOOKUPS if kind in args]
+    if not named:
+        return
+    if request.method not in WRITE_METHODS:
+        for kind, object_id in named:
+            teams.LOOKUPS[kind](get_session(), g.user, object_id)
+        return
+    # A write: not the request's session, which would take the write lock now.
+    db = database()
+    with db.session(write=False) as s:
+        try:
+            for kind, object_id in named:
+                teams.LOOKUPS[kind](s, g.user, object_id)
+            return
+        except NotFound as exc:
+            refused, study_id = exc, teams.study_id_of(s, kind, object_id)
+    if study_id is not None:
+        with db.transaction() as s:
+            teams.record_refusal(s, s.get(User, g.user.id), study_id,
+                                 request.endpoint or request.path, refused)
+    raise refused

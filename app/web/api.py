@@ -12,7 +12,7 @@ from __future__ import annotations
 import json
 from typing import Any
 
-from flask import Blueprint, current_app, jsonify, request, url_for
+from flask import Blueprint, current_app, g, jsonify, request, url_for
 from werkzeug.exceptions import RequestEntityTooLarge
 
 from app.analysis.boxcox import LAMBDA_RANGE
@@ -23,7 +23,7 @@ from app.store.models import DataVersion, Fit, Study, User
 from app.web.access import SIGNED_IN, allow
 from app.web.common import me, read_session, tx
 from app.web.openapi import build_document, check, document, json_body, ref, schema
-from app.workflow import WorkflowError, fits, reviews, studies, uploads
+from app.workflow import WorkflowError, fits, reviews, studies, teams, uploads
 
 bp = Blueprint("api", __name__, url_prefix="/api/v1")
 
@@ -232,12 +232,15 @@ def create_study():
 
 @bp.route("/studies")
 @allow(SIGNED_IN)
-@document("GET", "/studies", "List studies, newest first", tags=("Studies",),
+@document("GET", "/studies", "List the studies you may read, newest first", tags=("Studies",),
           responses={200: ("The studies", {"type": "object", "required": ["studies"],
                                            "properties": {"studies": {"type": "array",
                                                                       "items": ref("Study")}}})})
 def list_studies():
-    return jsonify({"studies": [_study(s) for s in studies.list_studies(get_session())]})
+    """Only the studies the caller may read: engineers see the studies whose team they are on;
+    approvers, auditors and admins see every study."""
+    readable = teams.readable_studies(get_session(), g.user)
+    return jsonify({"studies": [_study(s) for s in readable]})
 
 
 @bp.route("/studies/<int:study_id>")

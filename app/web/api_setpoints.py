@@ -17,7 +17,7 @@ from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, read_session, tx
 from app.web.openapi import ID, Media, document, id_parameter, json_body, ref, schema
-from app.workflow import WorkflowError, fits, setpoint_export, setpoints, signing
+from app.workflow import WorkflowError, setpoint_export, setpoints, signing, teams
 
 bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
 
@@ -105,7 +105,7 @@ def create():
     with the highest composite desirability; bounds and fixed values are in actual units."""
     body = json_body("SetpointCreate")
     with tx() as s:
-        chosen = [fits.get_fit(s, i) for i in body["fits"]]
+        chosen = [teams.fit_for(s, g.user, i) for i in body["fits"]]
         proposal = setpoints.propose(s, me(s), chosen, body["goals"], body.get("bounds"),
                                      body.get("fixed"))
         proposal_id = proposal.id

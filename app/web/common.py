@@ -111,3 +111,20 @@ def me(session: Session):
     from app.store.models import User
 
     return session.get(User, g.user.id)
+
+
+def team_step(study_id: int, doing: str, act):
+    """Run ``act(session)`` in one transaction; a refusal for want of authority on the study
+    (not its owner, not on its team, not an admin) is audited in a transaction of its own and
+    raised again (app.workflow.teams.record_refusal)."""
+    from app.workflow import Forbidden, teams
+
+    try:
+        with tx() as s:
+            return act(s)
+    except (Forbidden, NotFound) as exc:
+        if isinstance(exc, Forbidden) or exc.field == "study":
+            get_session().rollback()
+            with tx() as s:
+                teams.record_refusal(s, me(s), study_id, doing, exc)
+        raise

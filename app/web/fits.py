@@ -11,6 +11,7 @@ from typing import Any
 from flask import (
     Blueprint,
     abort,
+    g,
     jsonify,
     redirect,
     render_template,
@@ -29,7 +30,7 @@ from app.store.models import Fit
 from app.web import charts, pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, id_field, me, read_session, tx
-from app.workflow import WorkflowError, fits, reviews, uploads
+from app.workflow import WorkflowError, fits, reviews, teams, uploads
 
 bp = Blueprint("fits", __name__)
 
@@ -109,7 +110,7 @@ def builder(version_id: int):
     form = dict(DEFAULT_FORM)
     start = id_field(request.args, "from", "fit")
     if start is not None:
-        source = fits.get_fit(session, start)
+        source = teams.fit_for(session, g.user, start)
         if source.data_version_id == version.id:
             form = _form_from_fit(source)
     return render_template("fits/builder.html", **_builder_context(version, form))
@@ -327,7 +328,7 @@ def compare():
         abort(400, description="Choose two fits to compare (query fields 'a' and 'b' are fit "
                                "numbers).")
     session = get_session()
-    fit_a, fit_b = fits.get_fit(session, a), fits.get_fit(session, b)
+    fit_a, fit_b = teams.fit_for(session, g.user, a), teams.fit_for(session, g.user, b)
     others = list(session.scalars(select(Fit).where(Fit.study_id == fit_a.study_id)
                                   .order_by(Fit.id)))
     return render_template("fits/compare.html", fit_a=fit_a, fit_b=fit_b,

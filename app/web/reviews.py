@@ -11,7 +11,7 @@ from app.store import audit
 from app.store.db import get_session
 from app.web.access import allow
 from app.web.common import me, read_session, tx
-from app.workflow import WorkflowError, fits, reviews, signing
+from app.workflow import WorkflowError, fits, reviews, signing, teams
 from app.workflow.compare import differences
 from app.workflow.history import events_of_fit
 
@@ -98,6 +98,8 @@ def review_context(session, fit) -> dict:
         "exclusions": json.loads(fit.spec_json).get("exclusions", []),
         "thresholds": json.loads(fit.thresholds_json),
         "events": events_of_fit(session, fit),
+        "threshold_changes": teams.threshold_changes_after(session, fit.study_id,
+                                                           fit.submitted_at),
         "previous": previous,
         "diff": None if previous is None else differences(previous, fit),
         "meanings": list(reviews.SIGN_MEANINGS),

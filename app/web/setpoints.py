@@ -33,6 +33,7 @@ from app.workflow import (
     setpoints,
     signing,
     studies,
+    teams,
 )
 
 bp = Blueprint("setpoints", __name__)
@@ -131,7 +132,7 @@ def new(study_id: int):
         parsed = parse_proposal_form(request.form, factors)
         with tx() as s:
             studies.get_study(s, study_id)
-            chosen = [fits.get_fit(s, i) for i in parsed["fit_ids"]]
+            chosen = [teams.fit_for(s, g.user, i) for i in parsed["fit_ids"]]
             if any(f.study_id != study_id for f in chosen):
                 raise WorkflowError("Every fit must belong to this study.", field="fit")
             by_fit = {f.id: f.response for f in chosen}

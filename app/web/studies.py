@@ -1,8 +1,8 @@
-"""Studies: list, create, view, thresholds."""
+"""Studies: list, create, view, thresholds, the team."""
 
 from __future__ import annotations
 
-from flask import Blueprint, flash, redirect, render_template, request, url_for
+from flask import Blueprint, flash, g, redirect, render_template, request, url_for
 from sqlalchemy import select
 from sqlalchemy.orm import joinedload, selectinload
 
@@ -10,16 +10,23 @@ from app.store.db import get_session
 from app.store.models import DataVersion, Fit, Study
 from app.web import pagecache
 from app.web.access import SIGNED_IN, allow
-from app.web.common import float_field, me, tx
-from app.workflow import WorkflowError, studies
+from app.web.common import float_field, me, team_step, tx
+from app.workflow import WorkflowError, studies, teams
 
 bp = Blueprint("studies", __name__, url_prefix="/studies")
+
+
+@bp.app_template_global("may_act")
+def may_act(study: Study) -> bool:
+    """Whether the viewer may do an engineer's work in ``study`` (app.workflow.teams)."""
+    return g.user is not None and teams.can_act(get_session(), g.user, study)
 
 
 @bp.route("/")
 @allow(SIGNED_IN)
 def index():
-    return render_template("studies/index.html", studies=studies.list_studies(get_session()))
+    return render_template("studies/index.html",
+                           studies=teams.readable_studies(get_session(), g.user))
 
 
 @bp.route("/new", methods=["GET", "POST"])
@@ -53,28 +60,70 @@ def _render_view(study_id: int) -> str:
     study = session.scalar(select(Study).where(Study.id == study_id).options(
         joinedload(Study.owner),
         selectinload(Study.data_versions).joinedload(DataVersion.created_by)))
-    if study is None:
-        studies.get_study(session, study_id)  # raises the plain 404
+    if study is None or not teams.can_read(session, g.user, study):
+        teams.study_for(session, g.user, study_id)  # raises the plain 404
     fits = list(session.scalars(select(Fit).where(Fit.study_id == study.id)
                                 .options(joinedload(Fit.created_by),
                                          joinedload(Fit.data_version))
                                 .order_by(Fit.created_at.desc())))
-    return render_template("studies/view.html", study=study, fits=fits)
+    return render_template("studies/view.html", study=study, fits=fits,
+                           team=teams.team(session, study),
+                           may_manage=teams.can_manage(g.user, study),
+                           may_set_thresholds=teams.can_set_thresholds(g.user, study),
+                           team_rules=teams.TEAM_RULES)
 
 
 @bp.route("/<int:study_id>/thresholds", methods=["POST"])
 @allow("engineer")
 def thresholds(study_id: int):
     form = request.form
+
+    def act(s):
+        studies.set_thresholds(
+            s, me(s), teams.study_for(s, me(s), study_id),
+            review_below=float_field(form, "review_below", "Review below"),
+            fail_below=float_field(form, "fail_below", "Fail below"),
+            reason=form.get("reason", ""))
+
     try:
-        with tx() as s:
-            study = studies.get_study(s, study_id)
-            studies.set_thresholds(
-                s, me(s), study,
-                review_below=float_field(form, "review_below", "Review below"),
-                fail_below=float_field(form, "fail_below", "Fail below"),
-                reason=form.get("reason", ""))
+        team_step(study_id, "change thresholds", act)
         flash("Thresholds changed. Fits made from now on use them.")
     except WorkflowError as exc:
+        if exc.status == 404:
+            raise
         flash(exc.message, "error")
     return redirect(url_for("studies.view", study_id=study_id))
+
+
+@bp.route("/<int:study_id>/members", methods=["POST"])
+@allow("engineer", "admin")
+def add_member(study_id: int):
+    username = request.form.get("username", "")
+
+    def act(s):
+        teams.add_member(s, me(s), teams.study_for(s, me(s), study_id), username)
+
+    try:
+        team_step(study_id, "add a team member", act)
+        flash(f"{username.strip()} added to the team.")
+    except WorkflowError as exc:
+        if exc.status == 404 and exc.field != "username":
+            raise
+        flash(exc.message, "error")
+    return redirect(url_for("studies.view", study_id=study_id) + "#team")
+
+
+@bp.route("/<int:study_id>/members/<username>/remove", methods=["POST"])
+@allow("engineer", "admin")
+def remove_member(study_id: int, username: str):
+    def act(s):
+        teams.remove_member(s, me(s), teams.study_for(s, me(s), study_id), username)
+
+    try:
+        team_step(study_id, "remove a team member", act)
+        flash(f"{username} taken off the team.")
+    except WorkflowError as exc:
+        if exc.status == 404 and exc.field != "username":
+            raise
+        flash(exc.message, "error")
+    return redirect(url_for("studies.view", study_id=study_id) + "#team")

@@ -21,7 +21,7 @@ from app.store import audit
 from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import ConfirmationRun, SetpointProposal, User
-from app.workflow import Conflict, WorkflowError
+from app.workflow import Conflict, WorkflowError, teams
 from app.workflow.reviews import VALID, require_role
 from app.workflow.setpoints import (
     _check_current,
@@ -104,6 +104,7 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     columns or cells do not fit the proposal.
     """
     require_role(actor, "engineer", "record confirmation runs")
+    teams.require_act(session, actor, proposal.study, "record confirmation runs in it")
     if proposal.state != "released":
         raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}: confirmation runs "
                        "are recorded only at released setpoints.", field="state")

@@ -15,7 +15,7 @@ from app.store import audit
 from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import DataVersion, Fit, Signature, User
-from app.workflow import NotFound, WorkflowError, in_id_range
+from app.workflow import NotFound, WorkflowError, in_id_range, teams
 from app.workflow.uploads import design_table
 
 
@@ -131,7 +131,9 @@ def plan_fit(version: DataVersion, **choices: Any) -> tuple[FitSpec, dict[str, A
 def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpec,
                results: dict[str, Any] | None = None) -> Fit:
     """Store the snapshot with its hash; one audit event. ``results`` from :func:`plan_fit`
-    (computed outside the transaction) or, when None, computed here."""
+    (computed outside the transaction) or, when None, computed here. Only an engineer on the
+    study's team may (app.workflow.teams)."""
+    teams.require_act(session, actor, version.study, "fit a model in it")
     if results is None:
         results = run_analysis(version, spec)
     fit = Fit(study_id=version.study_id, data_version_id=version.id, data_version=version,

@@ -24,7 +24,7 @@ from sqlalchemy.orm import Session, object_session
 from app.store import audit, keys
 from app.store.base import utcnow
 from app.store.models import DataVersion, Fit, Signature, Study, User
-from app.workflow import Conflict, WorkflowError, signing
+from app.workflow import Conflict, WorkflowError, signing, teams
 from app.workflow.fits import snapshot_sha256
 from app.workflow.signing import (
     INVALID,
@@ -106,6 +106,7 @@ def submit(session: Session, actor: User, fit: Fit,
            expected_row_version: int | None = None) -> Fit:
     """Submit a draft fit for review (draft → submitted); the snapshot is frozen from here on."""
     require_role(actor, "engineer", "submit a fit for review")
+    teams.require_act(session, actor, fit.study, "submit its fits")
     version = _expect(fit, "draft", expected_row_version, "be submitted")
     _check_current(session, fit, "submitted")
     _move(session, fit, from_state="draft", to_state="submitted", row_version=version,

@@ -31,7 +31,7 @@ from app.store import audit, keys
 from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
-from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing
+from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing, teams
 from app.workflow.fits import results_of
 from app.workflow.reviews import APPROVE, check_signature
 from app.workflow.signing import (
@@ -229,6 +229,8 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
     leaves the design region, WorkflowError naming the field for other bad input.
     """
     require_role(actor, "engineer", "propose setpoints")
+    for study in {f.study_id: f.study for f in fits}.values():
+        teams.require_act(session, actor, study, "propose setpoints in it")
     _check_fit_set(fits)
     _guard(fits)
     responses = [f.response for f in fits]

@@ -7,7 +7,7 @@ from sqlalchemy.orm import Session
 
 from app.store import audit
 from app.store.models import Study, User
-from app.workflow import NotFound, WorkflowError, in_id_range
+from app.workflow import NotFound, WorkflowError, in_id_range, teams
 
 
 def _clean(value: str | None, field: str, *, required: bool, limit: int) -> str:
@@ -58,6 +58,8 @@ def list_studies(session: Session) -> list[Study]:
 
 def set_thresholds(session: Session, actor: User, study: Study, *, review_below: float,
                    fail_below: float, reason: str) -> Study:
+    """Only the study's owner changes its thresholds (app.workflow.teams), with a reason."""
+    teams.require_owner(session, actor, study, "change its thresholds")
     check_thresholds(review_below, fail_below)
     if not (reason or "").strip():
         raise WorkflowError("Changing thresholds needs a reason.", field="reason")

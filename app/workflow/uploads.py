@@ -11,7 +11,7 @@ from sqlalchemy.orm import Session
 from app.ingest import ColumnRole, DesignTable, RawTable, load_canonical, read_upload, validate
 from app.store import audit
 from app.store.models import DataVersion, Study, User
-from app.workflow import NotFound, WorkflowError, in_id_range
+from app.workflow import NotFound, WorkflowError, in_id_range, teams
 
 
 def sha256_bytes(data: bytes) -> str:
@@ -28,7 +28,9 @@ def parse_upload(data: bytes, filename: str, roles: dict[str, ColumnRole], *,
 
 def add_data_version(session: Session, actor: User, study: Study, *, data: bytes, filename: str,
                      raw: RawTable, table: DesignTable, reason: str | None = None) -> DataVersion:
-    """Store a validated upload as the study's next data version, with its audit event."""
+    """Store a validated upload as the study's next data version, with its audit event.
+    Only an engineer on the study's team may (app.workflow.teams)."""
+    teams.require_act(session, actor, study, "upload data to it")
     latest = session.scalar(select(func.max(DataVersion.version))
                             .where(DataVersion.study_id == study.id)) or 0
     reason = (reason or "").strip() or None

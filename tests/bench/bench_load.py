@@ -52,7 +52,7 @@ from sqlalchemy import select
 from app import create_app
 from app.store.db import database
 from app.store.models import DataVersion, User
-from app.workflow import accounts, fits, studies
+from app.workflow import accounts, fits, studies, teams
 from app.analysis import Thresholds
 from app.demo import load_demo
 app = create_app()
@@ -61,6 +61,7 @@ with database(app).transaction() as s:
     u = accounts.create_user(s, None, username="bench", full_name="Bench User",
                              roles="engineer", password={PASSWORD!r})
     v = s.scalar(select(DataVersion).order_by(DataVersion.id))
+    teams.add_member(s, v.study.owner, v.study, "bench")  # the demo engineer's study
     spec = fits.build_spec(v, response="Hardness", model="quadratic", thresholds=Thresholds())
     f = fits.create_fit(s, u, v, spec)
     print(v.study_id, f.id)

@@ -115,11 +115,11 @@ def test_exports_neutralise_formula_cells_and_carry_the_chain_head(db, actions, 
         accounts.create_user(s, None, username="mal", full_name="-Mallory Minus",
                              roles="engineer", password=PASSWORD)
         study = studies.create_study(s, h.user(s, "mal"), title="=HYPERLINK(\"x\")")
-        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.1, fail_below=0.02,
+        studies.set_thresholds(s, h.user(s, "mal"), study, review_below=0.1, fail_below=0.02,
                                reason="=cmd|' /C calc'!A0")
-        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.05, fail_below=0.01,
+        studies.set_thresholds(s, h.user(s, "mal"), study, review_below=0.05, fail_below=0.01,
                                reason="+44 line supervisor asked")
-        studies.set_thresholds(s, h.user(s, "erin"), study, review_below=0.06, fail_below=0.01,
+        studies.set_thresholds(s, h.user(s, "mal"), study, review_below=0.06, fail_below=0.01,
                                reason="@SUM(A1:A9)")
         study_id = study.id
     _auditor(actions)

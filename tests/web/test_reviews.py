@@ -126,6 +126,7 @@ def test_api_refuses_own_fit_with_403(db, client, users):
         accounts.create_user(s, None, username="bo", full_name="Bo Both",
                              roles="engineer,approver", password=PASSWORD)
     study_id = h.make_study(db)
+    h.join(db, study_id, "bo")
     fit_id = h.make_fit(db, h.add_version(db, study_id), author="bo", model="linear")
     h.submit(db, fit_id)
     token = _token(db, "bo")

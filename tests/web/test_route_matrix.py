@@ -117,3 +117,101 @@ def test_role_route_matrix(app, users, who):
         if status >= 500:
             failures.append(f"{method} {url}: {who} got {status}")
     assert not failures, "\n".join(failures)
+
+
+# ---- the membership dimension --------------------------------------------------------------
+# Every route that names a study, fit, data version or setpoint proposal (in its address, or
+# in the query or body for the few listed below) is tried on one real study of erin's by an
+# engineer on its team (mia) and one who is not (nina). The outsider gets 404 wherever the
+# engineer role would pass (the same answer as for a missing row) and the role's 403 elsewhere;
+# the member is never refused for the study's sake.
+SCOPED_ARGS = ("study_id", "fit_id", "version_id", "proposal_id")
+# Ids carried outside the address: the query string, or the JSON body.
+QUERY_IDS = {"fits.compare": "?a={fit_id}&b={fit_id}"}
+JSON_IDS = {"api_setpoints.create": lambda ids: {"fits": [ids["fit_id"]],
+                                                 "goals": {"Hardness": {"goal": "maximize"}}},
+            "api_teams.add_member": lambda ids: {"username": "nina"}}
+# Refused to a member who is not the owner (nor an admin): team changes and thresholds. A page
+# answers with the study page and the refusal (302), the API with 403.
+OWNER_ONLY = {"studies.thresholds", "studies.add_member", "studies.remove_member",
+              "api_teams.add_member", "api_teams.remove_member"}
+# A 404 about something else than the study: a staged upload's token that does not exist.
+OTHER_404 = {"data.preview", "data.confirm"}
+
+
+@pytest.fixture
+def erins_study(db, users):
+    from app.workflow import accounts, fits, setpoints
+    from tests.conftest import PASSWORD
+    from tests.workflow import helpers as h
+
+    with db.transaction() as s:
+        for username in ("mia", "nina"):
+            accounts.create_user(s, None, username=username, full_name=username.title(),
+                                 roles="engineer", password=PASSWORD)
+    study_id, version_id, fit_id = h.approved_fit(db)
+    h.join(db, study_id, "mia")
+    with db.transaction() as s:
+        proposal_id = setpoints.propose(s, h.user(s, "erin"), [fits.get_fit(s, fit_id)],
+                                        {"Hardness": {"goal": "maximize"}}, None, None).id
+    return {"study_id": study_id, "version_id": version_id, "fit_id": fit_id,
+            "proposal_id": proposal_id}
+
+
+def _scoped(app):
+    for rule, method in _rules(app):
+        if (set(SCOPED_ARGS) & set(rule.arguments) or rule.endpoint in QUERY_IDS
+                or rule.endpoint in JSON_IDS):
+            yield rule, method
+
+
+def _real_url(rule, ids) -> str:
+    url = re.sub(r"<(?:[^:>]+:)?([^>]+)>",
+                 lambda m: str(ids.get(m.group(1), "nobody-xyz")), rule.rule)
+    return url + QUERY_IDS.get(rule.endpoint, "").format(**ids)
+
+
+def test_every_scoped_route_is_in_the_membership_matrix(app):
+    endpoints = {rule.endpoint for rule, _ in _scoped(app)}
+    # A sample of what must be there: pages, downloads, API reads and writes, team routes.
+    assert {"studies.view", "data.original", "fits.charts_json", "fits.compare",
+            "reviews.review", "history.package", "setpoints.export_csv", "api.get_study",
+            "api.upload_data", "api_reviews.submit", "api_setpoints.create",
+            "api_teams.list_members", "studies.thresholds"} <= endpoints
+
+
+@pytest.mark.parametrize("who", ("nina", "mia"))
+def test_membership_route_matrix(app, erins_study, who):
+    client = app.test_client()
+    actions = Actions(client)
+    assert actions.login(who).status_code == 302
+    token = actions.csrf()
+    failures, tried = [], 0
+    for rule, method in _scoped(app):
+        if rule.endpoint == "auth.logout":
+            continue
+        url = _real_url(rule, erins_study)
+        headers = {"X-CSRF-Token": token}
+        if rule.endpoint in JSON_IDS:
+            response = client.open(url, method=method, headers=headers,
+                                   json=JSON_IDS[rule.endpoint](erins_study))
+        else:
+            response = client.open(url, method=method, headers=headers,
+                                   data={"csrf_token": token})
+        status, tried = response.status_code, tried + 1
+        engineer_may = _allowed(POLICY[rule.endpoint], "engineer")
+        if status >= 500:
+            failures.append(f"{method} {url}: {who} got {status}")
+        elif not engineer_may:
+            if status != 403:
+                failures.append(f"{method} {url}: the engineer role is refused, got {status}")
+        elif who == "nina":
+            if status != 404:
+                failures.append(f"{method} {url}: an outsider should get 404, got {status}")
+        elif rule.endpoint in OWNER_ONLY:
+            if status not in (302, 403):
+                failures.append(f"{method} {url}: only the owner may, got {status}")
+        elif status == 403 or (status == 404 and rule.endpoint not in OTHER_404):
+            failures.append(f"{method} {url}: a member should pass, got {status}")
+    assert tried > 40
+    assert not failures, "\n".join(failures)

@@ -197,6 +197,7 @@ def both_roles(db, users):
 
 @pytest.mark.parametrize("via", ["web", "api"])
 def test_author_cannot_release_own_proposal(db, approved, both_roles, client, actions, via):
+    h.join(db, approved[0], "bea")
     pid = _draft_proposal(db, approved[2], who="bea")
     if via == "web":
         actions.login("bea")

@@ -113,7 +113,9 @@ def test_self_approval_on_the_page_is_403_audited_and_the_rules_are_shown(db, ac
     with db.transaction() as s:
         accounts.create_user(s, None, username="una", full_name="Una Both",
                              roles="engineer,approver", password=PASSWORD)
-    fit = h.make_fit(db, h.add_version(db, h.make_study(db), who="una"), model="linear")
+    study_id = h.make_study(db)
+    h.join(db, study_id, "una")
+    fit = h.make_fit(db, h.add_version(db, study_id, who="una"), model="linear")
     h.submit(db, fit)
     actions.login("una")
     page = actions.client.get(f"/fits/{fit}/review").get_data(as_text=True)

@@ -8,7 +8,7 @@ from app.analysis import Thresholds
 from app.demo_data import rsm_study
 from app.ingest import read_upload, validate
 from app.store.models import User
-from app.workflow import fits, reviews, signing, studies, uploads
+from app.workflow import fits, reviews, signing, studies, teams, uploads
 from tests.conftest import PASSWORD
 
 
@@ -82,3 +82,11 @@ def approved_fit(db, *, model: str = "quadratic") -> tuple[int, int, int]:
     submit(db, fit_id)
     sign(db, fit_id)
     return study_id, version_id, fit_id
+
+
+def join(db, study_id: int, username: str, by: str | None = None) -> None:
+    """Put ``username`` on the study's team (added by its owner unless ``by`` is given)."""
+    with db.transaction() as s:
+        study = studies.get_study(s, study_id)
+        actor = user(s, by) if by else study.owner
+        teams.add_member(s, actor, study, username)

@@ -192,10 +192,11 @@ def test_release_signs_the_proposal_snapshot(db, approved):
 
 
 def test_own_proposal_cannot_be_released_by_its_author(db, approved):
-    _, _, fit_id = approved
+    study_id, _, fit_id = approved
     with db.transaction() as s:
         accounts.create_user(s, None, username="bea", full_name="Bea Both",
                              roles="engineer,approver", password=PASSWORD)
+    h.join(db, study_id, "bea")
     pid = propose(db, [fit_id], who="bea")
     with pytest.raises(Forbidden, match="someone else must release"):
         release(db, pid, who="bea")

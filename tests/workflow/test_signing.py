@@ -45,6 +45,8 @@ def _counter(db, username):
 
 def _submitted(db, *, uploader="erin", author="erin", submitter="erin"):
     study_id = h.make_study(db)
+    for engineer in {uploader, author, submitter} - {"erin"}:
+        h.join(db, study_id, engineer)  # a second engineer on erin's team
     fit_id = h.make_fit(db, h.add_version(db, study_id, who=uploader), author=author,
                         model="linear")
     h.submit(db, fit_id, who=submitter)
@@ -102,7 +104,8 @@ def test_releasing_setpoints_from_your_own_fit_is_refused_and_audited(db, users)
 
 def test_releasing_your_own_proposal_is_refused_and_audited(db, users):
     _add_user(db, "bea", "engineer,approver")
-    _study, _version, fit_id = h.approved_fit(db)
+    study_id, _version, fit_id = h.approved_fit(db)
+    h.join(db, study_id, "bea")
     pid = _propose(db, fit_id, who="bea")
     with pytest.raises(signing.DutiesConflict, match="You proposed these setpoints"):
         _release(db, pid, who="bea")

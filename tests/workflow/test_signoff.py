@@ -91,6 +91,7 @@ def test_unknown_meaning_is_refused_naming_the_field(db, draft):
 def test_author_never_approves_own_fit(db, users):
     _add_user(db, "bo", "engineer,approver")
     study_id = h.make_study(db)
+    h.join(db, study_id, "bo")
     fit_id = h.make_fit(db, h.add_version(db, study_id), author="bo")
     h.submit(db, fit_id)  # submitted by erin, made by bo
     with pytest.raises(Forbidden, match="made or submitted") as info:
@@ -101,6 +102,7 @@ def test_author_never_approves_own_fit(db, users):
 
 def test_submitter_never_approves_the_fit_they_submitted(db, draft):
     _add_user(db, "sam", "engineer,approver")
+    h.join(db, 1, "sam")  # the draft's study, made by erin
     h.submit(db, draft, who="sam")
     with pytest.raises(Forbidden):
         h.sign(db, draft, who="sam")
