@@ -12,7 +12,7 @@ other signed rows: no UPDATE, no DELETE (nor TRUNCATE on PostgreSQL). Columns ar
 plain ALTER TABLE (no table rebuild), so the triggers of 0001 and 0005 stay in place on SQLite.
 
 Revision ID: 0007
-Revises: 0005
+Revises: 0006
 Create Date: 2026-12-02
 """
 import sqlalchemy as sa
@@ -20,7 +20,7 @@ from alembic import op
 
 
 revision = '0007'
-down_revision = '0005'
+down_revision = '0006'
 branch_labels = None
 depends_on = None
 
