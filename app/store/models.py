@@ -271,7 +271,7 @@ class ChainHead(Base):
     hash: Mapped[str] = mapped_column(String(64))
 
 
-SETPOINT_STATES = ("draft", "released", "withdrawn")
+SETPOINT_STATES = ("draft", "released", "failed", "confirmed", "returned", "withdrawn")
 
 
 class SetpointProposal(Base):

@@ -83,5 +83,8 @@ def register(app: Flask) -> None:
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
                    setpoints, api_setpoints, api_teams):
         app.register_blueprint(module.bp)
+    from app.analysis.rounding import round_to
+
+    app.jinja_env.filters["round_to"] = round_to
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")

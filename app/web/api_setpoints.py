@@ -1,4 +1,5 @@
-"""Setpoints through the JSON API: propose from approved fits, read, release (signed), export.
+"""Setpoints through the JSON API: propose from approved fits, read, sign (release for
+confirmation, confirm for production, return, withdraw), confirmation runs, export.
 
 Errors are JSON ``{error, status, field}``: 409 when a fit is not approved, its approval is
 superseded, withdrawn, no longer applies or its signature is invalid, or when the request
@@ -11,13 +12,22 @@ from __future__ import annotations
 import json
 
 from flask import Blueprint, current_app, g, jsonify, request, url_for
+from werkzeug.exceptions import RequestEntityTooLarge
 
 from app.analysis.optimize import CAUTION
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, read_session, tx
 from app.web.openapi import ID, Media, document, id_parameter, json_body, ref, schema
-from app.workflow import WorkflowError, setpoint_export, setpoints, signing, teams
+from app.workflow import (
+    WorkflowError,
+    confirmations,
+    setpoint_export,
+    setpoint_signoff,
+    setpoints,
+    signing,
+    teams,
+)
 
 bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
 
@@ -53,15 +63,35 @@ schema("SetpointCreate", {
     },
     "examples": [{"fits": [1], "goals": {"Hardness": {"goal": "maximize"}}}],
 })
-schema("SetpointRelease", {
+schema("SetpointSignature", {
     "type": "object", "additionalProperties": False, "required": ["meaning", "password"],
     "properties": {
-        "meaning": {"type": "string", "enum": list(setpoints.RELEASE_MEANINGS)},
+        "meaning": {"type": "string", "enum": list(setpoint_signoff.MEANINGS),
+                    "description": "Selects the transition: 'released for confirmation' "
+                                   "(from proposed), 'confirmed for production' (from "
+                                   "released, after confirmation runs passed), 'returned' "
+                                   "(from proposed, with a comment), 'withdrawn' (from "
+                                   "released, confirmation failed or confirmed, with a "
+                                   "comment)"},
         "password": {"type": "string", "minLength": 1,
                      "description": "The signer's password, entered again to sign"},
-        "comment": {"type": "string"},
+        "comment": {"type": "string",
+                    "description": "Required (the reasons) to return or withdraw"},
+        "tolerance": {"type": "object", "additionalProperties": {"type": "number",
+                                                                 "minimum": 0},
+                      "description": "Release only: factor to the largest deviation (natural "
+                                     "units) a confirmation run's setting may have from the "
+                                     "released one; 2 % of the studied range when omitted"},
         "row_version": {"type": "integer", "minimum": 1,
                         "description": "The version you looked at; 409 if it moved"},
+    },
+})
+schema("ConfirmationUpload", {
+    "type": "object", "required": ["file"],
+    "properties": {
+        "file": {"type": "string", "contentMediaType": "application/octet-stream",
+                 "description": "CSV or XLSX: one row per confirmation run, a column per "
+                                "response, and a column per factor with the settings run"},
     },
 })
 schema("SetpointSheet", {
@@ -71,7 +101,10 @@ schema("SetpointSheet", {
     "properties": {
         "caution": {"type": "string", "const": CAUTION},
         "setpoint_id": {"type": "integer"}, "study_id": {"type": "integer"},
-        "state": {"type": "string", "enum": ["draft", "released", "withdrawn"]},
+        "state": {"type": "string", "enum": list(setpoint_signoff.STATE_LABELS)},
+        "state_label": {"type": "string", "enum": list(setpoint_signoff.STATE_LABELS.values())},
+        "for_production": {"type": "boolean",
+                           "description": "True only when confirmed for production"},
         "snapshot_sha256": {"type": "string", "pattern": "^[0-9a-f]{64}$"},
         "snapshot_intact": {"type": "boolean"},
         "fits": {"type": "array", "items": {"type": "object"}},
@@ -126,27 +159,79 @@ def get(proposal_id: int):
 
 @bp.route("/setpoints/<int:proposal_id>/signatures", methods=["POST"])
 @allow("approver")
-@document("POST", "/setpoints/{proposal_id}/signatures", "Release setpoints (signed)",
-          request_schema="SetpointRelease", tags=("Setpoints",),
-          responses={201: ("The release signature", {"type": "object"}),
-                     409: ("Not a draft, changed meanwhile, or " + GUARDS[0].lower() + GUARDS[1:],
-                           ref("Error"))})
+@document("POST", "/setpoints/{proposal_id}/signatures",
+          "Sign the setpoint sheet: release for confirmation, confirm for production, return "
+          "or withdraw", request_schema="SetpointSignature", tags=("Setpoints",),
+          responses={201: ("The signature", {"type": "object"}),
+                     409: ("Not in a state the meaning starts from, changed meanwhile, "
+                           "confirmation runs missing or not passed, or "
+                           + GUARDS[0].lower() + GUARDS[1:], ref("Error"))})
 def release(proposal_id: int):
     """The password is checked again; a wrong one is refused with 403 and recorded, and five
-    wrong passwords in a row lock signing for a while. Nobody releases a proposal they made or
+    wrong passwords in a row lock signing for a while. Nobody signs a sheet they proposed or
     one that uses a fit they made; every refusal is recorded."""
-    body = json_body("SetpointRelease")
+    body = json_body("SetpointSignature")
+    meaning = body["meaning"]
 
     def act(s, actor, proof):
         proposal = setpoints.get_proposal(s, proposal_id)
-        sig = setpoints.release(s, actor, proposal, proof=proof, meaning=body["meaning"],
-                                comment=body.get("comment"),
-                                expected_row_version=body.get("row_version"))
-        return setpoints.signature_json(s, proposal, sig)
+        tolerance = body.get("tolerance")
+        if meaning == setpoint_signoff.RELEASE and tolerance is None:
+            tolerance = setpoints.default_tolerance(s, proposal)
+        sig = setpoint_signoff.sign(s, actor, proposal, proof=proof, meaning=meaning,
+                                    comment=body.get("comment"), tolerance=tolerance,
+                                    expected_row_version=body.get("row_version"))
+        return {**setpoints.signature_json(s, proposal, sig), "state": proposal.state,
+                "state_label": setpoint_signoff.state_label(proposal.state)}
 
     out = signing.signed(read_session, tx, actor_id=g.user.id, password=body["password"],
-                         attempt=setpoints.attempt(proposal_id), act=act,
+                         attempt=setpoint_signoff.attempt(proposal_id, meaning), act=act,
                          limits=signing.Lockout.from_config(current_app.config))
+    response = jsonify(out)
+    response.status_code = 201
+    response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)
+    return response
+
+
+@bp.route("/setpoints/<int:proposal_id>/confirmations", methods=["POST"])
+@allow("engineer")
+@document("POST", "/setpoints/{proposal_id}/confirmations", "Upload confirmation runs",
+          request_schema="ConfirmationUpload", request_type="multipart/form-data",
+          tags=("Setpoints",),
+          responses={201: ("The stored runs with the verdict", {"type": "object"}),
+                     400: ("The file was refused, naming the row and column", ref("Error")),
+                     409: ("Not released for confirmation, or a setting run lies beyond the "
+                           "tolerance set at release", ref("Error")),
+                     413: ("The file is over the size limit", ref("Error"))})
+def confirmations_upload(proposal_id: int):
+    """Judged as on the setpoint sheet; a failed verdict moves the proposal to "confirmation
+    failed"."""
+    if request.mimetype != "multipart/form-data":
+        raise WorkflowError(f"Send the file as multipart/form-data (got "
+                            f"'{request.mimetype or 'no Content-Type'}').",
+                            field="Content-Type", status=415)
+    cfg = current_app.config
+    try:
+        file = request.files.get("file")
+    except RequestEntityTooLarge:
+        raise WorkflowError("The upload is larger than the limit.", field="file",
+                            status=413) from None
+    with read_session() as s:
+        setpoints.get_proposal(s, proposal_id)  # 404 before the file is looked at
+    if file is None or not file.filename:
+        raise WorkflowError("Field 'file' is required: the CSV or XLSX file of confirmation "
+                            "runs.", field="file")
+    data = file.read()
+    raw = confirmations.read_file(data, file.filename, max_bytes=int(cfg["MAX_UPLOAD_BYTES"]),
+                                  max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
+    with tx() as s:
+        proposal = setpoints.get_proposal(s, proposal_id)
+        run = confirmations.record(s, me(s), proposal, data=data, filename=file.filename,
+                                   raw=raw)
+        out = {"id": run.id, "setpoint_id": proposal.id, "filename": run.filename,
+               "original_sha256": run.original_sha256, "state": proposal.state,
+               "state_label": setpoint_signoff.state_label(proposal.state),
+               **confirmations.results_of(run)}
     response = jsonify(out)
     response.status_code = 201
     response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)

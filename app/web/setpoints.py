@@ -1,5 +1,6 @@
-"""Setpoint pages: propose from approved fits, the setpoint sheet, design-space map, release,
-confirmation runs, exports. Refusals answer with the page, the plain message and its status
+"""Setpoint pages: propose from approved fits, the setpoint sheet, design-space map, the
+sign-off (release for confirmation, confirm for production, return, withdraw), confirmation
+runs, exports. Refusals answer with the page, the plain message and its status
 (409 for the guards, 403 for the signer's own proposal or a wrong password)."""
 
 from __future__ import annotations
@@ -30,6 +31,7 @@ from app.workflow import (
     confirmations,
     fits,
     setpoint_export,
+    setpoint_signoff,
     setpoints,
     signing,
     studies,
@@ -47,6 +49,9 @@ GOAL_CHOICES = (("maximize", "maximize"), ("minimize", "minimize"),
 def setpoint_proposals(study_id: int) -> list:
     """The study's setpoint proposals, newest first (for templates/setpoints/_study_link.html)."""
     return setpoints.proposals_of_study(get_session(), study_id)
+
+
+bp.add_app_template_global(setpoint_signoff.state_label, "setpoint_state_label")
 
 
 # ---- proposing -------------------------------------------------------------------------------
@@ -166,7 +171,14 @@ def sheet_context(session, proposal) -> dict[str, Any]:
         "signatures": [(s, setpoints.signature_check(session, proposal, s)) for s in sigs],
         "confirmations": [(run, confirmations.results_of(run))
                           for run in proposal.confirmations],
-        "meanings": setpoints.RELEASE_MEANINGS,
+        "meanings": setpoint_signoff.MEANINGS,
+        "next_meanings": setpoint_signoff.next_meanings(proposal),
+        "signoff": setpoint_signoff,
+        "state_label": setpoint_signoff.state_label(proposal.state),
+        "for_production": setpoint_signoff.for_production(proposal),
+        "tolerance": setpoint_signoff.tolerance_of(session, proposal),
+        "default_tolerance": setpoints.default_tolerance(session, proposal),
+        "resolution": setpoints.resolution_of(session, proposal),
         "duties": signing.SEPARATION_OF_DUTIES,
         # the fits' own factor order (the stored JSON has its keys sorted)
         "factor_names": list(units) or list(result["optimum"]["settings"]),
@@ -216,10 +228,25 @@ def design_space_page(proposal_id: int):
     return render_template("setpoints/design_space.html", **context)
 
 
-@bp.route("/setpoints/<int:proposal_id>/release", methods=["POST"])
+SIGNED_MESSAGES = {
+    setpoint_signoff.RELEASE: "Setpoints released for confirmation runs; they are not for "
+                              "production use until confirmed.",
+    setpoint_signoff.CONFIRM: "Setpoints confirmed for production use.",
+    setpoint_signoff.RETURN: "Proposal returned to its author with your reasons.",
+    setpoint_signoff.WITHDRAW: "Setpoints withdrawn.",
+}
+
+
+def _tolerance_form(form, names: list[str]) -> dict[str, str]:
+    return {name: form.get(f"tolerance_{j}", "") for j, name in enumerate(names)}
+
+
+@bp.route("/setpoints/<int:proposal_id>/sign", methods=["POST"])
 @allow("approver")
-def release(proposal_id: int):
+def sign(proposal_id: int):
+    """One form per transition; the meaning selects it (app.workflow.setpoint_signoff)."""
     form = request.form
+    meaning = form.get("meaning", "")
     raw_version = (form.get("row_version") or "").strip()
     try:
         expected = int(raw_version) if raw_version else None
@@ -227,19 +254,22 @@ def release(proposal_id: int):
         return _sheet(proposal_id, "row_version must be a whole number.", "row_version", 400)
 
     def act(s, actor, proof):
-        setpoints.release(s, actor, setpoints.get_proposal(s, proposal_id), proof=proof,
-                          meaning=form.get("meaning", setpoints.RELEASE),
-                          comment=form.get("comment"), expected_row_version=expected)
+        proposal = setpoints.get_proposal(s, proposal_id)
+        names = list(setpoints.result_of(proposal)["optimum"]["settings"])
+        setpoint_signoff.sign(s, actor, proposal, proof=proof, meaning=meaning,
+                              comment=form.get("comment"),
+                              tolerance=_tolerance_form(form, names),
+                              expected_row_version=expected)
 
     try:
         signing.signed(read_session, tx, actor_id=g.user.id, password=form.get("password"),
-                       attempt=setpoints.attempt(proposal_id), act=act,
+                       attempt=setpoint_signoff.attempt(proposal_id, meaning), act=act,
                        limits=signing.Lockout.from_config(current_app.config))
     except WorkflowError as exc:
         if exc.status == 404:
             raise
         return _sheet(proposal_id, exc.message, exc.field, exc.status)
-    flash("Setpoints released for production use. Confirmation runs come next.")
+    flash(SIGNED_MESSAGES.get(meaning, "Signed."))
     return redirect(url_for("setpoints.view", proposal_id=proposal_id))
 
 
@@ -263,7 +293,9 @@ def confirm(proposal_id: int):
         if exc.status == 404:
             raise
         return _sheet(proposal_id, exc.message, exc.field, exc.status)
-    flash(f"Confirmation runs recorded: {verdict}.")
+    flash(f"Confirmation runs recorded: {verdict}." + (
+        "" if verdict == "pass" else " The setpoints are marked 'confirmation failed'; they "
+        "can only be withdrawn."))
     return redirect(url_for("setpoints.view", proposal_id=proposal_id) + "#confirmations")
 
 

@@ -23,6 +23,7 @@ from app.store.keys import sealing_ring
 from app.store.models import ConfirmationRun, SetpointProposal, User
 from app.workflow import Conflict, WorkflowError, teams
 from app.workflow.reviews import VALID, require_role
+from app.workflow.setpoint_signoff import confirmation_outcome, state_label
 from app.workflow.setpoints import (
     _check_current,
     release_signatures,
@@ -106,8 +107,9 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     require_role(actor, "engineer", "record confirmation runs")
     teams.require_act(session, actor, proposal.study, "record confirmation runs in it")
     if proposal.state != "released":
-        raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}: confirmation runs "
-                       "are recorded only at released setpoints.", field="state")
+        raise Conflict(f"Setpoint proposal {proposal.id} is {state_label(proposal.state)}: "
+                       "confirmation runs are recorded only at setpoints released for "
+                       "confirmation.", field="state")
     _check_current(session, proposal, "confirmed")
     sigs = release_signatures(session, proposal)
     if not sigs or signature_check(session, proposal, sigs[-1]).status != VALID:
@@ -128,9 +130,10 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
     run.key_id, run.seal = sealing_ring(session).seal("confirmation", digest)
     session.add(run)
     session.flush()
+    moved = confirmation_outcome(session, proposal, overall)
     audit.record(session, actor=actor, action="setpoint.confirmation", object_type="setpoint",
                  object_id=proposal.id, study_id=proposal.study_id,
-                 new={"confirmation_run": run.id, "filename": run.filename,
+                 new={**moved, "confirmation_run": run.id, "filename": run.filename,
                       "original_sha256": run.original_sha256, "record_sha256": digest,
                       "verdict": overall,
                       "verdicts": {r: v["verdict"] for r, v in verdicts.items()}})

@@ -48,6 +48,7 @@ from app.workflow import confirmations, setpoints
 from app.workflow.csvsafe import neutralise, safe_csv
 from app.workflow.fits import snapshot_document
 from app.workflow.reviews import signatures_json
+from app.workflow.setpoint_signoff import state_label
 
 FORMAT = "plumbline record package"
 # 1: data versions, fits, signatures, audit chain. 2: adds setpoints/ and manifest["setpoints"].
@@ -211,6 +212,7 @@ def _add_setpoints(session: Session, study: Study, events: list[dict],
                    if (e["object_type"], e["object_id"]) == ("setpoint", str(proposal.id))]
         files[f"{folder}/setpoint.json"] = _json_bytes({
             "id": proposal.id, "study_id": proposal.study_id, "state": proposal.state,
+            "state_label": state_label(proposal.state),
             "row_version": proposal.row_version, "snapshot_sha256": proposal.snapshot_sha256,
             "snapshot_intact": setpoints.proposal_intact(session, proposal),
             "created_by": proposal.created_by.username,

@@ -19,6 +19,7 @@ from app.store.models import SetpointProposal
 from app.workflow import confirmations
 from app.workflow.csvsafe import neutralise
 from app.workflow.reviews import APPROVE, check_signature
+from app.workflow.setpoint_signoff import for_production, state_label, tolerance_of
 from app.workflow.setpoints import (
     fits_of,
     goals_of,
@@ -44,6 +45,8 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "caution": CAUTION,
         "setpoint_id": proposal.id, "study_id": proposal.study_id,
         "study_title": proposal.study.title, "state": proposal.state,
+        "state_label": state_label(proposal.state),
+        "for_production": for_production(proposal),
         "row_version": proposal.row_version,
         "created_by": proposal.created_by.full_name, "created_at": _when(proposal.created_at),
         "snapshot_sha256": proposal.snapshot_sha256,
@@ -58,6 +61,7 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "goals": goals_of(proposal),
         "optimum": result["optimum"], "stationary_point": result["stationary_point"],
         "region": result["region"], "grid_check": result["grid_check"],
+        "tolerance": tolerance_of(session, proposal),
         "signatures": [signature_json(session, proposal, s)
                        for s in release_signatures(session, proposal)],
         "confirmations": [{"id": run.id, "filename": run.filename,
@@ -78,7 +82,8 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
         ["caution", CAUTION],
         ["setpoint proposal", doc["setpoint_id"]],
         ["study", doc["study_id"], doc["study_title"]],
-        ["state", doc["state"]],
+        ["state", doc["state_label"],
+         "for production use" if doc["for_production"] else "NOT for production use"],
         ["proposed by", doc["created_by"], doc["created_at"]],
         ["snapshot sha256", doc["snapshot_sha256"],
          "intact" if doc["snapshot_intact"] else "ALTERED"],
@@ -105,7 +110,7 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
     rows += [[], ["signed by", "user name", "signed at (UTC)", "meaning", "comment", "status",
                   "manifest sha256"]]
     rows += [[s["printed_name"], s["signer"], s["signed_at"], s["meaning"], s["comment"],
-              s["status"], s["manifest_sha256"]] for s in doc["signatures"]] or [["not released"]]
+              s["status"], s["manifest_sha256"]] for s in doc["signatures"]] or [["not signed"]]
     rows += [[], ["confirmation", "file", "response", "observed", "95% PI low", "95% PI high",
                   "verdict"]]
     for run in doc["confirmations"]:

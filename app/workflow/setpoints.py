@@ -1,8 +1,7 @@
-"""Setpoints from approved fits only: propose, release (signed), confirmation runs.
+"""Setpoints from approved fits only: propose, and the guards every later step re-checks.
 
-States::
-
-    draft ─release (signed "released for production use")─▶ released ─▶ withdrawn
+The sign-off (release for confirmation, confirmation for production, return, withdrawal) is
+app.workflow.setpoint_signoff; confirmation runs are app.workflow.confirmations.
 
 A proposal is made from one approved fit per response of one study. Every step re-checks that
 each fit is still approved, that its approval still applies (no newer data version) and that its
@@ -21,19 +20,22 @@ import json
 import math
 from typing import Any
 
-from sqlalchemy import select, update
+from sqlalchemy import select
 from sqlalchemy.orm import Session, joinedload
 
 from app.analysis import AnalysisError
 from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError
 from app.analysis.optimize import propose as search_setpoint
+from app.analysis.rounding import stated_step
 from app.store import audit, keys
 from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
-from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, signing, teams
+from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, teams
 from app.workflow.fits import results_of
 from app.workflow.reviews import APPROVE, check_signature
+from app.workflow.setpoint_signoff import MEANINGS as RELEASE_MEANINGS
+from app.workflow.setpoint_signoff import RELEASE, attempt, state_label
 from app.workflow.signing import (
     INVALID,
     NOT_APPLYING,
@@ -41,24 +43,17 @@ from app.workflow.signing import (
     Reauthenticated,
     SignatureCheck,
     SignatureRefused,
-    clean_comment,
     manifest_sha256,
     require_role,
     signature_summary,
 )
 
-RELEASE = "released for production use"
-RELEASE_MEANINGS = (RELEASE,)
 GOAL_FIELDS = ("goal", "target", "low", "high", "weight", "importance")
 
-__all__ = ["CAUTION", "RELEASE", "SignatureRefused", "attempt", "fit_problem", "get_proposal",
-           "manifest_sha256", "propose", "proposal_intact", "release", "release_signatures",
-           "signature_check", "signature_summary", "snapshot_sha256"]
-
-
-def attempt(proposal_id: int) -> signing.Attempt:
-    """What a refused release of ``proposal_id`` is recorded as."""
-    return signing.Attempt(doing="release", object_type="setpoint", object_id=proposal_id)
+__all__ = ["CAUTION", "RELEASE", "RELEASE_MEANINGS", "SignatureRefused", "attempt",
+           "fit_problem", "get_proposal", "manifest_sha256", "propose", "proposal_intact",
+           "release", "release_signatures", "signature_check", "signature_summary",
+           "snapshot_sha256", "state_label"]
 
 
 # ---- the fits a proposal may come from ----------------------------------------------------
@@ -302,48 +297,50 @@ def _check_current(session: Session, proposal: SetpointProposal, doing: str) -> 
 
 def release(session: Session, actor: User, proposal: SetpointProposal, *,
             proof: Reauthenticated | None, meaning: str = RELEASE, comment: str | None = None,
-            expected_row_version: int | None = None) -> Signature:
-    """An approver signs the setpoint sheet (draft → released).
+            tolerance: Any = None, expected_row_version: int | None = None) -> Signature:
+    """An approver releases the sheet for confirmation runs (draft → released); the signing
+    service is :func:`app.workflow.setpoint_signoff.sign`. Without ``tolerance`` the default
+    (:func:`default_tolerance`) is used."""
+    from app.workflow import setpoint_signoff
 
-    ``proof`` is the password check made before this transaction
-    (:func:`app.workflow.signing.signed` runs the sequence). Raises SignatureRefused (proof,
-    lock), Forbidden (role, separation of duties), Conflict (not a draft, changed meanwhile,
-    altered snapshot, a fit no longer approved), WorkflowError (meaning, comment).
-    """
-    signing.accept(session, actor, proof)
-    require_role(actor, "approver", "release setpoints")
-    if meaning not in RELEASE_MEANINGS:
-        raise WorkflowError(f"Choose the meaning {RELEASE!r} to release setpoints.",
-                            field="meaning")
-    comment = clean_comment(comment)
-    signing.check_releaser(actor, proposal, fits_of(session, proposal))
-    if proposal.state != "draft":
-        raise Conflict(f"Setpoint proposal {proposal.id} is {proposal.state}; only a draft "
-                       "proposal can be released.", field="state")
-    version = proposal.row_version
-    if expected_row_version is not None and expected_row_version != version:
-        raise Conflict(f"Setpoint proposal {proposal.id} changed since you opened it; reload "
-                       "it and look again.", field="row_version")
-    _check_current(session, proposal, "released")
-    moved = session.execute(
-        update(SetpointProposal)
-        .where(SetpointProposal.id == proposal.id, SetpointProposal.state == "draft",
-               SetpointProposal.row_version == version)
-        .values(state="released", row_version=version + 1)
-        .execution_options(synchronize_session=False))
-    if moved.rowcount != 1:
-        raise Conflict(f"Setpoint proposal {proposal.id} was changed by someone else a moment "
-                       "ago; reload it and look again.", field="row_version")
-    session.refresh(proposal)
-    sig = signing.add_signature(session, actor, meaning=meaning, comment=comment,
-                                snapshot_sha256=proposal.snapshot_sha256,
-                                setpoint_id=proposal.id)
-    audit.record(session, actor=actor, action="setpoint.release", object_type="setpoint",
-                 object_id=proposal.id, study_id=proposal.study_id,
-                 old={"state": "draft", "row_version": version},
-                 new={"state": "released", "row_version": proposal.row_version,
-                      "signature": signature_summary(sig)}, reason=comment or None)
-    return sig
+    if tolerance is None:
+        tolerance = default_tolerance(session, proposal)
+    return setpoint_signoff.sign(session, actor, proposal, meaning=meaning, proof=proof,
+                                 comment=comment, tolerance=tolerance,
+                                 expected_row_version=expected_row_version)
+
+
+def resolution_of(session: Session, proposal: SetpointProposal) -> dict[str, float | None]:
+    """Each factor's and response's resolution as the data behind the proposal's fits states
+    it (:func:`app.analysis.rounding.stated_step`)."""
+    from app.workflow.uploads import design_table
+
+    chosen = fits_of(session, proposal)
+    if not chosen:
+        return {}
+    frame = design_table(chosen[0].data_version).frame
+    optimum = result_of(proposal)["optimum"]
+    names = [*optimum["settings"], *optimum["predicted"]]
+    return {name: stated_step(frame[name].tolist()) if name in frame else None
+            for name in names}
+
+
+# Starting value offered for the tolerance of a confirmation run's settings: this share of the
+# factor's studied range (low to high). Common practice, not a standard: the approver sets it.
+DEFAULT_TOLERANCE_SHARE = 0.02
+
+
+def default_tolerance(session: Session, proposal: SetpointProposal) -> dict[str, float]:
+    """The starting tolerance per factor: 2 % of its studied range."""
+    chosen = fits_of(session, proposal)
+    factors = results_of(chosen[0])["model"]["factors"] if chosen else []
+    out = {}
+    for f in factors:
+        low, high = f.get("low"), f.get("high")
+        span = (high - low) if low is not None and high is not None else 0.0
+        out[f["name"]] = float(f"{abs(span) * DEFAULT_TOLERANCE_SHARE:.4g}")
+    settings = result_of(proposal)["optimum"]["settings"]
+    return {name: out.get(name, 0.0) for name in settings}
 
 
 def signature_json(session: Session, proposal: SetpointProposal,

@@ -315,14 +315,15 @@ def check_fit_signer(actor: User, fit: Fit) -> None:
 
 
 def check_releaser(actor: User, proposal: SetpointProposal, fits: Iterable[Fit]) -> None:
-    """Nobody releases setpoints they proposed, or that use a fit they made."""
+    """Nobody signs a setpoint sheet (release, confirmation, return, withdrawal) they
+    proposed, or one that uses a fit they made."""
     if actor.id == proposal.created_by_id:
-        raise DutiesConflict("You proposed these setpoints; someone else must release them.",
+        raise DutiesConflict("You proposed these setpoints; someone else must sign them.",
                              field="signer")
     own = [str(f.id) for f in fits if f.created_by_id == actor.id]
     if own:
         raise DutiesConflict(f"You made fit {', '.join(own)}, which these setpoints use; "
-                             "someone else must release them.", field="signer")
+                             "someone else must sign them.", field="signer")
 
 
 def check_role_change(actor: User | None, user: User, roles: Iterable[str]) -> None:

@@ -45,6 +45,15 @@ def api_propose(client, db, fit_id: int, **body):
     return client.post("/api/v1/setpoints", json=payload, headers=bearer(db, "erin"))
 
 
+def release_form(db, pid: int, **fields) -> dict[str, str]:
+    """The release-for-confirmation form as the page fills it (the offered tolerances)."""
+    with db.session() as s:
+        proposal = s.get(SetpointProposal, pid)
+        offered = setpoints.default_tolerance(s, proposal)
+    return {"meaning": setpoints.RELEASE, "row_version": "1",
+            **{f"tolerance_{j}": str(v) for j, v in enumerate(offered.values())}, **fields}
+
+
 def _proposal_count(db) -> int:
     with db.session() as s:
         return s.scalar(select(func.count()).select_from(SetpointProposal))
@@ -60,15 +69,14 @@ def test_engineer_proposes_approver_releases_engineer_confirms(db, approved, cli
     url = response.headers["Location"]
     sheet = client.get(url).get_data(as_text=True)
     for words in (CAUTION, "Predicted responses", "95 % PI", "Composite desirability",
-                  "Stationary point", "maximum", "Eigenvalues", "Not released"):
+                  "Stationary point", "maximum", "Eigenvalues", "Not signed yet"):
         assert words in sheet
     pid = int(url.rsplit("/", 1)[1])
     actions.logout()
     actions.login("abel")
-    refused = actions.post(f"/setpoints/{pid}/release", {"password": "wrong", "row_version": "1"})
+    refused = actions.post(f"/setpoints/{pid}/sign", release_form(db, pid, password="wrong"))
     assert refused.status_code == 403 and "password is wrong" in refused.get_data(as_text=True)
-    ok = actions.post(f"/setpoints/{pid}/release", {"password": PASSWORD, "row_version": "1",
-                                                     "meaning": setpoints.RELEASE})
+    ok = actions.post(f"/setpoints/{pid}/sign", release_form(db, pid, password=PASSWORD))
     assert ok.status_code == 302
     assert "Abel Approver" in client.get(url).get_data(as_text=True)
     actions.logout()
@@ -201,14 +209,15 @@ def test_author_cannot_release_own_proposal(db, approved, both_roles, client, ac
     pid = _draft_proposal(db, approved[2], who="bea")
     if via == "web":
         actions.login("bea")
-        response = actions.post(f"/setpoints/{pid}/release", {"password": PASSWORD})
+        response = actions.post(f"/setpoints/{pid}/sign", release_form(db, pid,
+                                                                         password=PASSWORD))
         message = response.get_data(as_text=True)
     else:
         response = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "bea"),
                                json={"meaning": setpoints.RELEASE, "password": PASSWORD})
         message = response.get_json()["error"]
     assert response.status_code == 403
-    assert "someone else must release" in message
+    assert "someone else must sign" in message
 
 
 @pytest.mark.parametrize("via", ["web", "api"])
@@ -216,7 +225,8 @@ def test_wrong_password_is_403_and_recorded(db, approved, client, actions, via):
     pid = _draft_proposal(db, approved[2])
     if via == "web":
         actions.login("abel")
-        response = actions.post(f"/setpoints/{pid}/release", {"password": "guess"})
+        response = actions.post(f"/setpoints/{pid}/sign", release_form(db, pid,
+                                                                         password="guess"))
         message = response.get_data(as_text=True)
     else:
         response = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "abel"),
@@ -237,7 +247,7 @@ def test_confirmation_before_release_is_409(db, approved, client, actions, via):
                             {"file": (io.BytesIO(b"Hardness\n130\n"), "c.csv")},
                             content_type="multipart/form-data")
     assert response.status_code == 409
-    assert "only at released setpoints" in response.get_data(as_text=True)
+    assert "only at setpoints released for confirmation" in response.get_data(as_text=True)
     if via == "api":
         # The API has no confirmation upload; its sheet shows none recorded.
         sheet = client.get(f"/api/v1/setpoints/{pid}", headers=bearer(db, "otto")).get_json()
@@ -257,7 +267,8 @@ def test_api_round_trip_and_export(db, approved, client):
     assert signed.status_code == 201 and signed.get_json()["status"] == "valid"
     again = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=bearer(db, "ada"),
                         json={"meaning": setpoints.RELEASE, "password": PASSWORD})
-    assert again.status_code == 409 and "only a draft" in again.get_json()["error"]
+    assert again.status_code == 409
+    assert "only a proposal that is proposed" in again.get_json()["error"]
     reader = bearer(db, "otto")
     sheet = client.get(f"/api/v1/setpoints/{pid}", headers=reader).get_json()
     assert sheet["state"] == "released"

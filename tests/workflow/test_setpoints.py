@@ -198,7 +198,7 @@ def test_own_proposal_cannot_be_released_by_its_author(db, approved):
                              roles="engineer,approver", password=PASSWORD)
     h.join(db, study_id, "bea")
     pid = propose(db, [fit_id], who="bea")
-    with pytest.raises(Forbidden, match="someone else must release"):
+    with pytest.raises(Forbidden, match="someone else must sign"):
         release(db, pid, who="bea")
 
 
@@ -223,7 +223,7 @@ def test_release_twice_and_stale_version_are_conflicts(db, approved):
     with pytest.raises(Conflict, match="changed since"):
         release(db, pid, expected_row_version=7)
     release(db, pid)
-    with pytest.raises(Conflict, match="only a draft"):
+    with pytest.raises(Conflict, match="only a proposal that is proposed"):
         release(db, pid, who="ada")
 
 
@@ -260,7 +260,7 @@ def test_altered_proposal_cannot_be_released_and_its_signature_shows_invalid(db,
 
 def test_confirmation_before_release_is_a_conflict(db, approved):
     pid = propose(db, [approved[2]])
-    with pytest.raises(Conflict, match="only at released setpoints"):
+    with pytest.raises(Conflict, match="only at setpoints released for confirmation"):
         confirm(db, pid, b"Hardness\n130\n")
     with db.session() as s:
         assert s.scalar(select(ConfirmationRun.id)) is None

@@ -1,4 +1,5 @@
-"""Setpoints: engineers propose and record confirmation runs, approvers release.
+"""Setpoints: engineers propose and record confirmation runs, approvers sign (release for
+confirmation, confirm for production, return, withdraw).
 
 Anyone signed in reads.
 """
@@ -7,12 +8,13 @@ POLICY = {
     "setpoints.new": {"engineer"},
     "setpoints.view": "signed-in",
     "setpoints.design_space_page": "signed-in",
-    "setpoints.release": {"approver"},
+    "setpoints.sign": {"approver"},
     "setpoints.confirm": {"engineer"},
     "setpoints.export_csv": "signed-in",
     "setpoints.export_json": "signed-in",
     "api_setpoints.create": {"engineer"},
     "api_setpoints.get": "signed-in",
     "api_setpoints.release": {"approver"},
+    "api_setpoints.confirmations_upload": {"engineer"},
     "api_setpoints.export": "signed-in",
 }
