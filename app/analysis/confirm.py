@@ -255,6 +255,10 @@ def judge_confirmation(model_docs: dict[str, Any], released: dict[str, float],
     unknown = sorted({f["name"] for m in models.values() for f in m["factors"]} - set(released))
     if unknown:
         raise AnalysisError(f"The released settings give no value for factor '{unknown[0]}'")
+    # Factors in the models' order (the stored settings may have been sorted by name).
+    order = list(dict.fromkeys([f["name"] for m in models.values() for f in m["factors"]]
+                               + list(released)))
+    released = {f: released[f] for f in order}
     half = _half_ranges(models)
     recorded = _recorded_factors(runs, list(released))
     where = _settings_run(runs, released, recorded, tolerance, half)
