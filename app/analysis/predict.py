@@ -1,4 +1,8 @@
-"""Predictions from a stored result document alone: value, 95 % CI and PI, back-transformed."""
+"""Predictions from a stored result document alone: value, 95 % CI and PI, back-transformed.
+
+The prediction interval covers one future observation (m = 1) or the mean of m future
+observations at the same settings (``m`` > 1), which is what confirmation runs are judged by.
+"""
 
 from __future__ import annotations
 
@@ -21,15 +25,23 @@ def _model_doc(result: Any) -> dict:
     raise AnalysisError("predict needs a fit result, its to_dict() document, or its 'model' part")
 
 
-def predict(result: Any, settings: dict[str, float], level: float = 0.95) -> dict:
+def predict(result: Any, settings: dict[str, float], level: float = 0.95, m: int = 1) -> dict:
     """Predicted response at ``settings`` (actual units, one value per factor).
 
     Computes x'b on the model scale, the confidence interval x'b ± t s sqrt(x'Vx) and the
-    prediction interval x'b ± t s sqrt(1 + x'Vx) with V = (X'X)^-1 and n - p df, averaging over
-    blocks (effect-coded block columns at 0). For a transformed response the value and interval
-    ends are back-transformed (the value is then the median, not the mean, on the original
-    scale). Verified against statsmodels get_prediction in tests/analysis/test_predict.py.
+    prediction interval x'b ± t s sqrt(1/m + x'Vx) with V = (X'X)^-1 and n - p df, averaging
+    over blocks (effect-coded block columns at 0). ``m`` is the number of future observations
+    whose mean the prediction interval is for (1: a single observation); it is returned as
+    ``m``. For a transformed response the value and interval ends are back-transformed (the
+    value is then the median, not the mean, on the original scale; with m > 1 the interval is
+    for the back-transformed mean of the m transformed values, e.g. their geometric mean under
+    log). Verified against statsmodels get_prediction in tests/analysis/test_engine.py (m = 1)
+    and against the published interval for the mean of m new observations in
+    tests/analysis/test_confirm.py.
     """
+    if isinstance(m, bool) or not isinstance(m, (int, np.integer)) or m < 1:
+        raise AnalysisError(f"m (the number of future observations averaged) must be a whole "
+                            f"number of at least 1, not {m!r}")
     model = _model_doc(result)
     factors = model["factors"]
     missing = [f["name"] for f in factors if f["name"] not in settings]
@@ -66,11 +78,12 @@ def predict(result: Any, settings: dict[str, float], level: float = 0.95) -> dic
         lev = float(x @ v @ x)
         se_fit = float(s * np.sqrt(lev))
         ci = (fit - t * se_fit, fit + t * se_fit)
-        half_pi = float(t * s * np.sqrt(1.0 + lev))
+        half_pi = float(t * s * np.sqrt(1.0 / m + lev))
         pi = (fit - half_pi, fit + half_pi)
     transform, lam = model.get("transform", "none"), model.get("lambda")
     out = {"predicted_model_scale": fit, "ci_model_scale": list(ci), "pi_model_scale": list(pi),
-           "se_fit": se_fit, "coded": coded, "level": level, "transform": transform}
+           "se_fit": se_fit, "coded": coded, "level": level, "transform": transform,
+           "m": int(m)}
     out["predicted"] = _back(fit, transform, lam)
     out["ci"] = _back_interval(ci, transform, lam)
     out["pi"] = _back_interval(pi, transform, lam)

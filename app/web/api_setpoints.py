@@ -222,16 +222,23 @@ def confirmations_upload(proposal_id: int):
         raise WorkflowError("Field 'file' is required: the CSV or XLSX file of confirmation "
                             "runs.", field="file")
     data = file.read()
-    raw = confirmations.read_file(data, file.filename, max_bytes=int(cfg["MAX_UPLOAD_BYTES"]),
-                                  max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
-    with tx() as s:
-        proposal = setpoints.get_proposal(s, proposal_id)
-        run = confirmations.record(s, me(s), proposal, data=data, filename=file.filename,
-                                   raw=raw)
-        out = {"id": run.id, "setpoint_id": proposal.id, "filename": run.filename,
-               "original_sha256": run.original_sha256, "state": proposal.state,
-               "state_label": setpoint_signoff.state_label(proposal.state),
-               **confirmations.results_of(run)}
+    try:
+        raw = confirmations.read_file(data, file.filename,
+                                      max_bytes=int(cfg["MAX_UPLOAD_BYTES"]),
+                                      max_cells=int(cfg["MAX_UPLOAD_CELLS"]))
+        with tx() as s:
+            proposal = setpoints.get_proposal(s, proposal_id)
+            run = confirmations.record(s, me(s), proposal, data=data, filename=file.filename,
+                                       raw=raw)
+            out = {"id": run.id, "setpoint_id": proposal.id, "filename": run.filename,
+                   "original_sha256": run.original_sha256, "state": proposal.state,
+                   "state_label": setpoint_signoff.state_label(proposal.state),
+                   **confirmations.results_of(run)}
+    except WorkflowError as exc:
+        if exc.status != 404:
+            with tx() as s:
+                confirmations.record_refusal(s, me(s), proposal_id, file.filename, exc)
+        raise
     response = jsonify(out)
     response.status_code = 201
     response.headers["Location"] = url_for("api_setpoints.get", proposal_id=proposal_id)

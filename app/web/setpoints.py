@@ -292,6 +292,9 @@ def confirm(proposal_id: int):
     except WorkflowError as exc:
         if exc.status == 404:
             raise
+        get_session().rollback()
+        with tx() as s:
+            confirmations.record_refusal(s, me(s), proposal_id, filename, exc)
         return _sheet(proposal_id, exc.message, exc.field, exc.status)
     flash(f"Confirmation runs recorded: {verdict}." + (
         "" if verdict == "pass" else " The setpoints are marked 'confirmation failed'; they "

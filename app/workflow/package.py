@@ -31,6 +31,7 @@ import csv
 import hashlib
 import io
 import json
+import math
 import re
 import unicodedata
 import zipfile
@@ -40,6 +41,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from app.analysis import AnalysisError
+from app.analysis.confirm import judge_confirmation
 from app.store import audit
 from app.store.audit import ChainReport, canonical_json, verify_chain
 from app.store.base import utcnow
@@ -64,7 +67,8 @@ RELEASE_SIGNED_FIELDS = (*SIGNED_FIELDS, "setpoint_id")
 CONFIRMATIONS_CSV = "confirmations.csv"
 CONFIRMATIONS_HEADER = ("confirmation run", "file", "recorded by", "recorded at (UTC)",
                         "response", "row", "observed", "95% PI low", "95% PI high", "inside PI",
-                        "response verdict", "run verdict")
+                        "response verdict", "run verdict", "m", "judged mean",
+                        "interval for the mean low", "interval for the mean high")
 README = """Plumbline record package
 
 manifest.json          SHA-256 of every other file, the study and the chain head
@@ -85,8 +89,9 @@ setpoints/<id>/setpoint.json  state, who proposed it, the fits it uses, the sett
                        predictions and intervals, and its history from the audit chain
 setpoints/<id>/signatures.json  each release signature: printed name, user name, UTC time,
                        meaning, comment, signed hash, and its validity when the package was made
-setpoints/<id>/confirmations/<run>/  confirmation.json (observed values, the prediction
-                       interval each was judged against, verdicts) and original/ (the upload)
+setpoints/<id>/confirmations/<run>/  confirmation.json (the rule, observed values and the
+                       settings run, the interval for the mean of the runs that decided each
+                       verdict, each run against the single-run PI) and original/ (the upload)
 setpoints/<id>/confirmations.csv  the confirmation verdicts for spreadsheets (text cells that
                        a spreadsheet would run as a formula begin with an apostrophe)
 .../original/<name>    every upload byte for byte under its own name (its SHA-256 is the
@@ -252,6 +257,10 @@ def _add_setpoints(session: Session, study: Study, events: list[dict],
 def confirmations_csv(runs: list[dict]) -> bytes:
     """The confirmation verdicts of one proposal as a spreadsheet-safe CSV, one row per value.
 
+    "inside PI" is each run against the single-observation interval; the response verdict
+    comes from the judged mean of its m runs against the interval for the mean (the last four
+    columns, empty for runs recorded before that rule).
+
     Made from the packaged ``confirmation.json`` documents alone, so the offline check remakes
     it; every cell goes through :func:`app.workflow.csvsafe.neutralise` (numbers unchanged).
     """
@@ -262,12 +271,14 @@ def confirmations_csv(runs: list[dict]) -> bytes:
         results = run.get("results") or {}
         for response, v in (results.get("responses") or {}).items():
             low, high = (v.get("pi") or [None, None])[:2]
+            mean_low, mean_high = (v.get("interval_for_mean") or [None, None])[:2]
             for row, value, inside in zip(v.get("rows") or [], v.get("observed") or [],
                                           v.get("inside") or [], strict=False):
                 writer.writerow([neutralise(c) for c in (
                     run.get("id"), run.get("filename"), run.get("recorded_by_name"),
                     run.get("recorded_at"), response, row, value, low, high,
-                    "yes" if inside else "no", v.get("verdict"), results.get("verdict"))])
+                    "yes" if inside else "no", v.get("verdict"), results.get("verdict"),
+                    v.get("m"), v.get("judged_mean"), mean_low, mean_high)])
     return out.getvalue().encode("utf-8")
 
 
@@ -532,6 +543,7 @@ def _check_setpoint(zf: zipfile.ZipFile, present: set[str], manifest: dict, setp
         if readable[key] != signed[key]:
             report.problems.append(f"{label}: setpoint.json does not match the signed "
                                    f"snapshot in its {key}")
+    models = {}
     for fit in snapshot.get("fits") or []:
         fit_snapshot = f"fits/{fit.get('id')}/snapshot.json"
         if fit_snapshot not in present:
@@ -540,6 +552,8 @@ def _check_setpoint(zf: zipfile.ZipFile, present: set[str], manifest: dict, setp
         elif _sha(zf.read(fit_snapshot)) != fit.get("snapshot_sha256"):
             report.problems.append(f"{label}: fit {fit.get('id')}'s snapshot in the package is "
                                    "not the one the proposal names")
+        else:
+            models[fit.get("response")] = (_load(zf, fit_snapshot, report) or {}).get("results")
     events = report.events.get(("setpoint", str(setpoint_id)), [])
     _check_history(info, events, snapshot_hash, label, report)
     for sig in _load(zf, f"{folder}/signatures.json", report) or []:
@@ -560,7 +574,8 @@ def _check_setpoint(zf: zipfile.ZipFile, present: set[str], manifest: dict, setp
                 recorded.add(new["signature"].get("manifest_sha256"))
         if sig.get("manifest_sha256") not in recorded:
             report.problems.append(f"{sig_label}: no event in the audit chain records it")
-    _check_confirmations(zf, present, folder, optimum, snapshot_hash, events, label, report)
+    _check_confirmations(zf, present, folder, optimum, models, snapshot_hash, events, label,
+                         report)
     return info
 
 
@@ -588,11 +603,53 @@ def _check_history(info: dict, events: list[dict], snapshot_hash: str, label: st
                                f"chain says {state}")
 
 
+def _close(a: Any, b: Any) -> bool:
+    """Equal documents, numbers equal to 1e-9 relative (they went through JSON and back)."""
+    if isinstance(a, dict) and isinstance(b, dict):
+        return a.keys() == b.keys() and all(_close(a[k], b[k]) for k in a)
+    if isinstance(a, list) and isinstance(b, list):
+        return len(a) == len(b) and all(_close(x, y) for x, y in zip(a, b, strict=True))
+    numbers = (int, float)
+    if (isinstance(a, numbers) and isinstance(b, numbers)
+            and not isinstance(a, bool) and not isinstance(b, bool)):
+        return math.isclose(a, b, rel_tol=1e-9, abs_tol=1e-12)
+    return a == b
+
+
+def _judged_again(results: dict, models: dict, optimum: dict) -> dict | None:
+    """The judgement of a run recorded under the mean-of-m rule, remade from its observed
+    values and settings, the signed released settings and the packaged fits; None when the
+    stored document cannot be read back into runs."""
+    try:
+        observed: dict[Any, dict] = {}
+        for response, v in results["responses"].items():
+            for row, value in zip(v["rows"], v["observed"], strict=True):
+                observed.setdefault(row, {})[response] = value
+        runs = [{"row": r["row"], "settings": r["settings"], "responses": observed[r["row"]]}
+                for r in results["runs"]]
+        again = judge_confirmation({r: models[r] for r in results["responses"]},
+                                   optimum["settings"], runs, results.get("tolerance"),
+                                   level=results["level"])
+    except (AnalysisError, KeyError, TypeError, ValueError):
+        return None
+    return json.loads(canonical_json(setpoints._finite(again)))
+
+
+def _check_recorded(event: dict | None, doc: dict, results: dict, verdicts: dict,
+                    run_label: str, report: PackageReport) -> None:
+    if event is None:
+        report.problems.append(f"{run_label}: no event in the audit chain records it")
+    elif (event.get("original_sha256"), event.get("verdict"), event.get("verdicts")) != (
+            doc.get("original_sha256"), results.get("verdict"), verdicts):
+        report.problems.append(f"{run_label}: it differs from what the audit chain recorded")
+
+
 def _check_confirmations(zf: zipfile.ZipFile, present: set[str], folder: str, optimum: dict,
-                         snapshot_hash: str, events: list[dict], label: str,
+                         models: dict, snapshot_hash: str, events: list[dict], label: str,
                          report: PackageReport) -> None:
-    """Each run's upload against its recorded hash, its intervals against the signed
-    snapshot's, its verdicts recomputed, the chain's record of it, and the spreadsheet copy."""
+    """Each run's upload against its recorded hash, its judgement remade (from the packaged
+    fits at its settings run; a run recorded before that rule against the signed snapshot's
+    intervals), the chain's record of it, and the spreadsheet copy."""
     recorded = {}
     for e in events:
         new = _decoded(e.get("new_json"))
@@ -621,6 +678,15 @@ def _check_confirmations(zf: zipfile.ZipFile, present: set[str], folder: str, op
         if results.get("setpoint_snapshot_sha256") != snapshot_hash:
             report.problems.append(f"{run_label}: it names another snapshot than the proposal's")
         responses = results.get("responses") if isinstance(results.get("responses"), dict) else {}
+        verdicts = {r: v.get("verdict") for r, v in responses.items()}
+        if "rule" in results:
+            again_doc = _judged_again(results, models, optimum)
+            stored = {k: v for k, v in results.items() if k != "setpoint_snapshot_sha256"}
+            if again_doc is None or not _close(again_doc, stored):
+                report.problems.append(f"{run_label}: its verdicts are not the ones its observed "
+                                       "values, its settings and the packaged fits give")
+            _check_recorded(recorded.get(run_id), doc, results, verdicts, run_label, report)
+            continue
         observed, intervals = {}, {}
         for response, v in responses.items():
             if v.get("pi") != signed_pi.get(response):
@@ -635,18 +701,12 @@ def _check_confirmations(zf: zipfile.ZipFile, present: set[str], folder: str, op
             again = None
         overall = ("pass" if again and all(v["verdict"] == "pass" for v in again.values())
                    else "fail")
-        verdicts = {r: v.get("verdict") for r, v in responses.items()}
         if (again is None or any(again[r]["verdict"] != verdicts[r]
                                  or again[r]["inside"] != responses[r].get("inside")
                                  for r in responses) or results.get("verdict") != overall):
             report.problems.append(f"{run_label}: its verdicts are not the ones its observed "
                                    "values and the signed intervals give")
-        event = recorded.get(run_id)
-        if event is None:
-            report.problems.append(f"{run_label}: no event in the audit chain records it")
-        elif (event.get("original_sha256"), event.get("verdict"), event.get("verdicts")) != (
-                doc.get("original_sha256"), results.get("verdict"), verdicts):
-            report.problems.append(f"{run_label}: it differs from what the audit chain recorded")
+        _check_recorded(recorded.get(run_id), doc, results, verdicts, run_label, report)
     csv_name = f"{folder}/{CONFIRMATIONS_CSV}"
     if runs and csv_name not in present:
         report.problems.append(f"{csv_name} is missing")

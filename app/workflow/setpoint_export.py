@@ -111,13 +111,18 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
                   "manifest sha256"]]
     rows += [[s["printed_name"], s["signer"], s["signed_at"], s["meaning"], s["comment"],
               s["status"], s["manifest_sha256"]] for s in doc["signatures"]] or [["not signed"]]
+    # The verdict comes from the judged mean of m runs against the interval for the mean
+    # (empty for runs recorded before that rule); the single-run PI is information.
     rows += [[], ["confirmation", "file", "response", "observed", "95% PI low", "95% PI high",
-                  "verdict"]]
+                  "verdict", "m", "judged mean", "interval for the mean low",
+                  "interval for the mean high", "rule"]]
     for run in doc["confirmations"]:
         for response, v in run["responses"].items():
+            mean_low, mean_high = (v.get("interval_for_mean") or [None, None])[:2]
             rows.append([run["id"], run["filename"], response,
                          " ".join(f"{x:g}" for x in v["observed"]), v["pi"][0], v["pi"][1],
-                         v["verdict"]])
+                         v["verdict"], v.get("m"), v.get("judged_mean"), mean_low, mean_high,
+                         run.get("rule")])
     out = io.StringIO(newline="")
     writer = csv.writer(out, lineterminator="\r\n")
     for row in rows:

@@ -34,8 +34,8 @@ RUN_NAME = "=SUM(1)-Bestätigung-試験.csv"
 
 @pytest.fixture
 def record(db, users):
-    """A study with an approved fit, a released proposal and two confirmation runs (the first
-    inside the prediction interval, the second outside it), plus a draft proposal."""
+    """A study with an approved fit, a released proposal and two confirmation runs of one run
+    each (the first inside the interval, the second outside it), plus a draft proposal."""
     study_id, _version, fit_id = h.approved_fit(db)
     pid = propose(db, [fit_id])
     release(db, pid, comment="Agreed with the line supervisor.")
@@ -84,6 +84,20 @@ def _json(data: bytes, name: str):
     return json.loads(zipfile.ZipFile(io.BytesIO(data)).read(name))
 
 
+def _text(data: bytes, name: str) -> str:
+    return zipfile.ZipFile(io.BytesIO(data)).read(name).decode()
+
+
+def _legacy_csv(rows: list[list[str]], run_id: int) -> bytes:
+    """The spreadsheet copy with one run's mean-of-m columns (the last four) left empty, as a
+    run recorded under the earlier rule gives them."""
+    out = io.StringIO(newline="")
+    writer = csv.writer(out, lineterminator="\n")
+    for row in rows:
+        writer.writerow(row[:-4] + [""] * 4 if row[0] == str(run_id) else row)
+    return out.getvalue().encode()
+
+
 def test_package_carries_proposals_release_signatures_and_confirmations(db, record, tmp_path):
     pid, draft = record["released"], record["draft"]
     inside, outside = record["runs"]
@@ -116,12 +130,15 @@ def test_package_carries_proposals_release_signatures_and_confirmations(db, reco
     assert sig["snapshot_sha256"] == stored_hash and sig["status"] == "valid"
     assert sig["comment"] == "Agreed with the line supervisor."
 
-    # The confirmation runs: observed values, the interval each was judged against, verdicts.
+    # The confirmation runs: observed values, the intervals (one run each: the interval for the
+    # mean of one is the single-run PI, here at the released settings), verdicts.
     first = json.loads(zf.read(f"setpoints/{pid}/confirmations/{inside}/confirmation.json"))
     second = json.loads(zf.read(f"setpoints/{pid}/confirmations/{outside}/confirmation.json"))
     pi = stored_result["optimum"]["pi"]["Hardness"]
     assert first["results"]["verdict"] == "pass" and second["results"]["verdict"] == "fail"
     assert first["results"]["responses"]["Hardness"]["pi"] == pi
+    assert first["results"]["responses"]["Hardness"]["interval_for_mean"] == pi
+    assert first["results"]["rule"].startswith("For each response the mean of the m")
     assert second["results"]["responses"]["Hardness"]["inside"] == [False]
     assert first["filename"] == RUN_NAME and first["recorded_by"] == "erin"
     # The upload under its UTF-8 name, made safe (formula and bracket characters replaced).
@@ -154,6 +171,60 @@ def test_package_carries_proposals_release_signatures_and_confirmations(db, reco
     assert result.exit_code == 0, result.output
     assert ("2 setpoint proposals with 1 release signatures and 2 confirmation runs"
             in result.output)
+
+
+def test_runs_at_settings_read_from_the_file_verify_offline(db, record):
+    # Three runs with factor columns, one low outside the single-run PI and their mean at the
+    # prediction: recorded as a pass, and the offline check remakes that judgement from the
+    # packaged fits at the settings run.
+    pid = record["released"]
+    with db.session() as s:
+        released = setpoints.result_of(s.get(SetpointProposal, pid))["optimum"]["settings"]
+    run_at = {**released, "Cure time": released["Cure time"] + 0.5}
+    low, high = _pi(db, pid)["Hardness"]
+    first = low - 0.3
+    rest = (3 * (low + high) / 2 - first) / 2
+    header = ",".join(["Run", *run_at, "Hardness"])
+    cells = ",".join(repr(v) for v in run_at.values())
+    body = "\n".join([header, *(f"C{n},{cells},{v!r}" for n, v in
+                                 enumerate((first, rest, rest), start=1))]).encode()
+    run_id = confirm(db, pid, body)
+    data = _build(db, record["study"])
+    results = _json(data, f"setpoints/{pid}/confirmations/{run_id}/confirmation.json")["results"]
+    assert results["settings_run"] == run_at and results["m"] == 3
+    assert results["responses"]["Hardness"]["inside"][0] is False
+    report = verify_package(data)
+    assert report.problems == [] and report.confirmation_runs == 3
+
+
+def test_a_run_recorded_under_the_earlier_rule_still_verifies(db, record):
+    # Runs recorded before the mean-of-m rule stored each value against the signed PI only
+    # (no "rule"); the offline check judges such a document by that earlier rule.
+    pid = record["released"]
+    _inside, outside = record["runs"]
+    data = _build(db, record["study"])
+    run_name = f"setpoints/{pid}/confirmations/{outside}/confirmation.json"
+    run = _json(data, run_name)
+    hardness = run["results"]["responses"]["Hardness"]
+    run["results"] = {"responses": {"Hardness": {k: hardness[k] for k in (
+        "rows", "observed", "pi", "inside", "verdict")}}, "verdict": run["results"]["verdict"],
+        "settings": run["results"]["settings"],
+        "setpoint_snapshot_sha256": run["results"]["setpoint_snapshot_sha256"]}
+    csv_name = f"setpoints/{pid}/confirmations.csv"
+    rows = list(csv.reader(io.StringIO(_text(data, csv_name))))
+    legacy_csv = _legacy_csv(rows, outside)
+    report = verify_package(_rewrite(data, {run_name: json.dumps(run).encode(),
+                                            csv_name: legacy_csv}, fix_manifest=True))
+    assert report.problems == []
+    # ... and still catches a verdict turned round in it.
+    run["results"]["verdict"] = "pass"
+    hardness_doc = run["results"]["responses"]["Hardness"]
+    hardness_doc["verdict"] = "pass"
+    report = verify_package(_rewrite(data, {run_name: json.dumps(run).encode(),
+                                            csv_name: legacy_csv}, fix_manifest=True))
+    assert any(f"confirmation run {outside} of setpoint {pid}: its verdicts are not the ones "
+               "its observed values and the signed intervals give" in p
+               for p in report.problems), report.problems
 
 
 def test_a_tampered_setpoint_file_is_named(db, record, tmp_path):
@@ -205,6 +276,17 @@ def test_a_tampered_setpoint_file_is_named(db, record, tmp_path):
                                      fix_manifest=True))
     assert any(f"confirmation run {outside} of setpoint {pid}: its verdicts" in p
                for p in report.problems), report.problems
+
+    # The settings the runs were judged at, moved afterwards: the judgement remade from the
+    # packaged fits at the recorded settings no longer matches.
+    run_name = f"setpoints/{pid}/confirmations/{inside}/confirmation.json"
+    run = _json(data, run_name)
+    run["results"]["settings_run"]["Cure time"] += 1.0
+    report = verify_package(_rewrite(data, {run_name: json.dumps(run).encode()},
+                                     fix_manifest=True))
+    assert report.problems == [f"confirmation run {inside} of setpoint {pid}: its verdicts are "
+                               "not the ones its observed values, its settings and the packaged "
+                               "fits give"]
 
     # A whole proposal left out, manifest and all: the audit chain still knows it.
     removed = {n: None for n in zipfile.ZipFile(io.BytesIO(data)).namelist()

@@ -1,5 +1,5 @@
 """Setpoints from approved fits only (issue 6): guards, release under the sign-off rules,
-confirmation verdicts against the stored prediction interval, exports."""
+confirmation verdicts (the mean of the runs at the settings run), exports."""
 
 from __future__ import annotations
 
@@ -52,11 +52,11 @@ def release(db, proposal_id, who="abel", password=PASSWORD, comment=None,
     return h.signed(db, who, password, setpoints.attempt(proposal_id), act)
 
 
-def confirm(db, proposal_id, body: bytes, who="erin", name="confirm.csv") -> int:
+def confirm(db, proposal_id, body: bytes, who="erin", name="confirm.csv", tolerance=None) -> int:
     raw = confirmations.read_file(body, name)  # parsed before the write, as the page does
     with db.transaction() as s:
         return confirmations.record(s, h.user(s, who), setpoints.get_proposal(s, proposal_id),
-                                    data=body, filename=name, raw=raw).id
+                                    data=body, filename=name, raw=raw, tolerance=tolerance).id
 
 
 def _events(db, action):
@@ -67,6 +67,11 @@ def _events(db, action):
 def _pi(db, proposal_id):
     with db.session() as s:
         return setpoints.result_of(s.get(SetpointProposal, proposal_id))["optimum"]["pi"]
+
+
+def _settings(db, proposal_id):
+    with db.session() as s:
+        return setpoints.result_of(s.get(SetpointProposal, proposal_id))["optimum"]["settings"]
 
 
 def test_proposal_stores_inputs_result_and_hash(db, approved):
@@ -266,22 +271,62 @@ def test_confirmation_before_release_is_a_conflict(db, approved):
         assert s.scalar(select(ConfirmationRun.id)) is None
 
 
-def test_confirmation_verdict_per_response_against_the_stored_pi(db, approved):
+def test_confirmation_judges_the_mean_of_the_runs(db, approved):
+    # The issue: one of three runs below the single-observation PI, the three averaging the
+    # prediction. Under the rule of DESIGN.md (mean of m against the interval for the mean of
+    # m) the set passes and the low run is flagged as information only.
     pid = propose(db, [approved[2]])
     release(db, pid)
     low, high = _pi(db, pid)["Hardness"]
-    inside = f"Run,Hardness\nC1,{(low + high) / 2:.3f}\nC2,{low + 0.01:.3f}\n".encode()
-    run_id = confirm(db, pid, inside)
-    outside = f"Run,Hardness\nC3,{(low + high) / 2:.3f}\nC4,{high + 0.5:.3f}\n".encode()
-    second = confirm(db, pid, outside)
+    middle = (low + high) / 2                  # the prediction: the PI is symmetric about it
+    first = low - 0.3
+    rest = (3 * middle - first) / 2
+    assert rest < high                          # the other two runs are inside the single PI
+    body = f"Run,Hardness\nC1,{first!r}\nC2,{rest!r}\nC3,{rest!r}\n".encode()
+    run_id = confirm(db, pid, body)
+    high_runs = f"Run,Hardness\nC4,{high + 0.5:.3f}\nC5,{high + 0.5:.3f}\n".encode()
+    second = confirm(db, pid, high_runs)
     with db.session() as s:
         good = confirmations.results_of(s.get(ConfirmationRun, run_id))
         bad = confirmations.results_of(s.get(ConfirmationRun, second))
-    assert good["responses"]["Hardness"]["verdict"] == "pass" and good["verdict"] == "pass"
-    assert bad["responses"]["Hardness"]["inside"] == [True, False]
-    assert bad["verdict"] == "fail"
+    hardness = good["responses"]["Hardness"]
+    assert hardness["inside"] == [False, True, True] and hardness["outside_single_pi_rows"] == [1]
+    assert hardness["verdict"] == "pass" and good["verdict"] == "pass" and good["m"] == 3
+    assert_allclose(hardness["mean"], middle, rtol=1e-12)
+    assert hardness["interval_for_mean"][0] > low and hardness["interval_for_mean"][1] < high
+    assert good["rule"].startswith("For each response the mean of the m confirmation runs")
+    assert good["settings_notes"] == [
+        "The file records no setting for Cure temperature, Cure time, Catalyst: the released "
+        "value is assumed for them."]
+    assert bad["responses"]["Hardness"]["inside"] == [False, False]
+    assert bad["responses"]["Hardness"]["verdict"] == "fail" and bad["verdict"] == "fail"
     events = _events(db, "setpoint.confirmation")
     assert [json.loads(e.new_json)["verdict"] for e in events] == ["pass", "fail"]
+
+
+def test_confirmation_reads_the_settings_run_from_the_file(db, approved):
+    pid = propose(db, [approved[2]])
+    release(db, pid)
+    released = _settings(db, pid)
+    run_at = {**released, "Cure temperature": released["Cure temperature"] + 1.5}
+    header = ",".join(["Run", *run_at, "Hardness"])
+    cells = ",".join(repr(v) for v in run_at.values())
+    body = f"{header}\nC1,{cells},130\nC2,{cells},131\n".encode()
+    run_id = confirm(db, pid, body, tolerance={"Cure temperature": 2.0})
+    with db.session() as s:
+        doc = confirmations.results_of(s.get(ConfirmationRun, run_id))
+        fit = s.get(Fit, approved[2])
+        at_run = predict(fits.results_of(fit), run_at, m=2)
+    assert doc["settings"] == released and doc["settings_run"] == run_at
+    assert doc["deviations"]["Cure temperature"]["deviation"] == pytest.approx(1.5)
+    assert doc["tolerance"] == {"Cure temperature": 2.0}
+    # the interval is the one at the settings run, not at the released point
+    assert_allclose(doc["responses"]["Hardness"]["interval_for_mean"], at_run["pi"], rtol=1e-12)
+    with pytest.raises(WorkflowError, match="'Cure temperature' was run at .*, the released "
+                                            "value is .* and the tolerance set at release is "
+                                            "±1") as info:
+        confirm(db, pid, body, tolerance={"Cure temperature": 1.0})
+    assert info.value.field == "file"
 
 
 def test_judge_is_inclusive_at_the_interval_ends():
@@ -294,6 +339,10 @@ def test_judge_is_inclusive_at_the_interval_ends():
     (b"Run,Gloss\nC1,86\n", "no column 'Hardness'"),
     (b"Run,Hardness\nC1,soft\n", "Row 1, column 'Hardness': 'soft' is not a number"),
     (b"Run,Hardness\nC1,\n", "holds no values"),
+    (b"Run,Catalyst,Hardness\nC1,1.1,130\nC2,lots,131\n",
+     "Row 2, column 'Catalyst': 'lots' is not a number"),
+    (b"Run,Catalyst,Hardness\nC1,1.1,130\nC2,,131\n",
+     "Row 2, column 'Catalyst': the setting is missing"),
 ])
 def test_bad_confirmation_files_name_row_and_column(db, approved, body, message):
     pid = propose(db, [approved[2]])
