@@ -32,7 +32,8 @@ def _setup(results_by_response, bounds, fixed):
         results_by_response = {r: doc.to_dict() if hasattr(doc, "to_dict") else doc
                                for r, doc in results_by_response.items()}
     fits = load_fits(results_by_response)
-    region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed)
+    region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed,
+                          why=fits.why)
     surfaces = {r: Surface.from_result(doc, r) for r, doc in fits.results.items()}
     return fits, region, surfaces
 
