@@ -226,3 +226,27 @@ def test_goal_met_over_a_set_is_reported_with_the_set(hardness):
         assert coded @ coded <= CCD_ALPHA**2 + 1e-7
     for name, (lo, hi) in met["box"].items():
         assert lo <= out["optimum"]["settings"][name] <= hi
+
+
+@pytest.mark.parametrize("sense", ["maximize", "minimize"])
+def test_log_response_is_optimised_on_the_natural_scale(noisy_ccd, sense):
+    design, y = noisy_ccd
+    levels = {"A": (100.0, 140.0), "B": (0.5, 0.9)}
+    doc = fit(design, np.exp(0.5 * y), names=("A", "B"), levels=levels, transform="log")
+    out = single_goal(doc, sense)
+    s = -1.0 if sense == "maximize" else 1.0
+
+    # independent of the search: scipy.optimize (SLSQP, many starts) on predict() in the disc
+    def f(z):
+        settings = {"A": 120.0 + 20.0 * z[0], "B": 0.7 + 0.2 * z[1]}
+        return s * predict(doc, settings)["predicted"]
+
+    disc = {"type": "ineq", "fun": lambda z: 2.0 - z @ z}
+    best = min((optimize.minimize(f, start, method="SLSQP", constraints=[disc],
+                                  options={"ftol": 1e-14})
+                for start in np.random.default_rng(2).uniform(-1, 1, (12, 2))),
+               key=lambda r: r.fun)
+    assert out["check"]["objective_scale"].startswith("model scale")
+    assert out["check"]["status"] == "agrees"
+    assert_allclose(out["optimum"]["predicted"], s * best.fun, rtol=1e-7)
+    assert_allclose(_coded(out), best.x, atol=1e-4)
