@@ -199,6 +199,8 @@ def check_command(file: Path, response: str, factors: str | None, run_order: str
     if search is not None:
         document["optimum"] = search["optimum"]
         document["stationary_point"] = search["stationary_point"]
+        document["setpoint_region"] = search["region"]
+        document["setpoint_check"] = search.get("check")
         document["setpoint_caution"] = search.get("caution")
     if as_json:
         click.echo(json.dumps(document, sort_keys=True, indent=2))
@@ -211,11 +213,14 @@ def check_command(file: Path, response: str, factors: str | None, run_order: str
 
 def _search_text(goal: str, search: dict) -> str:
     opt = search["optimum"]
-    lines = ["", f"Setting search ({goal}) inside the design region"]
+    lines = ["", f"Setting search ({goal}) inside the design region",
+             "  " + search["region"]["why"]]
     for name, value in opt["settings"].items():
         lines.append(f"  {name:<24} {value:.6g}   (coded {opt['coded'][name]:+.3f})")
     lines.append(f"  predicted {opt['predicted']:.6g}   95% CI [{opt['ci'][0]:.6g}, "
                  f"{opt['ci'][1]:.6g}]   95% PI [{opt['pi'][0]:.6g}, {opt['pi'][1]:.6g}]")
+    if search.get("check"):
+        lines.append(f"  check: {search['check']['status']}. {search['check']['statement']}")
     sp = search.get("stationary_point")
     if sp:
         eig = ", ".join(f"{e:.4g}" for e in sp["eigenvalues"])

@@ -95,6 +95,15 @@ def test_goal_adds_optimum_and_stationary_point_to_json():
     for name, value in sp["coded"].items():
         assert abs(opt["coded"][name] - value) < 1e-3
     assert "Confirmation runs are required" in doc["setpoint_caution"]
+    assert doc["setpoint_region"]["shape"] == "sphere" and doc["setpoint_region"]["why"]
+    assert doc["setpoint_check"]["status"] == "agrees"
+    # the page's search (propose) gives the command line's settings on the same fit
+    from app.analysis.optimize import propose
+
+    fit_doc = {k: v for k, v in doc.items() if not k.startswith("setpoint_")}
+    page = propose({"Hardness": fit_doc}, {"Hardness": {"goal": "maximize"}})
+    for name, value in opt["settings"].items():
+        assert abs(page["optimum"]["settings"][name] - value) <= 1e-6 * abs(value)
 
 
 def test_goal_text_and_bad_goal():

@@ -12,6 +12,7 @@ import numpy as np
 from .. import transforms
 from ..predict import predict
 from .canonical import RIDGE_RATIO, SetpointError, Surface, canonical_analysis, classify
+from .check import desirability_check, goal_met_set, optimise_response
 from .design_space import design_space
 from .desirability import Goal, composite, parse_goal
 from .region import OutsideRegion, Region, build_region, load_fits, observed_range
@@ -32,7 +33,8 @@ def _setup(results_by_response, bounds, fixed):
         results_by_response = {r: doc.to_dict() if hasattr(doc, "to_dict") else doc
                                for r, doc in results_by_response.items()}
     fits = load_fits(results_by_response)
-    region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed)
+    region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed,
+                          why=fits.why)
     surfaces = {r: Surface.from_result(doc, r) for r, doc in fits.results.items()}
     return fits, region, surfaces
 
@@ -79,24 +81,59 @@ def _region_doc(fits, region: Region) -> dict:
     return doc
 
 
-def _check_doc(found, objective_name: str, region: Region) -> dict:
+def _check_doc(found, objective_name: str, region: Region, agrees: bool | None = None) -> dict:
+    """The earlier ``grid_check`` shape, kept for current pages; ``check`` has the full story."""
     return {f"best_{objective_name}": found["grid"], f"local_{objective_name}": found["local"],
-            "agrees": found["result"].agrees, "method": found["result"].grid_method,
+            "agrees": found["result"].agrees if agrees is None else agrees,
+            "method": found["result"].grid_method,
             "points": found["result"].grid_points, "starts": found["result"].starts,
             "source": found["result"].source,
             "grid_point": _point(region, found["result"].grid_coded)[0]}
 
 
+def _grid_check_of(check: dict, objective_name: str) -> dict:
+    """The ``grid_check`` shape filled from a ``check`` document."""
+    dense, local = check["methods"]["dense"], check["methods"]["local"]
+    return {f"best_{objective_name}": dense["value"], f"local_{objective_name}": local["value"],
+            "agrees": check["status"] == "agrees", "method": dense["method"],
+            "points": dense["points"], "starts": local["starts"],
+            "source": check["proposal"]["from"], "grid_point": dense["coded"]}
+
+
+def _single_response_goal(goals: dict) -> tuple[str, str] | None:
+    """(response, maximize|minimize) when the proposal has one goal and it is one of those."""
+    if len(goals) != 1:
+        return None
+    response, spec = next(iter(goals.items()))
+    name = str(spec.get("goal", "")).strip().lower() if isinstance(spec, dict) else ""
+    # parse_goal has validated spec by now
+    return (response, name) if name in ("maximize", "minimize") else None
+
+
+def _achievable(region: Region, surface: Surface, seed: int) -> tuple[float, float]:
+    """Least and greatest prediction of one response inside the region."""
+    least = optimise_response(region, surface, "minimize", seed=seed).value
+    greatest = optimise_response(region, surface, "maximize", seed=seed).value
+    return least, greatest
+
+
 def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds=None,
             fixed=None, seed: int = 0) -> dict:
-    """Settings that maximise the composite desirability of one or more fitted responses.
+    """Setpoints from one or more fitted responses.
+
+    One response with goal maximize or minimize: the predicted response itself is optimised
+    inside the region (:func:`optimise_response`), checked against a dense search and the
+    canonical analysis. Otherwise (targets, ranges, several responses) the Derringer–Suich
+    overall desirability D is maximised; a maximize/minimize limit left out is set so that d
+    reaches 1 only at the best prediction in the region (:func:`parse_goal`), and when D = 1
+    over a set of settings ``goal_met_set`` describes that set.
 
     ``results_by_response`` maps a response name to its fit's result document
     (``FitResult.to_dict()``); ``goals`` maps a response to ``{goal, target, low, high, weight,
     importance}``; ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} are in actual
     units. Responses without a goal are predicted but do not enter D. Predictions with 95 % CI
     and PI at the optimum come from :func:`app.analysis.predict`. Verified in
-    tests/analysis/optimize/test_search.py and test_refusals.py.
+    tests/analysis/optimize/test_search.py, test_true_optimum.py and test_refusals.py.
     """
     fits, region, surfaces = _setup(results_by_response, bounds, fixed)
     if not isinstance(goals, dict) or not goals:
@@ -105,16 +142,36 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
     if unknown:
         raise SetpointError(f"Goal names response '{unknown[0]}', which has no fit here "
                             f"(fits: {', '.join(surfaces)})", field="goals")
-    parsed = {r: parse_goal(r, spec, observed_range(fits.results[r])) for r, spec in goals.items()}
+    achievable = {r: _achievable(region, surfaces[r], seed) for r, spec in goals.items()
+                  if isinstance(spec, dict)
+                  and str(spec.get("goal", "")).strip().lower() in ("maximize", "minimize")}
+    parsed = {r: parse_goal(r, spec, observed_range(fits.results[r]), achievable.get(r))
+              for r, spec in goals.items()}
 
     def individual(coded: np.ndarray) -> dict[str, np.ndarray]:
         return {r: g.desirability(surfaces[r].response_scale(coded)) for r, g in parsed.items()}
 
-    def objective(coded: np.ndarray) -> np.ndarray:
-        return -composite(individual(coded), parsed)
+    def overall(coded: np.ndarray) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return composite(individual(coded), parsed)
 
-    found = search(region, objective, seed=seed, tolerance=DESIRABILITY_TOL)
-    best = found.coded
+    single = _single_response_goal(goals)
+    if single is not None:
+        response, sense = single
+        best_response = optimise_response(region, surfaces[response], sense, seed=seed)
+        best, check = best_response.coded, best_response.check
+        # the dense search of D shows whether limits the engineer set are met over a set
+        found = search(region, lambda c: -overall(c), seed=seed, tolerance=DESIRABILITY_TOL)
+    else:
+        found = search(region, lambda c: -overall(c), seed=seed, tolerance=DESIRABILITY_TOL)
+        check = desirability_check(region, found, lambda c: overall(np.atleast_2d(c))[0])
+        best = found.coded
+    met_set = goal_met_set(region, found, -found.dense_values)
+    if single is None and met_set is not None:
+        # no unique optimum: of the settings meeting every goal, the one nearest the centre
+        best = region.as_array({n: region.factors[i].to_coded(v)
+                                for i, (n, v) in enumerate(met_set["nearest_centre"].items())})
+        check["proposal"]["from"] = "goal met over a set: its point nearest the design centre"
     coded, settings = _point(region, best)
     preds = {r: predict(doc, settings) for r, doc in fits.results.items()}
     d_each = {r: float(g.desirability(preds[r]["predicted"]
@@ -129,8 +186,16 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
                "desirability": big_d, "individual_desirability": d_each,
                "gradient": {r: g[0] for r, g in grads.items()},
                "gradient_actual": {r: g[1] for r, g in grads.items()}}
-    checks = {"grid": -found.grid_objective, "local": _num(-found.local_objective), "result": found}
-    return {"optimum": optimum, "grid_check": _check_doc(checks, "desirability", region),
+    if single is not None:
+        response = single[0]
+        grid_check = {**_grid_check_of(check, "predicted"), "response": response}
+    else:
+        checks = {"grid": -found.grid_objective, "local": _num(-found.local_objective),
+                  "result": found}
+        grid_check = _check_doc(checks, "desirability", region,
+                                agrees=check["status"] == "agrees")
+    return {"optimum": optimum, "grid_check": grid_check, "check": check,
+            "goal_met_set": met_set,
             "stationary_point": {r: _stationary(region, s, fits.results[r])
                                  for r, s in surfaces.items()},
             "region": _region_doc(fits, region),
@@ -174,7 +239,6 @@ def single_goal(results: dict, goal: str, bounds=None, fixed=None, seed: int = 0
     fits, region, surfaces = _setup({response: results}, bounds, fixed)
     surface = surfaces[response]
     name, target = _parse_cli_goal(goal)
-    decreasing = transforms.is_decreasing(surface.transform, surface.lam)
     if name == "target":
         with np.errstate(all="ignore"):
             z_target = float(transforms.forward(np.array([target]), surface.transform,
@@ -186,14 +250,14 @@ def single_goal(results: dict, goal: str, bounds=None, fixed=None, seed: int = 0
 
         def objective(coded):
             return (surface.model_scale(coded) - z_target) ** 2
+
+        found = search(region, objective, seed=seed)
+        best = found.coded
+        check = None
     else:
-        sign = (1.0 if name == "minimize" else -1.0) * (-1.0 if decreasing else 1.0)
-
-        def objective(coded):
-            return sign * surface.model_scale(coded)
-
-    found = search(region, objective, seed=seed)
-    coded, settings = _point(region, found.coded)
+        best_response = optimise_response(region, surface, name, seed=seed)
+        best, check = best_response.coded, best_response.check
+    coded, settings = _point(region, best)
     pred = predict(results, settings)
     spec = {"goal": name} if target is None else {"goal": name, "target": target}
     note = None
@@ -204,15 +268,19 @@ def single_goal(results: dict, goal: str, bounds=None, fixed=None, seed: int = 0
     except SetpointError as err:
         # the search needs no limits; only the desirability does, so report it as missing
         d, goal_doc, note = None, spec, f"No desirability: {err}"
-    grad_coded, grad_actual = _gradients(region, surface, found.coded)
+    grad_coded, grad_actual = _gradients(region, surface, best)
     optimum = {"coded": coded, "settings": settings, "predicted": pred["predicted"],
                "ci": pred["ci"], "pi": pred["pi"], "desirability": d,
                "gradient": grad_coded, "gradient_actual": grad_actual}
-    def at(point):
-        return None if point is None else _num(surface.response_scale(point)[0])
+    if check is None:
+        def at(point):
+            return None if point is None else _num(surface.response_scale(point)[0])
 
-    checks = {"grid": at(found.grid_coded), "local": at(found.local_coded), "result": found}
+        checks = {"grid": at(found.grid_coded), "local": at(found.local_coded), "result": found}
+        grid_check = _check_doc(checks, "predicted", region)
+    else:
+        grid_check = _grid_check_of(check, "predicted")
     return {"response": response, "goal": goal_doc, "optimum": optimum,
-            "grid_check": _check_doc(checks, "predicted", region),
+            "grid_check": grid_check, "check": check,
             "stationary_point": _stationary(region, surface, results),
             "region": _region_doc(fits, region), "note": note, "caution": CAUTION}

@@ -114,12 +114,17 @@ def _weights(raw, response: str, goal: str) -> tuple[float, float]:
     return w, w
 
 
-def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None) -> Goal:
+def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None,
+               achievable: tuple[float, float] | None = None) -> Goal:
     """Validate one goal dict ``{goal, target, low, high, weight, importance}``.
 
-    For maximize/minimize/target, a missing low or high is taken from ``observed`` (the
-    observed range of the response, min and max of the included runs); in_range needs at least
-    one limit. Errors name the response and the field.
+    A missing limit is filled in. For maximize and minimize, with ``achievable`` (the least and
+    greatest prediction inside the search region) given, the fully desirable end (high for
+    maximize, low for minimize) is the best prediction in the region, so d reaches 1 only at the
+    region's optimum and never saturates over a set; the other end is the observed range's
+    (or the region's worst prediction when that would not leave low < high). Without
+    ``achievable``, and for target, both come from ``observed`` (min and max of the included
+    runs). in_range needs at least one limit. Errors name the response and the field.
     """
     if not isinstance(spec, dict):
         raise SetpointError(f"Goal for '{response}' must be an object with a 'goal' field",
@@ -149,6 +154,8 @@ def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None) 
         if low is None and high is None:
             raise SetpointError(f"Goal for '{response}': in_range needs low, high or both",
                                 field="low")
+    elif (low is None or high is None) and achievable is not None and name != "target":
+        low, high, limits_from = _from_region(name, low, high, observed, achievable)
     elif low is None or high is None:
         if observed is None:
             missing = "low" if low is None else "high"
@@ -169,3 +176,31 @@ def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None) 
     return Goal(response=response, goal=name, low=low, high=high, target=target,
                 weight_low=w_low, weight_high=w_high, importance=importance,
                 limits_from=limits_from)
+
+
+def _from_region(name: str, low: float | None, high: float | None,
+                 observed: tuple[float, float] | None,
+                 achievable: tuple[float, float]) -> tuple[float, float, str]:
+    """Missing maximize/minimize limits: the fully desirable end at the region's best
+    prediction, the other end at the observed range's (or the region's worst prediction)."""
+    least, greatest = achievable
+    parts = [] if low is None and high is None else ["request"]
+    if name == "maximize":
+        if high is None:
+            high = greatest
+            parts.append("high: greatest prediction in the region")
+        if low is None:
+            use_observed = observed is not None and observed[0] < high
+            low = observed[0] if use_observed else least
+            parts.append("low: observed minimum" if use_observed
+                         else "low: least prediction in the region")
+    else:
+        if low is None:
+            low = least
+            parts.append("low: least prediction in the region")
+        if high is None:
+            use_observed = observed is not None and observed[1] > low
+            high = observed[1] if use_observed else greatest
+            parts.append("high: observed maximum" if use_observed
+                         else "high: greatest prediction in the region")
+    return low, high, "; ".join(parts)

@@ -1,8 +1,9 @@
 """The design region a setpoint may come from, in coded units, with bounds and fixed factors.
 
-The region is the coded cube [-1, 1]^k, or for a rotatable central composite design the sphere
-through its axial points (radius α, the axial distance). Outside it the model is extrapolating:
-requests that leave it are refused with a message naming the factor, never clipped silently.
+The region follows the design (:func:`region_for_design`): the sphere through the axial points
+of a rotatable or spherical central composite design, else the coded cube [-1, 1]^k. Outside it
+the model is extrapolating: requests that leave it are refused with a message naming the
+factor, never clipped silently.
 """
 
 from __future__ import annotations
@@ -11,6 +12,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..design import describe_design
 from .canonical import SetpointError
 
 # Coded-unit slack for "on the boundary": far below any meaningful setting change, above the
@@ -49,31 +51,105 @@ class FactorScale:
         return f"{self.to_actual(coded):.6g}{unit}"
 
 
-def design_region(design: dict | None, runs: list | None = None) -> tuple[str, float | None]:
-    """(kind, radius): ``sphere`` with the axial distance for a rotatable central composite
-    design, else ``cube`` (radius None, half-width 1).
+# |alpha - target| below this counts as equal: the rotatable alpha (n_F)^(1/4) and the spherical
+# alpha sqrt(k) are printed to three decimals in design tables (1.682, 1.414, 1.732).
+ALPHA_TOL = 0.01
 
-    The axial distance is read from the included runs with one non-zero coded factor when the
-    runs are given (this also covers inscribed designs, whose axial points sit at ±1), else taken
-    as ``alpha`` (circumscribed: cube points at ±1).
+
+@dataclass(frozen=True)
+class RegionChoice:
+    """The design region the setpoint search keeps to: ``shape`` ``sphere`` (``radius`` in coded
+    units) or ``cube`` ([-1, 1] per factor, ``radius`` None), and ``why`` in one sentence."""
+
+    shape: str
+    radius: float | None
+    why: str
+
+
+def _as_run(design: dict | None, runs: list | None) -> dict | None:
+    """The design as planned and run: recognised again from every run, excluded ones included.
+
+    Excluding a run (a scratched panel) changes what the model is fitted to, not the region the
+    experiment explored; recognising the design from the included runs alone would turn a
+    rotatable design into a "general" one and shrink the search to the cube.
     """
-    if not design or design.get("kind") != "central_composite" or not design.get("rotatable"):
-        return "cube", None
-    radius = None
-    if runs:
-        axial = []
-        for run in runs:
-            if run.get("excluded"):
-                continue
-            values = [abs(v) for v in run.get("coded", {}).values() if v is not None]
-            nonzero = [v for v in values if v > 1e-4]
-            if len(nonzero) == 1 and len(values) > 1:
-                axial.append(nonzero[0])
-        radius = max(axial) if axial else None
-    if radius is None:
-        alpha = design.get("alpha")
-        radius = float(alpha) if design.get("ccd_type") != "inscribed" else 1.0
-    return "sphere", float(radius)
+    rows = [r.get("coded") for r in runs or [] if isinstance(r.get("coded"), dict)]
+    if not rows:
+        return design
+    names = list(rows[0])
+    if not names or any(list(r) != names or any(v is None for v in r.values()) for r in rows):
+        return design
+    return describe_design(np.array([[float(r[n]) for n in names] for r in rows])).to_dict()
+
+
+def region_for_design(design: dict | None, runs: list | None = None) -> RegionChoice:
+    """The one rule for the setpoint search region, read from a fit's ``design`` part and runs.
+
+    * Central composite designs that are rotatable (alpha = n_F^(1/4)) or spherical
+      (alpha = sqrt(k), every non-centre point on one sphere): the sphere through the axial
+      points. Its radius is read from the runs (the largest coded distance of an axial run, which
+      also covers inscribed designs with axial points at +/-1), else alpha.
+    * Face-centred central composite designs, two-level factorials, Box–Behnken designs, other
+      central composite designs and anything unrecognised: the cube [-1, 1].
+
+    Box–Behnken designs put every non-centre run on the sphere of radius sqrt(2), but no factor
+    was ever run beyond +/-1: the sphere would send one factor alone to +/-1.41, a level never
+    tested, so we keep to the cube, in which each factor stays within its tested levels. A
+    central composite design whose alpha is neither rotatable nor spherical has no region in
+    which it is balanced; the cube is where all factors were varied together.
+
+    The design is recognised from every run, excluded ones included (see :func:`_as_run`).
+    Verified in tests/analysis/optimize/test_region_rule.py.
+    """
+    info = _as_run(design, runs) or {}
+    kind = info.get("kind")
+    k = info.get("n_factors")
+    alpha = info.get("alpha")
+    if kind == "central_composite" and alpha is not None and info.get("ccd_type") != "face_centred":
+        spherical = k is not None and k > 1 and abs(alpha - np.sqrt(k)) < ALPHA_TOL
+        if info.get("rotatable") or spherical:
+            radius = _axial_distance(runs)
+            if radius is None:
+                radius = float(alpha) if info.get("ccd_type") != "inscribed" else 1.0
+            what = "rotatable" if info.get("rotatable") else "spherical"
+            return RegionChoice("sphere", float(radius),
+                                f"A {what} central composite design (alpha {alpha:.4g}) explores "
+                                f"a ball: the search keeps to the sphere through its axial "
+                                f"points, radius {radius:.4g} coded units.")
+        return RegionChoice("cube", None,
+                            f"A central composite design with alpha {alpha:.4g} is neither "
+                            "rotatable nor spherical: the search keeps to the cube [-1, 1] in "
+                            "which all factors were varied together.")
+    if kind == "central_composite":
+        return RegionChoice("cube", None, "A face-centred central composite design explores "
+                            "the cube: the search keeps to [-1, 1] for every factor.")
+    if kind in ("two_level_full_factorial", "two_level_fractional_factorial"):
+        return RegionChoice("cube", None, "A two-level factorial design explores the cube: the "
+                            "search keeps to [-1, 1] for every factor.")
+    if kind == "box_behnken":
+        return RegionChoice("cube", None, "A Box–Behnken design never runs a factor beyond its "
+                            "low and high levels, so the search keeps to the cube [-1, 1] rather "
+                            "than the sphere of radius 1.414 through its points.")
+    return RegionChoice("cube", None, "The design is not one with a known spherical region, so "
+                        "the search keeps to the cube [-1, 1] of the factors' low and high "
+                        "levels.")
+
+
+def _axial_distance(runs: list | None) -> float | None:
+    """Largest coded value of a run with exactly one non-zero factor (an axial run), any run."""
+    axial = []
+    for run in runs or []:
+        values = [abs(v) for v in (run.get("coded") or {}).values() if v is not None]
+        nonzero = [v for v in values if v > 1e-4]
+        if len(nonzero) == 1 and len(values) > 1:
+            axial.append(nonzero[0])
+    return max(axial) if axial else None
+
+
+def design_region(design: dict | None, runs: list | None = None) -> tuple[str, float | None]:
+    """(shape, radius) of :func:`region_for_design`, for callers that need no reason."""
+    choice = region_for_design(design, runs)
+    return choice.shape, choice.radius
 
 
 @dataclass(frozen=True)
@@ -90,6 +166,7 @@ class Region:
     lower: np.ndarray
     upper: np.ndarray
     fixed: dict[int, float] = field(default_factory=dict)
+    why: str = ""
 
     @property
     def names(self) -> tuple[str, ...]:
@@ -138,7 +215,7 @@ class Region:
                 f"radius {self.radius:.4g} (largest coded setting: '{worst}')", field=worst)
 
     def to_dict(self) -> dict:
-        return {"kind": self.kind, "radius": self.radius,
+        return {"kind": self.kind, "shape": self.kind, "why": self.why, "radius": self.radius,
                 "bounds": {f.name: {"coded": [float(self.lower[i]), float(self.upper[i])],
                                     "actual": [f.to_actual(self.lower[i]),
                                                f.to_actual(self.upper[i])]}
@@ -176,7 +253,7 @@ def _bound_pair(raw, name: str) -> tuple[float | None, float | None]:
 
 
 def build_region(factors: list[dict], kind: str, radius: float | None,
-                 bounds: dict | None = None, fixed: dict | None = None) -> Region:
+                 bounds: dict | None = None, fixed: dict | None = None, why: str = "") -> Region:
     """The search region: ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} in
     actual units (None for either end of a bound keeps the region's edge).
 
@@ -223,7 +300,7 @@ def build_region(factors: list[dict], kind: str, radius: float | None,
                                 "bound", field=name)
         coded_fixed[i] = c
     region = Region(kind=kind, radius=None if kind == "cube" else float(radius), factors=scales,
-                    lower=lower, upper=upper, fixed=coded_fixed)
+                    lower=lower, upper=upper, fixed=coded_fixed, why=why)
     if kind == "sphere":
         # the box point nearest the centre must lie in the sphere, else nothing does
         nearest = np.clip(0.0, lower, upper)
@@ -246,6 +323,7 @@ class Fits:
     kind: str
     radius: float | None
     note: str | None
+    why: str = ""
 
 
 def _same_factor(a: dict, b: dict) -> bool:
@@ -281,18 +359,19 @@ def load_fits(results_by_response: dict[str, dict]) -> Fits:
             raise SetpointError(f"Fits must share the same factors and coding: '{response}' has "
                                 f"{show(these)} but '{first_name}' has {show(factors)}",
                                 field="factors")
-        regions[response] = design_region(result.get("design"), result.get("runs"))
-    kinds = set(regions.values())
+        regions[response] = region_for_design(result.get("design"), result.get("runs"))
+    kinds = {(c.shape, c.radius) for c in regions.values()}
     if len(kinds) == 1:
-        kind, radius = kinds.pop()
-        note = None
+        choice = next(iter(regions.values()))
+        kind, radius, why, note = choice.shape, choice.radius, choice.why, None
     else:
         kind, radius = "cube", None
         note = ("The fits describe the design differently ("
-                + "; ".join(f"{r}: {k}" for r, (k, _) in regions.items())
+                + "; ".join(f"{r}: {c.shape}" for r, c in regions.items())
                 + "), so the search keeps to the coded cube")
+        why = "The fits describe the design differently, so the search keeps to the cube [-1, 1]."
     return Fits(results=results_by_response, factors=list(factors), kind=kind, radius=radius,
-                note=note)
+                note=note, why=why)
 
 
 def observed_range(result: dict) -> tuple[float, float] | None:

@@ -1,10 +1,15 @@
-"""Setpoint search: multistart local optimisation in the design region, checked on a grid.
+"""Setpoint search: multistart local optimisation in the design region, checked by a dense search.
 
 The local search (scipy.optimize.minimize: L-BFGS-B in the cube, SLSQP with the sphere as an
-inequality constraint) starts from seeded random points and the centre; an independent grid (or,
-for many free factors, seeded random points) over the same region checks it. Both optima are
-reported and ``agrees`` says whether the local search did at least as well as the grid; when it
-did not, the grid's best point is polished and the better of the two is taken.
+inequality constraint) starts from seeded random points and the centre. An independent dense
+search over the same region checks it: a grid over the cube (seeded random points for many free
+factors); for the sphere, scrambled Sobol points (scipy.stats.qmc) kept inside the ball, together
+with the same points pushed out radially onto its surface, where many optima lie. Both optima are
+reported and ``agrees`` says whether the local search did at least as well as the dense search;
+when it did not, the dense search's best point is polished and the better of the two is taken.
+
+The local search sees the objective shifted and scaled by its median and spread over the dense
+points, so the stopping rules act alike whatever the units or offset of the response.
 """
 
 from __future__ import annotations
@@ -15,8 +20,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from scipy import optimize
+from scipy.stats import qmc
 
-from .region import Region
+from .region import TOL, Region
 
 GRID_POINTS = 20_000   # evaluations for the check; vectorised, a few milliseconds per response
 DESIRABILITY_TOL = 1e-3
@@ -37,6 +43,9 @@ class SearchResult:
     agrees: bool
     source: str
     starts: int
+    dense_coded: np.ndarray | None = None   # every dense point (full coded rows)
+    dense_values: np.ndarray | None = None  # the objective there (inf where undefined)
+    tolerance: float = 0.0
 
 
 def _embed(region: Region, free_values: np.ndarray) -> np.ndarray:
@@ -52,6 +61,8 @@ def _candidates(region: Region, rng: np.random.Generator) -> tuple[np.ndarray, s
     free = region.free
     lo, hi = region.lower[free], region.upper[free]
     m = len(free)
+    if region.kind == "sphere":
+        return _ball_points(region, rng), "Sobol points in the ball and on its surface"
     per_axis = min(101, max(3, int(round(GRID_POINTS ** (1.0 / m)))))
     if per_axis**m <= 3 * GRID_POINTS:
         axes = [np.linspace(a, b, per_axis) for a, b in zip(lo, hi, strict=True)]
@@ -59,6 +70,23 @@ def _candidates(region: Region, rng: np.random.Generator) -> tuple[np.ndarray, s
     else:
         points, method = lo + (hi - lo) * rng.random((GRID_POINTS, m)), "random"
     return points[region.in_design_region(_embed(region, points))], method
+
+
+def _ball_points(region: Region, rng: np.random.Generator) -> np.ndarray:
+    """Scrambled Sobol points over the free factors' box, kept where inside the region, plus
+    each point scaled out to the sphere's surface (kept where that is within the bounds)."""
+    free = region.free
+    lo, hi = region.lower[free], region.upper[free]
+    sobol = qmc.Sobol(d=len(free), scramble=True, seed=rng)
+    box = lo + (hi - lo) * sobol.random_base2(int(np.ceil(np.log2(GRID_POINTS // 2))))
+    fixed_sq = sum(v**2 for v in region.fixed.values())
+    room = np.sqrt(max(region.radius**2 - fixed_sq, 0.0))
+    norms = np.sqrt(np.sum(box**2, axis=1))
+    surface = box[norms > 0] * (room / norms[norms > 0])[:, None]
+    points = np.vstack([box, surface])
+    keep = (region.in_design_region(_embed(region, points))
+             & np.all(points >= lo - TOL, axis=1) & np.all(points <= hi + TOL, axis=1))
+    return points[keep]
 
 
 def _starts(region: Region, rng: np.random.Generator) -> np.ndarray:
@@ -74,12 +102,13 @@ def _starts(region: Region, rng: np.random.Generator) -> np.ndarray:
     return np.array(starts[:wanted])
 
 
-def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start: np.ndarray):
+def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start: np.ndarray,
+           offset: float = 0.0, scale: float = 1.0):
     free = region.free
     bounds = list(zip(region.lower[free], region.upper[free], strict=True))
 
     def f(z: np.ndarray) -> float:
-        return float(objective(_embed(region, z))[0])
+        return (float(objective(_embed(region, z))[0]) - offset) / scale
 
     with warnings.catch_warnings():
         # SLSQP may step a hair past a bound and says so; the point is clipped just below
@@ -92,7 +121,8 @@ def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start:
             res = optimize.minimize(f, start, method="SLSQP", bounds=bounds, constraints=cons,
                                     options={"maxiter": 200, "ftol": 1e-10})
         else:
-            res = optimize.minimize(f, start, method="L-BFGS-B", bounds=bounds)
+            res = optimize.minimize(f, start, method="L-BFGS-B", bounds=bounds,
+                                    options={"ftol": 1e-15, "gtol": 1e-10, "maxiter": 500})
     z = np.clip(res.x, region.lower[free], region.upper[free])
     full = _embed(region, z)[0]
     if region.kind == "sphere":
@@ -125,26 +155,30 @@ def search(region: Region, objective: Callable[[np.ndarray], np.ndarray], seed: 
     values = np.where(np.isfinite(values), values, np.inf)
     g = int(np.argmin(values))
     grid_coded, grid_value = _embed(region, points[g])[0], float(values[g])
+    finite = values[np.isfinite(values)]
+    spread = float(finite.max() - finite.min()) if finite.size else 0.0
+    offset = float(np.median(finite)) if finite.size else 0.0
+    scale = spread if spread > 0 else 1.0
     if tolerance is None:
-        finite = values[np.isfinite(values)]
-        spread = float(finite.max() - finite.min()) if finite.size else 0.0
         tolerance = 1e-3 * spread + 1e-12
     starts = _starts(region, rng)
     best, best_value = None, np.inf
     for start in starts:
-        point, value = _local(region, objective, start)
+        point, value = _local(region, objective, start, offset, scale)
         if np.isfinite(value) and value < best_value and region.inside(point):
             best, best_value = point, value
     local_value, local_coded = best_value, best
     agrees = bool(local_value <= grid_value + tolerance)
     source = "local"
     if not agrees:
-        point, value = _local(region, objective, points[g])
+        point, value = _local(region, objective, points[g], offset, scale)
         best, best_value, source = ((point, value, "grid, polished")
                                     if value < grid_value and region.inside(point)
                                     else (grid_coded, grid_value, "grid"))
     return SearchResult(coded=best, objective=float(best_value), local_objective=float(local_value),
                         local_coded=local_coded,
                         grid_objective=grid_value, grid_coded=grid_coded, grid_points=len(points),
-                        grid_method=method, agrees=agrees, source=source, starts=len(starts))
+                        grid_method=method, agrees=agrees, source=source, starts=len(starts),
+                        dense_coded=_embed(region, points), dense_values=values,
+                        tolerance=float(tolerance))
 
