@@ -112,7 +112,9 @@ def test_package_carries_proposals_release_signatures_and_confirmations(db, reco
     # The proposal: the exact signed snapshot, its settings, fits, state and history.
     assert hashlib.sha256(zf.read(f"setpoints/{pid}/snapshot.json")).hexdigest() == stored_hash
     info = json.loads(zf.read(f"setpoints/{pid}/setpoint.json"))
-    assert info["state"] == "released" and info["snapshot_sha256"] == stored_hash
+    # The second run failed, so the proposal is marked so (never "released" after that).
+    assert info["state"] == "failed" and info["snapshot_sha256"] == stored_hash
+    assert info["state_label"] == "confirmation failed"
     assert info["snapshot_intact"] is True
     assert info["optimum"]["settings"] == stored_result["optimum"]["settings"]
     assert [f["id"] for f in info["fits"]] == [record["fit"]]
@@ -177,10 +179,12 @@ def test_runs_at_settings_read_from_the_file_verify_offline(db, record):
     # Three runs with factor columns, one low outside the single-run PI and their mean at the
     # prediction: recorded as a pass, and the offline check remakes that judgement from the
     # packaged fits at the settings run.
-    pid = record["released"]
+    # A second proposal released for this (the first one's confirmation failed).
+    pid = record["draft"]
+    release(db, pid)
     with db.session() as s:
         released = setpoints.result_of(s.get(SetpointProposal, pid))["optimum"]["settings"]
-    run_at = {**released, "Cure time": released["Cure time"] + 0.5}
+    run_at = {**released, "Cure time": released["Cure time"] + 0.1}  # within ±0.2 (2 % of 10)
     low, high = _pi(db, pid)["Hardness"]
     first = low - 0.3
     rest = (3 * (low + high) / 2 - first) / 2

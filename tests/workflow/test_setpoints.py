@@ -312,6 +312,12 @@ def test_confirmation_reads_the_settings_run_from_the_file(db, approved):
     header = ",".join(["Run", *run_at, "Hardness"])
     cells = ",".join(repr(v) for v in run_at.values())
     body = f"{header}\nC1,{cells},130\nC2,{cells},131\n".encode()
+    # Beyond the tolerance: refused before anything is judged or stored.
+    with pytest.raises(WorkflowError, match="'Cure temperature' was run at .*, the released "
+                                            "value is .* and the tolerance set at release is "
+                                            "±1") as info:
+        confirm(db, pid, body, tolerance={"Cure temperature": 1.0})
+    assert info.value.field == "file"
     run_id = confirm(db, pid, body, tolerance={"Cure temperature": 2.0})
     with db.session() as s:
         doc = confirmations.results_of(s.get(ConfirmationRun, run_id))
@@ -322,11 +328,6 @@ def test_confirmation_reads_the_settings_run_from_the_file(db, approved):
     assert doc["tolerance"] == {"Cure temperature": 2.0}
     # the interval is the one at the settings run, not at the released point
     assert_allclose(doc["responses"]["Hardness"]["interval_for_mean"], at_run["pi"], rtol=1e-12)
-    with pytest.raises(WorkflowError, match="'Cure temperature' was run at .*, the released "
-                                            "value is .* and the tolerance set at release is "
-                                            "±1") as info:
-        confirm(db, pid, body, tolerance={"Cure temperature": 1.0})
-    assert info.value.field == "file"
 
 
 def test_judge_is_inclusive_at_the_interval_ends():
