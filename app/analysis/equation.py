@@ -1,7 +1,7 @@
-"""The fitted equation in coded and in actual units.
+"""The fitted equation in coded and in natural units (the factors' own units).
 
 Each coded term prod_i x_i^p_i with x_i = (v_i - c_i) / h_i is expanded into monomials of the
-actual values v_i and like monomials are collected. Block effects are left out: the equation is
+natural values v_i and like monomials are collected. Block effects are left out: the equation is
 the average over blocks. Verified by reproducing the NIST StRD certified polynomial coefficients
 (Norris, Pontius, Wampler, Filip) from fits made in coded units
 (tests/analysis/test_reference_nist.py).
@@ -41,7 +41,7 @@ def _render(lhs: str, pairs: list[tuple[str, float]]) -> str:
 def actual_polynomial(
     intercept: float, terms: list[Term], coefs: list[float], factors: tuple[Factor, ...]
 ) -> dict[tuple[int, ...], float]:
-    """Coefficients of monomials in actual units, keyed by exponent tuples."""
+    """Coefficients of monomials in natural units, keyed by exponent tuples."""
     k = len(factors)
     ch = [centre_and_half_range(f) for f in factors]
     poly: dict[tuple[int, ...], float] = {(0,) * k: intercept}

@@ -33,7 +33,7 @@ def summary_text(result: FitResult) -> str:
     f = result.fit
     lines += ["", f"R² {_num(f['r_squared'])}   adjusted R² {_num(f['adj_r_squared'])}   "
                   f"predicted R² {_num(f['pred_r_squared'])}   residual SD {_num(f['s'])}",
-              "", "Equation (actual units): " + result.equation["actual"]]
+              "", "Equation (natural units): " + result.equation["actual"]]
     if result.effects and result.lenth:
         lz = result.lenth
         lines += ["", f"Effects (Lenth PSE {_num(lz['pse'])}, ME {_num(lz['me'])}, "

@@ -15,6 +15,7 @@ from flask import Blueprint, current_app, g, jsonify, request, url_for
 from werkzeug.exceptions import RequestEntityTooLarge
 
 from app.analysis.optimize import CAUTION
+from app.analysis.optimize.desirability import GOALS
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, read_session, tx
@@ -34,15 +35,29 @@ bp = Blueprint("api_setpoints", __name__, url_prefix="/api/v1")
 NUMBER_OR_NULL = {"type": ["number", "null"]}
 schema("SetpointGoal", {
     "type": "object", "additionalProperties": False, "required": ["goal"],
+    "description": "Derringer–Suich desirability of one response (maximize, minimize, target), "
+                   "or a limit to keep it within (within: a constraint on the search, not part "
+                   "of D). The earlier fields low, high, importance and the goal in_range are "
+                   "refused (400 naming the field and its new name).",
     "properties": {
-        "goal": {"type": "string", "enum": ["maximize", "minimize", "target", "in_range"]},
-        "target": {**NUMBER_OR_NULL, "description": "Goal target only"},
-        "low": {**NUMBER_OR_NULL, "description": "Lower goal limit (observed minimum if omitted)"},
-        "high": {**NUMBER_OR_NULL,
-                 "description": "Upper goal limit (observed maximum if omitted)"},
-        "weight": {"type": ["number", "array", "null"], "items": {"type": "number"},
-                   "description": "Derringer–Suich shape; [below, above] for a target"},
-        "importance": {**NUMBER_OR_NULL, "description": "Importance in the composite D"},
+        "goal": {"type": "string", "enum": list(GOALS)},
+        "lower": {**NUMBER_OR_NULL,
+                  "description": "Acceptable lower value: d = 0 at and below it when "
+                                 "maximizing, d = 1 at and below it when minimizing; for "
+                                 "within, the least value allowed. When omitted for maximize "
+                                 "or minimize: the observed minimum, or the least prediction "
+                                 "in the region when minimizing"},
+        "upper": {**NUMBER_OR_NULL,
+                  "description": "Acceptable upper value (mirror of lower). When omitted for "
+                                 "maximize: the greatest prediction in the region; for "
+                                 "minimize: the observed maximum"},
+        "target": {**NUMBER_OR_NULL, "description": "Goal target only; lower < target < upper"},
+        "shape": {"type": ["number", "array", "null"], "items": {"type": "number"},
+                  "description": "Derringer–Suich shape exponent (default 1); [below, above] "
+                                 "for a target"},
+        "weight": {**NUMBER_OR_NULL,
+                   "description": "Relative weight of this response in the overall "
+                                  "desirability D = (prod d_i^w_i)^(1/sum w_i); default 1"},
         "spec": {"type": "object", "additionalProperties": False,
                  "properties": {"lower": NUMBER_OR_NULL, "upper": NUMBER_OR_NULL},
                  "description": "Specification limits for the design-space map (optional)"},
@@ -57,11 +72,15 @@ schema("SetpointCreate", {
                   "description": "Response name to its goal"},
         "bounds": {"type": "object", "additionalProperties": {
             "type": "array", "items": NUMBER_OR_NULL},
-            "description": "Factor to [low, high] in actual units, inside the design region"},
+            "description": "Factor to [low, high] in natural units, inside the design region"},
         "fixed": {"type": "object", "additionalProperties": {"type": "number"},
-                  "description": "Factor to a fixed actual value"},
+                  "description": "Factor to a fixed value in natural units"},
     },
-    "examples": [{"fits": [1], "goals": {"Hardness": {"goal": "maximize"}}}],
+    "examples": [{"fits": [1], "goals": {"Hardness": {"goal": "maximize"}}},
+                 {"fits": [1, 2], "goals": {
+                     "Hardness": {"goal": "target", "lower": 120, "target": 128, "upper": 134,
+                                  "shape": [1, 2], "weight": 2},
+                     "Gloss": {"goal": "within", "lower": 85}}}],
 })
 schema("SetpointSignature", {
     "type": "object", "additionalProperties": False, "required": ["meaning", "password"],
@@ -110,7 +129,11 @@ schema("SetpointSheet", {
         "fits": {"type": "array", "items": {"type": "object"}},
         "goals": {"type": "object"},
         "optimum": {"type": "object", "description": "coded, settings, predicted, ci, pi, "
-                                                     "desirability, gradient"},
+                                                     "desirability (the overall desirability "
+                                                     "D), individual_desirability, gradient"},
+        "constraints": {"type": "object",
+                        "description": "Each response kept within limits (goal within): "
+                                       "lower, upper, predicted, met"},
         "stationary_point": {"type": "object"},
         "signatures": {"type": "array", "items": {"type": "object"}},
         "confirmations": {"type": "array", "items": {"type": "object"}},
@@ -135,7 +158,12 @@ def _sheet(proposal_id: int) -> dict:
                      409: (GUARDS, ref("Error"))})
 def create():
     """Searches the design region (cube, or sphere of a rotatable design) for the settings
-    with the highest composite desirability; bounds and fixed values are in actual units."""
+    with the highest overall desirability D, keeping any response given goal 'within' inside
+    its limits; bounds and fixed values are in natural units."""
+    raw = request.get_json(silent=True)
+    if isinstance(raw, dict):
+        # earlier goal words get their new name before the schema calls them unknown
+        setpoints.refuse_renamed(raw.get("goals"))
     body = json_body("SetpointCreate")
     with tx() as s:
         chosen = [teams.fit_for(s, g.user, i) for i in body["fits"]]

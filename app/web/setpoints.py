@@ -40,9 +40,15 @@ from app.workflow import (
 
 bp = Blueprint("setpoints", __name__)
 
-GOAL_CHOICES = (("maximize", "maximize"), ("minimize", "minimize"),
-                ("target", "target with limits"), ("in_range", "in range"),
-                ("none", "no goal (predict only)"))
+# (form value, words shown): the goal values are the API's (app.analysis.optimize.desirability)
+GOAL_CHOICES = (("maximize", "be as high as possible"), ("minimize", "be as low as possible"),
+                ("target", "hit"), ("within", "stay within limits (not part of D)"),
+                ("none", "only be predicted"))
+# form field (without the _<fit id> suffix) -> (goal key, words for an error message)
+GOAL_INPUTS = (("lower", "lower", "Acceptable lower value"),
+               ("upper", "upper", "Acceptable upper value"),
+               ("target", "target", "Target"), ("shape", "shape", "Shape"),
+               ("weight", "weight", "Weight in D"))
 
 
 @bp.app_template_global("setpoint_proposals")
@@ -80,7 +86,12 @@ def _number(form, name: str, label: str) -> float | None:
 
 
 def parse_proposal_form(form, factors: list[dict[str, Any]]) -> dict[str, Any]:
-    """Fit ids, goals (with spec limits), bounds and fixed values from the proposal form."""
+    """Fit ids, goals (with spec limits), bounds and fixed values from the proposal form.
+
+    Per fit: ``goal_<id>`` (a value of :data:`GOAL_CHOICES`), ``lower_<id>``, ``upper_<id>``,
+    ``target_<id>``, ``shape_<id>`` (and ``shape_above_<id>`` for a target's other side),
+    ``weight_<id>``, ``spec_lower_<id>``, ``spec_upper_<id>``: the API's goal keys, so a form
+    and an API request with the same values propose the same settings."""
     chosen = [parse_id(raw, "fit", "fit") for raw in form.getlist("fit")]
     if not chosen:
         raise WorkflowError("Tick at least one approved fit.", field="fit")
@@ -90,13 +101,17 @@ def parse_proposal_form(form, factors: list[dict[str, Any]]) -> dict[str, Any]:
         goal = form.get(f"goal_{fit_id}", "none")
         if goal == "none":
             continue
-        spec = {"goal": goal}
-        for key, label in (("target", "Target"), ("low", "Lower goal limit"),
-                           ("high", "Upper goal limit"), ("weight", "Weight"),
-                           ("importance", "Importance")):
-            value = _number(form, f"{key}_{fit_id}", f"{label} of fit {fit_id}")
+        spec: dict[str, Any] = {"goal": goal}
+        for name, key, label in GOAL_INPUTS:
+            value = _number(form, f"{name}_{fit_id}", f"{label} of fit {fit_id}")
             if value is not None:
                 spec[key] = value
+        above = _number(form, f"shape_above_{fit_id}", f"Shape above the target of fit {fit_id}")
+        if above is not None:
+            if goal != "target":
+                raise WorkflowError(f"Shape above the target of fit {fit_id} is only used with "
+                                    "a target.", field=f"shape_above_{fit_id}")
+            spec["shape"] = [spec.get("shape", 1.0), above]
         limits = {k: _number(form, f"spec_{k}_{fit_id}", f"Specification {k} limit of fit "
                              f"{fit_id}") for k in ("lower", "upper")}
         if any(v is not None for v in limits.values()):

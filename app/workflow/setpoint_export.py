@@ -59,7 +59,8 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
                                 for s in f.signatures if s.meaning == APPROVE]}
                  for f in fits],
         "goals": goals_of(proposal),
-        "optimum": result["optimum"], "stationary_point": result["stationary_point"],
+        "optimum": result["optimum"], "constraints": result.get("constraints") or {},
+        "stationary_point": result["stationary_point"],
         "region": result["region"], "grid_check": result["grid_check"],
         "tolerance": tolerance_of(session, proposal),
         "signatures": [signature_json(session, proposal, s)
@@ -89,7 +90,7 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
          "intact" if doc["snapshot_intact"] else "ALTERED"],
         ["chain head", doc["chain_head"]["seq"], doc["chain_head"]["hash"]],
         [],
-        ["factor", "setting (actual)", "setting (coded)"],
+        ["factor", "setting (natural units)", "setting (coded units)"],
     ]
     rows += [[name, opt["settings"][name], opt["coded"][name]] for name in opt["settings"]]
     rows += [[], ["response", "predicted", "95% CI low", "95% CI high", "95% PI low",
@@ -98,7 +99,12 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
     for response, value in opt["predicted"].items():
         ci, pi = opt["ci"][response], opt["pi"][response]
         rows.append([response, value, ci[0], ci[1], pi[0], pi[1], each.get(response, "")])
-    rows += [["composite desirability", opt["desirability"]], [],
+    rows += [["overall desirability D", opt["desirability"]]]
+    if doc["constraints"]:
+        rows += [[], ["kept within limits", "lower", "upper", "predicted", "met"]]
+        rows += [[response, c["lower"], c["upper"], c["predicted"],
+                  "met" if c["met"] else "NOT met"] for response, c in doc["constraints"].items()]
+    rows += [[],
              ["fit id", "response", "data version", "snapshot sha256", "approved by",
               "user name", "approved at (UTC)", "meaning"]]
     for fit in doc["fits"]:

@@ -24,7 +24,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session, joinedload
 
 from app.analysis import AnalysisError
-from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError
+from app.analysis.optimize import CAUTION, OutsideRegion, SetpointError, refuse_old_words
 from app.analysis.optimize import propose as search_setpoint
 from app.analysis.rounding import stated_step
 from app.store import audit, keys
@@ -48,9 +48,10 @@ from app.workflow.signing import (
     signature_summary,
 )
 
-GOAL_FIELDS = ("goal", "target", "low", "high", "weight", "importance")
+GOAL_FIELDS = ("goal", "lower", "upper", "target", "shape", "weight")
 
-__all__ = ["CAUTION", "RELEASE", "RELEASE_MEANINGS", "SignatureRefused", "attempt",
+__all__ = ["CAUTION", "GOAL_FIELDS", "RELEASE", "RELEASE_MEANINGS", "SignatureRefused",
+           "attempt",
            "fit_problem", "get_proposal", "manifest_sha256", "propose", "proposal_intact",
            "release", "release_signatures", "signature_check", "signature_summary",
            "snapshot_sha256", "state_label"]
@@ -120,13 +121,29 @@ def _spec_limit(value: Any, response: str, name: str) -> float | None:
     return number
 
 
+def refuse_renamed(goals: Any) -> None:
+    """WorkflowError (400) naming ``goals.<response>.<field>`` when a goal uses a word of the
+    earlier version (low, high, importance, in_range): 'weight' then meant the shape exponent,
+    so such a request is refused with the new name, never guessed at."""
+    if not isinstance(goals, dict):
+        return
+    for response, spec in goals.items():
+        try:
+            refuse_old_words(str(response), spec)
+        except SetpointError as exc:
+            raise WorkflowError(f"{exc}.", field=f"goals.{response}.{exc.field}") from None
+
+
 def split_goals(goals: Any, responses: list[str]) -> tuple[dict, dict]:
     """(search goals, specification limits) from ``{response: {goal…, spec: {lower, upper}}}``.
 
     The specification limits are optional per response and feed the design-space map only.
+    Goal fields are :data:`GOAL_FIELDS`; a word of the earlier version is refused
+    (:func:`refuse_renamed`).
     """
     if not isinstance(goals, dict) or not goals:
         raise WorkflowError("Give a goal for at least one response.", field="goals")
+    refuse_renamed(goals)
     search, specs = {}, {}
     for response, spec in goals.items():
         if response not in responses:
@@ -218,8 +235,9 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
             fixed: dict | None) -> SetpointProposal:
     """Search the design region of approved fits and store the proposal with its hash.
 
-    ``goals`` is ``{response: {goal, target, low, high, weight, importance, spec: {lower,
-    upper}}}``; ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} are in actual
+    ``goals`` is ``{response: {goal, lower, upper, target, shape, weight, spec: {lower,
+    upper}}}`` (goal maximize, minimize, target, or within: keep the response within
+    lower/upper); ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} are in natural
     units. Raises Conflict (409) when a fit may not drive setpoints or a bound or fixed value
     leaves the design region, WorkflowError naming the field for other bad input.
     """

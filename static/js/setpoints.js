@@ -15,13 +15,23 @@
     });
   }
 
+  // Each response's block shows only the fields and words its goal uses; hidden fields are
+  // also disabled so a value typed for another goal is not sent. Without the script every
+  // field shows and the server says which one does not fit the goal.
   function showFields(select) {
-    var row = select.closest("tr");
-    if (!row) { return; }
+    var block = select.closest("fieldset");
+    if (!block) { return; }
     var goal = select.value;
-    row.querySelectorAll("[data-goal-field]").forEach(function (input) {
-      var uses = input.dataset.goalField.split(" ");
-      input.disabled = uses.indexOf(goal) === -1;
+    block.querySelectorAll("[data-goal-field]").forEach(function (part) {
+      var used = part.dataset.goalField.split(" ").indexOf(goal) !== -1;
+      part.hidden = !used;
+      part.querySelectorAll("input").forEach(function (input) { input.disabled = !used; });
+    });
+    block.querySelectorAll("[data-goal-generic]").forEach(function (words) {
+      words.hidden = true;
+    });
+    block.querySelectorAll("[data-goal-words]").forEach(function (words) {
+      words.hidden = words.dataset.goalWords.split(" ").indexOf(goal) === -1;
     });
   }
   document.querySelectorAll("select[data-goal]").forEach(function (select) {

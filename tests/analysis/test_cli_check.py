@@ -115,3 +115,12 @@ def test_goal_text_and_bad_goal():
     assert "CAUTION" in text.output
     bad = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "biggest"])
     assert bad.exit_code == 2 and "goal" in bad.output.lower()
+
+
+def test_earlier_range_goal_is_refused_with_its_new_name():
+    from pathlib import Path
+
+    demo = Path(__file__).resolve().parents[2] / "app" / "demo" / "rsm_demo.csv"
+    old = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "in_range"])
+    assert old.exit_code == 2
+    assert "no longer accepted" in old.output and "'within'" in old.output

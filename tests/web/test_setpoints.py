@@ -296,6 +296,90 @@ def test_api_bad_requests_name_the_field(db, approved, client, payload, field):
     assert _proposal_count(db) == 0
 
 
+@pytest.mark.parametrize("goal, field, new_name", [
+    ({"goal": "maximize", "low": 120}, "goals.Hardness.low", "'lower'"),
+    ({"goal": "maximize", "high": 130}, "goals.Hardness.high", "'upper'"),
+    ({"goal": "maximize", "importance": 2}, "goals.Hardness.importance", "'weight'"),
+    ({"goal": "in_range", "lower": 120}, "goals.Hardness.goal", "'within'"),
+])
+def test_api_refuses_the_earlier_goal_words_with_their_new_names(db, approved, client, goal,
+                                                                  field, new_name):
+    # 'weight' once meant the shape exponent: an old request is refused, never reinterpreted
+    response = client.post("/api/v1/setpoints", json={"fits": [approved[2]],
+                                                      "goals": {"Hardness": goal}},
+                           headers=bearer(db, "erin"))
+    assert response.status_code == 400
+    body = response.get_json()
+    assert body["field"] == field
+    assert "no longer accepted" in body["error"] and new_name in body["error"]
+    assert _proposal_count(db) == 0
+
+
+def test_form_and_api_with_the_same_goals_propose_the_same_settings(db, approved, client,
+                                                                   actions):
+    study_id, version_id, hardness = approved
+    gloss = h.make_fit(db, version_id, response="Gloss")
+    h.submit(db, gloss)
+    h.sign(db, gloss)
+    goals = {"Hardness": {"goal": "maximize", "lower": 110, "shape": 2, "weight": 3},
+             "Gloss": {"goal": "target", "lower": 80, "target": 86, "upper": 92,
+                       "shape": [1, 0.5], "spec": {"lower": 83.0, "upper": None}}}
+    form = {"fit": [str(hardness), str(gloss)],
+            f"goal_{hardness}": "maximize", f"lower_{hardness}": "110",
+            f"shape_{hardness}": "2", f"weight_{hardness}": "3",
+            f"goal_{gloss}": "target", f"lower_{gloss}": "80", f"target_{gloss}": "86",
+            f"upper_{gloss}": "92", f"shape_{gloss}": "1", f"shape_above_{gloss}": "0.5",
+            f"spec_lower_{gloss}": "83", "bound_high_0": "165"}
+    actions.login("erin")
+    posted = actions.post(f"/studies/{study_id}/setpoints/new", form)
+    assert posted.status_code == 302, posted.get_data(as_text=True)
+    web_pid = int(posted.headers["Location"].rsplit("/", 1)[1])
+    actions.logout()
+    created = client.post("/api/v1/setpoints", headers=bearer(db, "erin"), json={
+        "fits": [hardness, gloss], "goals": goals,
+        "bounds": {"Cure temperature": [None, 165]}})
+    assert created.status_code == 201, created.get_json()
+    with db.session() as s:
+        by_web = s.get(SetpointProposal, web_pid)
+        by_api = s.get(SetpointProposal, created.get_json()["id"])
+        assert setpoints.goals_of(by_web) == setpoints.goals_of(by_api)
+        web_result, api_result = setpoints.result_of(by_web), setpoints.result_of(by_api)
+    assert web_result["optimum"]["settings"] == api_result["optimum"]["settings"]
+    assert web_result["optimum"]["desirability"] == api_result["optimum"]["desirability"]
+    assert web_result["goals"]["Gloss"]["shape"] == [1.0, 0.5]
+    assert web_result["goals"]["Hardness"]["weight"] == 3.0
+
+
+def test_form_keeps_a_response_within_limits(db, approved, client, actions):
+    study_id, version_id, hardness = approved
+    gloss = h.make_fit(db, version_id, response="Gloss")
+    h.submit(db, gloss)
+    h.sign(db, gloss)
+    actions.login("erin")
+    page = client.get(f"/studies/{study_id}/setpoints/new").get_data(as_text=True)
+    # one block per response, no grid of goal columns, the new field names
+    assert page.count('class="response-goal') == 2 and "<table class=\"goals" not in page
+    for name in ("lower", "upper", "target", "shape", "weight"):
+        assert f'name="{name}_{gloss}"' in page
+    for old in (f'name="low_{gloss}"', f'name="high_{gloss}"', "importance", "in_range",
+                "in range", "omposite"):
+        assert old not in page
+    posted = actions.post(f"/studies/{study_id}/setpoints/new", {
+        "fit": [str(hardness), str(gloss)], f"goal_{hardness}": "maximize",
+        f"goal_{gloss}": "within", f"lower_{gloss}": "-1000"})
+    assert posted.status_code == 302, posted.get_data(as_text=True)
+    with db.session() as s:
+        proposal = s.get(SetpointProposal, int(posted.headers["Location"].rsplit("/", 1)[1]))
+        result = setpoints.result_of(proposal)
+    assert result["constraints"]["Gloss"]["met"] is True
+    assert "Gloss" not in result["optimum"]["individual_desirability"]
+    refused = actions.post(f"/studies/{study_id}/setpoints/new", {
+        "fit": [str(hardness), str(gloss)], f"goal_{hardness}": "maximize",
+        f"goal_{gloss}": "within", f"lower_{gloss}": "-1000", f"weight_{gloss}": "2"})
+    assert refused.status_code == 400
+    assert 'data-field="weight"' in refused.get_data(as_text=True)
+
+
 def test_study_link_snippet_lists_proposals(app, db, approved):
     from flask import g, render_template_string
 

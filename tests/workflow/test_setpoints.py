@@ -160,7 +160,11 @@ def test_request_leaving_the_design_region_is_a_conflict(db, approved, bounds, f
     ({"Hardness": {"goal": "highest"}}, "goal"),
     ({"Viscosity": {"goal": "maximize"}}, "goals"),
     ({"Hardness": {"goal": "maximize", "spec": {"lower": "soft"}}}, "goals.Hardness.spec.lower"),
-    ({"Hardness": {"goal": "target", "target": 130, "low": 125, "high": 128}}, "target"),
+    ({"Hardness": {"goal": "target", "target": 130, "lower": 125, "upper": 128}}, "target"),
+    ({"Hardness": {"goal": "maximize", "low": 125}}, "goals.Hardness.low"),
+    ({"Hardness": {"goal": "maximize", "importance": 2}}, "goals.Hardness.importance"),
+    ({"Hardness": {"goal": "in_range", "lower": 100}}, "goals.Hardness.goal"),
+    ({"Hardness": {"goal": "within", "lower": 100}}, "goals"),
 ])
 def test_bad_goals_name_the_field(db, approved, goals, field):
     _, _, fit_id = approved

@@ -14,7 +14,7 @@ from ..predict import predict
 from .canonical import RIDGE_RATIO, SetpointError, Surface, canonical_analysis, classify
 from .check import desirability_check, goal_met_set, optimise_response
 from .design_space import design_space
-from .desirability import Goal, composite, parse_goal
+from .desirability import DESIRABILITY_GOALS, Goal, overall, parse_goal, refuse_old_words
 from .region import OutsideRegion, Region, build_region, load_fits, observed_range
 from .search import DESIRABILITY_TOL, search
 
@@ -24,7 +24,7 @@ CAUTION = ("The model holds only inside the tested region. Confirmation runs are
 
 __all__ = ["CAUTION", "RIDGE_RATIO", "Goal", "OutsideRegion", "Region", "SetpointError",
            "Surface", "canonical_analysis", "classify", "design_space", "parse_goal", "propose",
-           "single_goal"]
+           "refuse_old_words", "single_goal"]
 
 
 def _setup(results_by_response, bounds, fixed):
@@ -101,7 +101,8 @@ def _grid_check_of(check: dict, objective_name: str) -> dict:
 
 
 def _single_response_goal(goals: dict) -> tuple[str, str] | None:
-    """(response, maximize|minimize) when the proposal has one goal and it is one of those."""
+    """(response, maximize|minimize) when the proposal has one goal, it is one of those, and no
+    response is kept within limits."""
     if len(goals) != 1:
         return None
     response, spec = next(iter(goals.items()))
@@ -121,19 +122,23 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
             fixed=None, seed: int = 0) -> dict:
     """Setpoints from one or more fitted responses.
 
-    One response with goal maximize or minimize: the predicted response itself is optimised
-    inside the region (:func:`optimise_response`), checked against a dense search and the
-    canonical analysis. Otherwise (targets, ranges, several responses) the Derringer–Suich
-    overall desirability D is maximised; a maximize/minimize limit left out is set so that d
-    reaches 1 only at the best prediction in the region (:func:`parse_goal`), and when D = 1
-    over a set of settings ``goal_met_set`` describes that set.
+    One response with goal maximize or minimize (and no limits to keep within): the predicted
+    response itself is optimised inside the region (:func:`optimise_response`), checked against
+    a dense search and the canonical analysis. Otherwise (targets, several responses, limits to
+    keep within) the Derringer–Suich overall desirability D is maximised; a maximize/minimize
+    limit left out is set so that d reaches 1 only at the best prediction in the region
+    (:func:`parse_goal`), and when D = 1 over a set of settings ``goal_met_set`` describes that
+    set. A response with goal ``within`` is a constraint: settings whose prediction lies outside
+    its lower/upper are not allowed (D = 0 there), and it has no weight in D. The result's
+    ``constraints`` says for each whether the proposal meets it.
 
     ``results_by_response`` maps a response name to its fit's result document
-    (``FitResult.to_dict()``); ``goals`` maps a response to ``{goal, target, low, high, weight,
-    importance}``; ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} are in actual
-    units. Responses without a goal are predicted but do not enter D. Predictions with 95 % CI
-    and PI at the optimum come from :func:`app.analysis.predict`. Verified in
-    tests/analysis/optimize/test_search.py, test_true_optimum.py and test_refusals.py.
+    (``FitResult.to_dict()``); ``goals`` maps a response to ``{goal, lower, upper, target,
+    shape, weight}``; ``bounds`` {factor: [low, high]} and ``fixed`` {factor: value} are in
+    natural units. Responses without a goal are predicted but do not enter D. Predictions with
+    95 % CI and PI at the optimum come from :func:`app.analysis.predict`. Verified in
+    tests/analysis/optimize/test_search.py, test_true_optimum.py, test_refusals.py and
+    test_within.py.
     """
     fits, region, surfaces = _setup(results_by_response, bounds, fixed)
     if not isinstance(goals, dict) or not goals:
@@ -142,29 +147,57 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
     if unknown:
         raise SetpointError(f"Goal names response '{unknown[0]}', which has no fit here "
                             f"(fits: {', '.join(surfaces)})", field="goals")
+    for r, spec in goals.items():
+        refuse_old_words(r, spec)
     achievable = {r: _achievable(region, surfaces[r], seed) for r, spec in goals.items()
                   if isinstance(spec, dict)
                   and str(spec.get("goal", "")).strip().lower() in ("maximize", "minimize")}
-    parsed = {r: parse_goal(r, spec, observed_range(fits.results[r]), achievable.get(r))
-              for r, spec in goals.items()}
+    every = {r: parse_goal(r, spec, observed_range(fits.results[r]), achievable.get(r))
+             for r, spec in goals.items()}
+    parsed = {r: g for r, g in every.items() if not g.is_constraint}
+    kept = {r: g for r, g in every.items() if g.is_constraint}
+    if not parsed:
+        raise SetpointError("Keeping responses within limits needs at least one response to "
+                            f"{', '.join(DESIRABILITY_GOALS)}", field="goals")
 
     def individual(coded: np.ndarray) -> dict[str, np.ndarray]:
         return {r: g.desirability(surfaces[r].response_scale(coded)) for r, g in parsed.items()}
 
-    def overall(coded: np.ndarray) -> np.ndarray:
+    def big_d_at(coded: np.ndarray) -> np.ndarray:
         with np.errstate(all="ignore"):
-            return composite(individual(coded), parsed)
+            value = overall(individual(coded), parsed)
+        return np.where(feasible(coded), value, 0.0) if kept else value
 
+    def margins(coded: np.ndarray) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return np.hstack([g.margins(surfaces[r].response_scale(coded))
+                              for r, g in kept.items()])
+
+    def feasible(coded: np.ndarray) -> np.ndarray:
+        coded = np.atleast_2d(coded)
+        with np.errstate(all="ignore"):
+            return np.all([g.met(surfaces[r].response_scale(coded)) for r, g in kept.items()],
+                          axis=0)
+
+    def smooth(coded: np.ndarray) -> np.ndarray:
+        with np.errstate(all="ignore"):
+            return -overall(individual(coded), parsed)
+
+    limits = {"constraints": margins, "feasible": feasible} if kept else {}
     single = _single_response_goal(goals)
     if single is not None:
         response, sense = single
         best_response = optimise_response(region, surfaces[response], sense, seed=seed)
         best, check = best_response.coded, best_response.check
         # the dense search of D shows whether limits the engineer set are met over a set
-        found = search(region, lambda c: -overall(c), seed=seed, tolerance=DESIRABILITY_TOL)
+        found = search(region, smooth, seed=seed, tolerance=DESIRABILITY_TOL)
     else:
-        found = search(region, lambda c: -overall(c), seed=seed, tolerance=DESIRABILITY_TOL)
-        check = desirability_check(region, found, lambda c: overall(np.atleast_2d(c))[0])
+        found = search(region, smooth, seed=seed, tolerance=DESIRABILITY_TOL, **limits)
+        if found.coded is None or not np.isfinite(found.objective):
+            raise SetpointError("No setting in the region keeps "
+                                f"{', '.join(kept)} within the limits given; relax them",
+                                field="goals")
+        check = desirability_check(region, found, lambda c: big_d_at(np.atleast_2d(c))[0])
         best = found.coded
     met_set = goal_met_set(region, found, -found.dense_values)
     if single is None and met_set is not None:
@@ -174,10 +207,16 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
         check["proposal"]["from"] = "goal met over a set: its point nearest the design centre"
     coded, settings = _point(region, best)
     preds = {r: predict(doc, settings) for r, doc in fits.results.items()}
-    d_each = {r: float(g.desirability(preds[r]["predicted"]
-                                      if preds[r]["predicted"] is not None else np.nan))
-              for r, g in parsed.items()}
-    big_d = float(composite({r: np.array(v) for r, v in d_each.items()}, parsed))
+
+    def predicted(r: str) -> float:
+        return preds[r]["predicted"] if preds[r]["predicted"] is not None else np.nan
+
+    d_each = {r: float(g.desirability(predicted(r))) for r, g in parsed.items()}
+    big_d = float(overall({r: np.array(v) for r, v in d_each.items()}, parsed))
+    constraints = {r: {"lower": g.lower, "upper": g.upper, "predicted": preds[r]["predicted"],
+                       "met": bool(g.met(predicted(r))[0])} for r, g in kept.items()}
+    if not all(c["met"] for c in constraints.values()):
+        big_d = 0.0
     grads = {r: _gradients(region, s, best) for r, s in surfaces.items()}
     optimum = {"coded": coded, "settings": settings,
                "predicted": {r: p["predicted"] for r, p in preds.items()},
@@ -199,9 +238,11 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
             "stationary_point": {r: _stationary(region, s, fits.results[r])
                                  for r, s in surfaces.items()},
             "region": _region_doc(fits, region),
-            "goals": {r: g.to_dict() for r, g in parsed.items()},
+            "goals": {r: g.to_dict() for r, g in every.items()},
+            "constraints": constraints,
             "note": None if big_d > 0 else ("No setting in the region gives every response a "
-                                            "desirability above zero; relax the goals"),
+                                            "desirability above zero while keeping the limits; "
+                                            "relax the goals"),
             "caution": CAUTION}
 
 
@@ -209,6 +250,11 @@ def _parse_cli_goal(goal: str) -> tuple[str, float | None]:
     text = str(goal).strip().lower()
     if text in ("maximize", "minimize"):
         return text, None
+    if text.replace("-", "_").replace(" ", "_").split("=")[0] in ("in_range", "within"):
+        raise SetpointError(f"Goal '{goal}': 'in_range' is no longer accepted; keeping a "
+                            "response within limits (goal 'within') is a constraint beside a "
+                            "goal, made in a proposal (web form or API), not a goal of its own",
+                            field="goal")
     if text.startswith("target="):
         try:
             value = float(text.split("=", 1)[1])

@@ -30,7 +30,7 @@ from .search import DESIRABILITY_TOL, SearchResult, search
 # confirmation run can resolve, and far above the optimisers' convergence.
 GAP_RELATIVE_TOL = 1e-3
 
-# D counts as 1 from here: the composite of values that are each exactly 1 may round below 1.
+# D counts as 1 from here: D of values that are each exactly 1 may round below 1.
 MET = 1.0 - 1e-9
 
 

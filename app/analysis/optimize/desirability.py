@@ -1,17 +1,22 @@
-"""Derringer–Suich desirabilities and their importance-weighted geometric mean.
+"""Derringer–Suich desirabilities, their weighted geometric mean D, and limits to keep within.
 
-Each goal maps a predicted response y to d in [0, 1]:
+Each goal maps a predicted response y to d in [0, 1], with acceptable lower value L and upper
+value U and shape exponent s (Derringer & Suich's r, s, t):
 
-* maximize, limits L < U: d = 0 for y <= L, ((y - L)/(U - L))^s between, 1 for y >= U;
-* minimize, limits L < U: d = 1 for y <= L, ((U - y)/(U - L))^s between, 0 for y >= U;
-* target T with limits L < T < U: ((y - L)/(T - L))^s on [L, T], ((U - y)/(U - T))^t on
-  [T, U], 0 outside;
-* in_range, limits L and/or U: d = 1 inside, 0 outside.
+* maximize: d = 0 for y <= L, ((y - L)/(U - L))^s between, 1 for y >= U;
+* minimize: d = 1 for y <= L, ((U - y)/(U - L))^s between, 0 for y >= U;
+* target T with L < T < U: ((y - L)/(T - L))^s on [L, T], ((U - y)/(U - T))^t on [T, U],
+  0 outside (``shape`` one number, or [s, t] = [below, above]).
 
-The composite D = (prod d_i^r_i)^(1 / sum r_i) with importance r_i. References: Derringer &
-Suich, J. Quality Technology 12 (1980) 214-219 (shapes s, t); Derringer, Quality Progress 27(6)
-(1994) 51-58 (importance). Verified against values worked by hand in
-tests/analysis/optimize/test_desirability.py.
+The overall desirability D = (prod d_i^w_i)^(1 / sum w_i) with relative weight w_i (default 1).
+
+A response may instead be kept within limits (goal ``within``, with ``lower`` and/or ``upper``):
+that is a constraint on the search, not a desirability. Settings whose prediction lies outside
+are not allowed; the response takes no part in D or its weights.
+
+References: Derringer & Suich, J. Quality Technology 12 (1980) 214-219 (d and the shapes);
+Derringer, Quality Progress 27(6) (1994) 51-58 (the weighted geometric mean). Verified against
+values worked by hand in tests/analysis/optimize/test_desirability.py.
 """
 
 from __future__ import annotations
@@ -23,8 +28,37 @@ import numpy as np
 
 from .canonical import SetpointError
 
-GOALS = ("maximize", "minimize", "target", "in_range")
-FIELDS = ("goal", "target", "low", "high", "weight", "importance")
+GOALS = ("maximize", "minimize", "target", "within")
+DESIRABILITY_GOALS = ("maximize", "minimize", "target")
+FIELDS = ("goal", "lower", "upper", "target", "shape", "weight")
+# Words an earlier version accepted. 'weight' then meant the shape exponent, so a request using
+# them is ambiguous and is refused with the new name rather than guessed at.
+RENAMED_FIELDS = {"low": "lower", "high": "upper", "importance": "weight"}
+RENAMED_GOALS = {"in_range": "within", "in range": "within"}
+RENAMED_HELP = {
+    "low": "'lower' (the acceptable lower value)",
+    "high": "'upper' (the acceptable upper value)",
+    "importance": "'weight' (the relative weight in D; the shape exponent is now 'shape')",
+    "in_range": "goal 'within' (keep the response within lower/upper: a constraint, not a "
+                "desirability)",
+}
+# A limit to keep within counts as met up to this share of its scale (the optimiser stops a
+# hair either side of an active constraint).
+WITHIN_TOL = 1e-7
+
+
+def refuse_old_words(response: str, spec) -> None:
+    """Raise SetpointError naming the field when ``spec`` uses a word this version renamed."""
+    if not isinstance(spec, dict):
+        return
+    for old in RENAMED_FIELDS:
+        if old in spec:
+            raise SetpointError(f"Goal for '{response}': '{old}' is no longer accepted; use "
+                                f"{RENAMED_HELP[old]}", field=old)
+    goal = spec.get("goal")
+    if isinstance(goal, str) and goal.strip().lower() in RENAMED_GOALS:
+        raise SetpointError(f"Goal for '{response}': goal '{goal}' is no longer accepted; use "
+                            f"{RENAMED_HELP['in_range']}", field="goal")
 
 
 @dataclass(frozen=True)
@@ -33,55 +67,77 @@ class Goal:
 
     response: str
     goal: str
-    low: float | None
-    high: float | None
+    lower: float | None
+    upper: float | None
     target: float | None = None
-    weight_low: float = 1.0
-    weight_high: float = 1.0
-    importance: float = 1.0
+    shape_below: float = 1.0
+    shape_above: float = 1.0
+    weight: float = 1.0
     limits_from: str = "request"
+
+    @property
+    def is_constraint(self) -> bool:
+        """True for a limit to keep within: no desirability, no weight in D."""
+        return self.goal == "within"
 
     def desirability(self, y: np.ndarray | float) -> np.ndarray:
         """d for each predicted value; a value with no prediction (NaN) gets 0."""
+        if self.is_constraint:
+            raise ValueError(f"'{self.response}' is kept within limits; it has no desirability")
         y = np.asarray(y, dtype=float)
-        d = np.zeros_like(y)
         ok = np.isfinite(y)
         yy = np.where(ok, y, 0.0)
-        lo, hi = self.low, self.high
+        lo, hi = self.lower, self.upper
         if self.goal == "maximize":
-            frac = np.clip((yy - lo) / (hi - lo), 0.0, 1.0)
-            d = frac ** self.weight_low
+            d = np.clip((yy - lo) / (hi - lo), 0.0, 1.0) ** self.shape_below
         elif self.goal == "minimize":
-            frac = np.clip((hi - yy) / (hi - lo), 0.0, 1.0)
-            d = frac ** self.weight_low
-        elif self.goal == "target":
-            t = self.target
-            below = np.clip((yy - lo) / (t - lo), 0.0, 1.0) ** self.weight_low
-            above = np.clip((hi - yy) / (hi - t), 0.0, 1.0) ** self.weight_high
-            d = np.where(yy <= t, below, above)
+            d = np.clip((hi - yy) / (hi - lo), 0.0, 1.0) ** self.shape_below
         else:
-            inside = np.ones_like(yy, dtype=bool)
-            if lo is not None:
-                inside &= yy >= lo
-            if hi is not None:
-                inside &= yy <= hi
-            d = inside.astype(float)
+            t = self.target
+            below = np.clip((yy - lo) / (t - lo), 0.0, 1.0) ** self.shape_below
+            above = np.clip((hi - yy) / (hi - t), 0.0, 1.0) ** self.shape_above
+            d = np.where(yy <= t, below, above)
         return np.where(ok, d, 0.0)
 
+    def margins(self, y: np.ndarray | float) -> np.ndarray:
+        """For a limit to keep within: (n, 2) distances inside the lower and the upper limit,
+        each scaled by the limits' size; >= 0 where met (a missing limit is always met)."""
+        y = np.atleast_1d(np.asarray(y, dtype=float))
+        scale = _scale(self.lower, self.upper)
+        lo = (y - self.lower) / scale if self.lower is not None else np.ones_like(y)
+        hi = (self.upper - y) / scale if self.upper is not None else np.ones_like(y)
+        out = np.stack([lo, hi], axis=-1)
+        return np.where(np.isfinite(out), out, -np.inf)
+
+    def met(self, y: np.ndarray | float) -> np.ndarray:
+        """Where a limit to keep within holds (to :data:`WITHIN_TOL` of its scale)."""
+        return np.all(self.margins(y) >= -WITHIN_TOL, axis=-1)
+
     def to_dict(self) -> dict:
-        return {"goal": self.goal, "low": self.low, "high": self.high, "target": self.target,
-                "weight": [self.weight_low, self.weight_high] if self.goal == "target"
-                else self.weight_low,
-                "importance": self.importance, "limits_from": self.limits_from}
+        if self.is_constraint:
+            return {"goal": self.goal, "lower": self.lower, "upper": self.upper,
+                    "limits_from": self.limits_from}
+        return {"goal": self.goal, "lower": self.lower, "upper": self.upper,
+                "target": self.target,
+                "shape": [self.shape_below, self.shape_above] if self.goal == "target"
+                else self.shape_below,
+                "weight": self.weight, "limits_from": self.limits_from}
 
 
-def composite(d: dict[str, np.ndarray], goals: dict[str, Goal]) -> np.ndarray:
-    """Importance-weighted geometric mean D = (prod d_i^r_i)^(1/sum r_i); 0 if any d_i is 0."""
-    total = sum(g.importance for g in goals.values())
-    arrays = [np.asarray(d[name], dtype=float) for name in goals]
+def _scale(lower: float | None, upper: float | None) -> float:
+    if lower is not None and upper is not None:
+        return max(upper - lower, 1e-300)
+    return max(abs(lower if lower is not None else upper), 1.0)
+
+
+def overall(d: dict[str, np.ndarray], goals: dict[str, Goal]) -> np.ndarray:
+    """Overall desirability D = (prod d_i^w_i)^(1/sum w_i) over the desirability goals (limits
+    to keep within are left out); 0 if any d_i is 0."""
+    used = [name for name, g in goals.items() if not g.is_constraint]
+    total = sum(goals[name].weight for name in used)
     with np.errstate(divide="ignore"):
-        log_sum = sum(goals[name].importance * np.log(a) for name, a in zip(goals, arrays,
-                                                                             strict=True))
+        log_sum = sum(goals[name].weight * np.log(np.asarray(d[name], dtype=float))
+                      for name in used)
     return np.exp(log_sum / total)
 
 
@@ -101,106 +157,126 @@ def _number(value, response: str, field: str, positive: bool = False) -> float:
     return v
 
 
-def _weights(raw, response: str, goal: str) -> tuple[float, float]:
+def _shapes(raw, response: str, goal: str) -> tuple[float, float]:
     if raw is None:
         return 1.0, 1.0
     if isinstance(raw, (list, tuple)):
         if goal != "target" or len(raw) != 2:
-            raise SetpointError(f"Goal for '{response}': weight is one number, or two "
-                                "[below, above] for a target goal", field="weight")
-        return (_number(raw[0], response, "weight", positive=True),
-                _number(raw[1], response, "weight", positive=True))
-    w = _number(raw, response, "weight", positive=True)
-    return w, w
+            raise SetpointError(f"Goal for '{response}': shape is one number, or two "
+                                "[below, above] for a target goal", field="shape")
+        return (_number(raw[0], response, "shape", positive=True),
+                _number(raw[1], response, "shape", positive=True))
+    s = _number(raw, response, "shape", positive=True)
+    return s, s
 
 
 def parse_goal(response: str, spec: dict, observed: tuple[float, float] | None,
                achievable: tuple[float, float] | None = None) -> Goal:
-    """Validate one goal dict ``{goal, target, low, high, weight, importance}``.
+    """Validate one goal dict ``{goal, lower, upper, target, shape, weight}``.
 
-    A missing limit is filled in. For maximize and minimize, with ``achievable`` (the least and
-    greatest prediction inside the search region) given, the fully desirable end (high for
-    maximize, low for minimize) is the best prediction in the region, so d reaches 1 only at the
-    region's optimum and never saturates over a set; the other end is the observed range's
-    (or the region's worst prediction when that would not leave low < high). Without
-    ``achievable``, and for target, both come from ``observed`` (min and max of the included
-    runs). in_range needs at least one limit. Errors name the response and the field.
+    ``lower`` and ``upper`` are the acceptable lower and upper values. A missing one is filled
+    in. For maximize and minimize, with ``achievable`` (the least and greatest prediction inside
+    the search region) given, the fully satisfying end (upper for maximize, lower for minimize)
+    is the best prediction in the region, so d reaches 1 only at the region's optimum and never
+    saturates over a set; the other end is the observed range's (or the region's worst
+    prediction when that would not leave lower < upper). Without ``achievable``, and for
+    target, both come from ``observed`` (min and max of the included runs). ``within`` (keep
+    the response within limits) needs at least one limit and takes no shape or weight. Words
+    of an earlier version (low, high, importance, in_range) are refused with the new name.
+    Errors name the response and the field.
     """
     if not isinstance(spec, dict):
         raise SetpointError(f"Goal for '{response}' must be an object with a 'goal' field",
                             field="goal")
+    refuse_old_words(response, spec)
     unknown = sorted(set(spec) - set(FIELDS))
     if unknown:
         raise SetpointError(f"Goal for '{response}': unknown field '{unknown[0]}' (allowed: "
                             f"{', '.join(FIELDS)})", field=unknown[0])
-    name = str(spec.get("goal", "")).strip().lower().replace(" ", "_").replace("-", "_")
+    name = str(spec.get("goal", "")).strip().lower()
     if name not in GOALS:
         raise SetpointError(f"Goal for '{response}': goal must be one of {', '.join(GOALS)} "
                             f"(got {spec.get('goal')!r})", field="goal")
-    low = None if spec.get("low") is None else _number(spec["low"], response, "low")
-    high = None if spec.get("high") is None else _number(spec["high"], response, "high")
+    lower = None if spec.get("lower") is None else _number(spec["lower"], response, "lower")
+    upper = None if spec.get("upper") is None else _number(spec["upper"], response, "upper")
     target = None if spec.get("target") is None else _number(spec["target"], response, "target")
-    w_low, w_high = _weights(spec.get("weight"), response, name)
-    importance = (1.0 if spec.get("importance") is None
-                  else _number(spec["importance"], response, "importance", positive=True))
-    if name in ("maximize", "minimize", "in_range") and target is not None:
+    if name == "within":
+        return _within(response, spec, lower, upper, target)
+    shape_below, shape_above = _shapes(spec.get("shape"), response, name)
+    weight = (1.0 if spec.get("weight") is None
+              else _number(spec["weight"], response, "weight", positive=True))
+    if name in ("maximize", "minimize") and target is not None:
         raise SetpointError(f"Goal for '{response}': target is only used with goal target; "
-                            f"{name} uses low and high", field="target")
+                            f"{name} uses lower and upper", field="target")
     if name == "target" and target is None:
         raise SetpointError(f"Goal for '{response}': goal target needs a target value",
                             field="target")
     limits_from = "request"
-    if name == "in_range":
-        if low is None and high is None:
-            raise SetpointError(f"Goal for '{response}': in_range needs low, high or both",
-                                field="low")
-    elif (low is None or high is None) and achievable is not None and name != "target":
-        low, high, limits_from = _from_region(name, low, high, observed, achievable)
-    elif low is None or high is None:
+    if (lower is None or upper is None) and achievable is not None and name != "target":
+        lower, upper, limits_from = _from_region(name, lower, upper, observed, achievable)
+    elif lower is None or upper is None:
         if observed is None:
-            missing = "low" if low is None else "high"
+            missing = "lower" if lower is None else "upper"
             raise SetpointError(f"Goal for '{response}': give {missing} (no observed values to "
                                 "take it from)", field=missing)
-        limits_from = ("observed range" if low is None and high is None
+        limits_from = ("observed range" if lower is None and upper is None
                        else "request and observed range")
-        low = observed[0] if low is None else low
-        high = observed[1] if high is None else high
-    if low is not None and high is not None and not low < high:
-        raise SetpointError(f"Goal for '{response}': low ({low:g}) must be less than high "
-                            f"({high:g})", field="low")
-    if name == "target" and not low < target < high:
-        hint = " (limits taken from the observed range; give low and high)" if (
+        lower = observed[0] if lower is None else lower
+        upper = observed[1] if upper is None else upper
+    if not lower < upper:
+        raise SetpointError(f"Goal for '{response}': lower ({lower:g}) must be less than upper "
+                            f"({upper:g})", field="lower")
+    if name == "target" and not lower < target < upper:
+        hint = " (limits taken from the observed range; give lower and upper)" if (
             limits_from != "request") else ""
         raise SetpointError(f"Goal for '{response}': target {target:g} must lie strictly between "
-                            f"low {low:g} and high {high:g}{hint}", field="target")
-    return Goal(response=response, goal=name, low=low, high=high, target=target,
-                weight_low=w_low, weight_high=w_high, importance=importance,
+                            f"lower {lower:g} and upper {upper:g}{hint}", field="target")
+    return Goal(response=response, goal=name, lower=lower, upper=upper, target=target,
+                shape_below=shape_below, shape_above=shape_above, weight=weight,
                 limits_from=limits_from)
 
 
-def _from_region(name: str, low: float | None, high: float | None,
+def _within(response: str, spec: dict, lower: float | None, upper: float | None,
+            target: float | None) -> Goal:
+    """A limit to keep within: lower and/or upper only."""
+    for field in ("target", "shape", "weight"):
+        if spec.get(field) is not None:
+            raise SetpointError(f"Goal for '{response}': {field} is not used when the response "
+                                "is kept within limits (it is a constraint, not part of D)",
+                                field=field)
+    if lower is None and upper is None:
+        raise SetpointError(f"Goal for '{response}': keeping within limits needs lower, upper "
+                            "or both", field="lower")
+    if lower is not None and upper is not None and not lower < upper:
+        raise SetpointError(f"Goal for '{response}': lower ({lower:g}) must be less than upper "
+                            f"({upper:g})", field="lower")
+    return Goal(response=response, goal="within", lower=lower, upper=upper, target=target,
+                weight=0.0)
+
+
+def _from_region(name: str, lower: float | None, upper: float | None,
                  observed: tuple[float, float] | None,
                  achievable: tuple[float, float]) -> tuple[float, float, str]:
-    """Missing maximize/minimize limits: the fully desirable end at the region's best
+    """Missing maximize/minimize limits: the fully satisfying end at the region's best
     prediction, the other end at the observed range's (or the region's worst prediction)."""
     least, greatest = achievable
-    parts = [] if low is None and high is None else ["request"]
+    parts = [] if lower is None and upper is None else ["request"]
     if name == "maximize":
-        if high is None:
-            high = greatest
-            parts.append("high: greatest prediction in the region")
-        if low is None:
-            use_observed = observed is not None and observed[0] < high
-            low = observed[0] if use_observed else least
-            parts.append("low: observed minimum" if use_observed
-                         else "low: least prediction in the region")
+        if upper is None:
+            upper = greatest
+            parts.append("upper: greatest prediction in the region")
+        if lower is None:
+            use_observed = observed is not None and observed[0] < upper
+            lower = observed[0] if use_observed else least
+            parts.append("lower: observed minimum" if use_observed
+                         else "lower: least prediction in the region")
     else:
-        if low is None:
-            low = least
-            parts.append("low: least prediction in the region")
-        if high is None:
-            use_observed = observed is not None and observed[1] > low
-            high = observed[1] if use_observed else greatest
-            parts.append("high: observed maximum" if use_observed
-                         else "high: greatest prediction in the region")
-    return low, high, "; ".join(parts)
+        if lower is None:
+            lower = least
+            parts.append("lower: least prediction in the region")
+        if upper is None:
+            use_observed = observed is not None and observed[1] > lower
+            upper = observed[1] if use_observed else greatest
+            parts.append("upper: observed maximum" if use_observed
+                         else "upper: greatest prediction in the region")
+    return lower, upper, "; ".join(parts)

@@ -8,6 +8,10 @@ with the same points pushed out radially onto its surface, where many optima lie
 reported and ``agrees`` says whether the local search did at least as well as the dense search;
 when it did not, the dense search's best point is polished and the better of the two is taken.
 
+Constraints on predicted responses (limits to keep within) are inequality constraints: the
+dense search leaves out the points that break one, and the local search runs SLSQP with them,
+keeping only the answers that meet them.
+
 The local search sees the objective shifted and scaled by its median and spread over the dense
 points, so the stopping rules act alike whatever the units or offset of the response.
 """
@@ -102,8 +106,11 @@ def _starts(region: Region, rng: np.random.Generator) -> np.ndarray:
     return np.array(starts[:wanted])
 
 
+Margins = Callable[[np.ndarray], np.ndarray]   # full coded rows -> (n, m), >= 0 where met
+
+
 def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start: np.ndarray,
-           offset: float = 0.0, scale: float = 1.0):
+           offset: float = 0.0, scale: float = 1.0, constraints: Margins | None = None):
     free = region.free
     bounds = list(zip(region.lower[free], region.upper[free], strict=True))
 
@@ -114,10 +121,14 @@ def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start:
         # SLSQP may step a hair past a bound and says so; the point is clipped just below
         warnings.filterwarnings("ignore", message="Values in x were outside bounds",
                                 category=RuntimeWarning)
+        cons = []
+        if constraints is not None:
+            cons.append({"type": "ineq", "fun": lambda z: constraints(_embed(region, z))[0]})
         if region.kind == "sphere":
             fixed_sq = sum(v**2 for v in region.fixed.values())
-            cons = [{"type": "ineq", "fun": lambda z: region.radius**2 - fixed_sq - z @ z,
-                     "jac": lambda z: -2.0 * z}]
+            cons.append({"type": "ineq", "fun": lambda z: region.radius**2 - fixed_sq - z @ z,
+                         "jac": lambda z: -2.0 * z})
+        if cons:
             res = optimize.minimize(f, start, method="SLSQP", bounds=bounds, constraints=cons,
                                     options={"maxiter": 200, "ftol": 1e-10})
         else:
@@ -135,14 +146,23 @@ def _local(region: Region, objective: Callable[[np.ndarray], np.ndarray], start:
 
 
 def search(region: Region, objective: Callable[[np.ndarray], np.ndarray], seed: int = 0,
-           tolerance: float | None = None) -> SearchResult:
+           tolerance: float | None = None, constraints: Margins | None = None,
+           feasible: Callable[[np.ndarray], np.ndarray] | None = None) -> SearchResult:
     """Minimise a vectorised ``objective`` (rows of full coded points -> values) over ``region``.
 
     ``tolerance`` is the objective slack allowed between the local and the grid optimum for them
     to agree (default: 1e-3 of the objective's spread over the grid). Verified in
     tests/analysis/optimize/test_search.py (stays inside, respects bounds and fixed values,
     matches the grid and known optima).
+
+    ``constraints`` maps full coded rows to an (n, m) array of margins, each >= 0 where a
+    constraint is met (smooth, for SLSQP); ``feasible`` maps rows to booleans with the
+    tolerance the caller reports with. Points that are not feasible are never chosen.
+    Verified in tests/analysis/optimize/test_within.py against a dense brute-force grid.
     """
+    if feasible is None and constraints is not None:
+        def feasible(rows):
+            return np.all(constraints(rows) >= 0, axis=-1)
     rng = np.random.default_rng(seed)
     if not region.free:
         point = _embed(region, np.zeros((1, 0)))[0]
@@ -153,6 +173,8 @@ def search(region: Region, objective: Callable[[np.ndarray], np.ndarray], seed: 
         points = np.clip(0.0, region.lower[region.free], region.upper[region.free])[None, :]
     values = objective(_embed(region, points))
     values = np.where(np.isfinite(values), values, np.inf)
+    if feasible is not None:
+        values = np.where(feasible(_embed(region, points)), values, np.inf)
     g = int(np.argmin(values))
     grid_coded, grid_value = _embed(region, points[g])[0], float(values[g])
     finite = values[np.isfinite(values)]
@@ -164,16 +186,18 @@ def search(region: Region, objective: Callable[[np.ndarray], np.ndarray], seed: 
     starts = _starts(region, rng)
     best, best_value = None, np.inf
     for start in starts:
-        point, value = _local(region, objective, start, offset, scale)
-        if np.isfinite(value) and value < best_value and region.inside(point):
+        point, value = _local(region, objective, start, offset, scale, constraints)
+        if (np.isfinite(value) and value < best_value and region.inside(point)
+                and _allowed(feasible, point)):
             best, best_value = point, value
     local_value, local_coded = best_value, best
     agrees = bool(local_value <= grid_value + tolerance)
     source = "local"
     if not agrees:
-        point, value = _local(region, objective, points[g], offset, scale)
+        point, value = _local(region, objective, points[g], offset, scale, constraints)
         best, best_value, source = ((point, value, "grid, polished")
                                     if value < grid_value and region.inside(point)
+                                    and _allowed(feasible, point)
                                     else (grid_coded, grid_value, "grid"))
     return SearchResult(coded=best, objective=float(best_value), local_objective=float(local_value),
                         local_coded=local_coded,
@@ -182,3 +206,6 @@ def search(region: Region, objective: Callable[[np.ndarray], np.ndarray], seed: 
                         dense_coded=_embed(region, points), dense_values=values,
                         tolerance=float(tolerance))
 
+
+def _allowed(feasible, point: np.ndarray) -> bool:
+    return feasible is None or bool(feasible(point[None, :])[0])

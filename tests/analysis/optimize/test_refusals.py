@@ -8,7 +8,7 @@ from app.analysis.optimize.region import build_region
 from .fits import ROTATABLE_2, hand_model
 
 LEVELS = {"A": (150.0, 170.0), "B": (2.0, 3.0)}
-GOAL = {"Y": {"goal": "maximize", "low": 0, "high": 20}}
+GOAL = {"Y": {"goal": "maximize", "lower": 0, "upper": 20}}
 
 
 def cube_doc(**kw):
@@ -66,10 +66,16 @@ def test_goal_refusals_name_the_response_and_field():
     refused(SetpointError, "goals", propose, doc, {"Z": {"goal": "maximize"}})
     msg = refused(SetpointError, "goal", propose, doc, {"Y": {"goal": "most"}})
     assert "'Y'" in msg
-    refused(SetpointError, "importance", propose, doc,
-            {"Y": {"goal": "maximize", "low": 0, "high": 1, "importance": -1}})
+    refused(SetpointError, "weight", propose, doc,
+            {"Y": {"goal": "maximize", "lower": 0, "upper": 1, "weight": -1}})
     refused(SetpointError, "goal", single_goal, cube_doc(), "biggest")
     refused(SetpointError, "goal", single_goal, cube_doc(), "target=lots")
+    # the earlier word for a range goal is refused with its new name
+    assert "'within'" in refused(SetpointError, "goal", single_goal, cube_doc(), "in_range")
+    msg = refused(SetpointError, "importance", propose, doc,
+                  {"Y": {"goal": "maximize", "importance": 2}})
+    assert "'weight'" in msg
+    refused(SetpointError, "goals", propose, doc, {"Y": {"goal": "within", "lower": 0}})
 
 
 def test_fits_must_share_factors_and_coding():

@@ -7,7 +7,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from app.analysis import predict
-from app.analysis.optimize import propose, single_goal
+from app.analysis.optimize import SetpointError, propose, single_goal
 from app.analysis.optimize.desirability import parse_goal
 
 from .fits import ROTATABLE_2, ccd, fit, hand_model, quadratic_truth
@@ -80,8 +80,8 @@ def two_responses():
 
 
 def test_propose_combines_desirabilities_and_reports_intervals(two_responses):
-    goals = {"Strength": {"goal": "maximize", "low": 75, "high": 81, "importance": 2},
-             "Haze": {"goal": "minimize", "low": 57, "high": 62}}
+    goals = {"Strength": {"goal": "maximize", "lower": 75, "upper": 81, "weight": 2},
+             "Haze": {"goal": "minimize", "lower": 57, "upper": 62}}
     out = propose(two_responses, goals, seed=3)
     opt = out["optimum"]
     assert out["region"]["kind"] == "sphere"
@@ -109,7 +109,7 @@ def test_propose_combines_desirabilities_and_reports_intervals(two_responses):
 
 
 def test_search_is_reproducible_for_a_seed(two_responses):
-    goals = {"Strength": {"goal": "target", "low": 76, "target": 79, "high": 81}}
+    goals = {"Strength": {"goal": "target", "lower": 76, "target": 79, "upper": 81}}
     first = propose(two_responses, goals, seed=5)
     again = propose(two_responses, goals, seed=5)
     assert first["optimum"]["coded"] == again["optimum"]["coded"]
@@ -117,10 +117,17 @@ def test_search_is_reproducible_for_a_seed(two_responses):
 
 
 def test_impossible_goals_give_zero_and_say_so(two_responses):
-    goals = {"Strength": {"goal": "in_range", "low": 500}}
+    goals = {"Strength": {"goal": "maximize", "lower": 500, "upper": 600}}
     out = propose(two_responses, goals)
     assert out["optimum"]["desirability"] == 0.0
     assert "relax the goals" in out["note"]
+
+
+def test_limits_no_setting_can_keep_are_refused(two_responses):
+    goals = {"Strength": {"goal": "maximize"}, "Haze": {"goal": "within", "lower": 500}}
+    with pytest.raises(SetpointError, match="keeps Haze within") as info:
+        propose(two_responses, goals)
+    assert info.value.field == "goals"
 
 
 def test_a_local_search_that_misses_is_caught_by_the_grid():

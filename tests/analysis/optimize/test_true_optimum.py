@@ -103,7 +103,7 @@ def test_demo_maximize_is_the_stationary_point_and_matches_an_independent_fit(ha
     assert max(abs(v) for v in out["optimum"]["gradient"]["Hardness"].values()) < 1e-8
     # the old failure: d saturated at the observed maximum; now d = 1 only at the optimum
     assert out["goal_met_set"] is None
-    assert_allclose(out["goals"]["Hardness"]["high"], ref_y, rtol=1e-9)
+    assert_allclose(out["goals"]["Hardness"]["upper"], ref_y, rtol=1e-9)
     json.dumps(out, allow_nan=False)
 
 
@@ -194,16 +194,16 @@ def test_scaled_and_shifted_responses_give_the_same_settings(noisy_ccd, sense):
 
 
 def test_desirability_maximize_limits_do_not_saturate(hardness):
-    # two responses force the desirability path; Gloss's in_range goal is met everywhere, so
+    # two responses force the desirability path; Gloss kept within limits is met everywhere, so
     # D follows Hardness alone and its optimum must be Hardness's own maximum
     gloss = _demo_document("Gloss")
     alone = propose({"Hardness": hardness}, {"Hardness": {"goal": "maximize"}})
     both = propose({"Hardness": hardness, "Gloss": gloss},
                    {"Hardness": {"goal": "maximize"},
-                    "Gloss": {"goal": "in_range", "low": 0.0, "high": 1000.0}})
+                    "Gloss": {"goal": "within", "lower": 0.0, "upper": 1000.0}})
     assert both["check"]["objective"] == "overall desirability D"
     assert_allclose(_coded(both), _coded(alone), atol=1e-3)
-    assert_allclose(both["goals"]["Hardness"]["high"],
+    assert_allclose(both["goals"]["Hardness"]["upper"],
                     alone["optimum"]["predicted"]["Hardness"], rtol=1e-9)
     assert both["goal_met_set"] is None
     assert both["check"]["status"] == "agrees"
@@ -211,8 +211,8 @@ def test_desirability_maximize_limits_do_not_saturate(hardness):
 
 def test_goal_met_over_a_set_is_reported_with_the_set(hardness):
     gloss = _demo_document("Gloss")
-    goals = {"Hardness": {"goal": "maximize", "low": 110.0, "high": 130.0},
-             "Gloss": {"goal": "in_range", "low": 0.0, "high": 1000.0}}
+    goals = {"Hardness": {"goal": "maximize", "lower": 110.0, "upper": 130.0},
+             "Gloss": {"goal": "within", "lower": 0.0, "upper": 1000.0}}
     out = propose({"Hardness": hardness, "Gloss": gloss}, goals)
     met = out["goal_met_set"]
     assert met is not None and 0 < met["fraction"] < 1 and met["points"] > 1
