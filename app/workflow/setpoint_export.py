@@ -14,10 +14,12 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from app.analysis.optimize import CAUTION
+from app.analysis.rounding import round_to
 from app.store import audit
 from app.store.models import SetpointProposal
 from app.workflow import confirmations
 from app.workflow.csvsafe import neutralise
+from app.workflow.fits import results_of as fit_results_of
 from app.workflow.reviews import APPROVE, check_signature
 from app.workflow.setpoint_signoff import for_production, state_label, tolerance_of
 from app.workflow.setpoints import (
@@ -25,6 +27,7 @@ from app.workflow.setpoints import (
     goals_of,
     proposal_intact,
     release_signatures,
+    resolution_of,
     result_of,
     signature_json,
 )
@@ -34,6 +37,13 @@ from app.workflow.setpoints import (
 
 def _when(moment) -> str | None:
     return None if moment is None else moment.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+def units_of(fits: list) -> dict[str, str | None]:
+    """Each factor's units as the fits state them."""
+    if not fits:
+        return {}
+    return {f["name"]: f.get("units") for f in fit_results_of(fits[0])["model"]["factors"]}
 
 
 def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
@@ -48,6 +58,7 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "state_label": state_label(proposal.state),
         "for_production": for_production(proposal),
         "row_version": proposal.row_version,
+        "units": units_of(fits), "resolution": resolution_of(session, proposal),
         "created_by": proposal.created_by.full_name, "created_at": _when(proposal.created_at),
         "snapshot_sha256": proposal.snapshot_sha256,
         "snapshot_intact": proposal_intact(session, proposal),
@@ -90,15 +101,21 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
          "intact" if doc["snapshot_intact"] else "ALTERED"],
         ["chain head", doc["chain_head"]["seq"], doc["chain_head"]["hash"]],
         [],
-        ["factor", "setting (natural units)", "setting (coded units)"],
+        ["factor", "setting", "units", "resolution (from the data)", "setting (full value)",
+         "setting (coded units)"],
     ]
-    rows += [[name, opt["settings"][name], opt["coded"][name]] for name in opt["settings"]]
+    units, step = doc["units"], doc["resolution"]
+    rows += [[name, round_to(opt["settings"][name], step.get(name)), units.get(name) or "",
+              step.get(name) or "", opt["settings"][name], opt["coded"][name]]
+             for name in opt["settings"]]
     rows += [[], ["response", "predicted", "95% CI low", "95% CI high", "95% PI low",
-                  "95% PI high", "desirability"]]
+                  "95% PI high", "desirability d"]]
     each = opt.get("individual_desirability") or {}
     for response, value in opt["predicted"].items():
         ci, pi = opt["ci"][response], opt["pi"][response]
-        rows.append([response, value, ci[0], ci[1], pi[0], pi[1], each.get(response, "")])
+        r = step.get(response)
+        rows.append([response, round_to(value, r), round_to(ci[0], r), round_to(ci[1], r),
+                     round_to(pi[0], r), round_to(pi[1], r), each.get(response, "")])
     rows += [["overall desirability D", opt["desirability"]]]
     if doc["constraints"]:
         rows += [[], ["kept within limits", "lower", "upper", "predicted", "met"]]

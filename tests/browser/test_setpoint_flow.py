@@ -48,7 +48,7 @@ def test_approved_fits_to_released_sheet_to_confirmation_verdict(page, live_serv
     page.wait_for_selector("h1:has-text('Setpoint proposal')")
     main = page.inner_text("main")
     assert CAUTION in main
-    for words in ("Settings", "95 % CI", "95 % PI", "Composite desirability",
+    for words in ("Settings", "95 % CI", "95 % PI", "Overall desirability D",
                   "Sensitivity at the setpoint", "Eigenvalues", "Not released"):
         assert words in main
     screenshot(page, "setpoint-sheet-draft")

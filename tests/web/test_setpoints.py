@@ -68,7 +68,7 @@ def test_engineer_proposes_approver_releases_engineer_confirms(db, approved, cli
     assert response.status_code == 302
     url = response.headers["Location"]
     sheet = client.get(url).get_data(as_text=True)
-    for words in (CAUTION, "Predicted responses", "95 % PI", "Composite desirability",
+    for words in (CAUTION, "Predicted responses", "95 % PI", "Overall desirability D",
                   "Stationary point", "maximum", "Eigenvalues", "Not signed yet"):
         assert words in sheet
     pid = int(url.rsplit("/", 1)[1])

@@ -158,3 +158,31 @@ def test_an_unknown_meaning_is_refused_and_recorded(db, proposal):
         refused = s.scalars(select(AuditEvent).where(AuditEvent.object_type == "setpoint",
                                                      AuditEvent.action.like("%refused%"))).all()
     assert refused and json.loads(refused[-1].new_json)["cause"]
+
+
+def test_the_export_rounds_settings_to_the_data_and_names_the_units(db, proposal):
+    import csv
+    import io
+
+    from app.workflow import setpoint_export
+
+    with db.session() as s:
+        found = s.get(SetpointProposal, proposal)
+        rows = list(csv.reader(io.StringIO(setpoint_export.export_csv(s, found).decode())))
+        doc = setpoint_export.export_json(s, found)
+    header = rows.index(["factor", "setting", "units", "resolution (from the data)",
+                         "setting (full value)", "setting (coded units)"])
+    settings = {r[0]: r for r in rows[header + 1:header + 4]}
+    # The demo file writes temperatures and times with up to 2 decimals (axial points such as
+    # 143.18), the catalyst with up to 4 (its axial points) and Hardness with 1 (counted with
+    # the csv module over the file's text, not with the project's code).
+    assert doc["resolution"] == pytest.approx({"Cure temperature": 0.01, "Cure time": 0.01,
+                                               "Catalyst": 0.0001, "Hardness": 0.1})
+    assert doc["units"] == {"Cure temperature": "°C", "Cure time": "min", "Catalyst": "%"}
+    for name, row in settings.items():
+        step = float(row[3])
+        full = float(row[4])
+        assert abs(float(row[1]) - full) <= step / 2 + 1e-12
+        decimals = len(row[1].split(".")[1]) if "." in row[1] else 0
+        assert decimals == len(row[3].split(".")[1]) if "." in row[3] else decimals == 0
+        assert row[2] == (doc["units"][name] or "")
