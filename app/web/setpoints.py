@@ -218,7 +218,7 @@ def sheet_context(session, proposal) -> dict[str, Any]:
         "resolution": setpoints.resolution_of(session, proposal),
         "duties": signing.SEPARATION_OF_DUTIES,
         # the fits' own factor order (the stored JSON has its keys sorted)
-        "factor_names": list(units) or list(result["optimum"]["settings"]),
+        "factor_names": setpoints.factor_order(session, proposal),
     }
 
 
@@ -275,6 +275,7 @@ SIGNED_MESSAGES = {
 
 
 def _tolerance_form(form, names: list[str]) -> dict[str, str]:
+    """``tolerance_{j}`` is the j-th factor in the sheet's order (setpoints.factor_order)."""
     return {name: form.get(f"tolerance_{j}", "") for j, name in enumerate(names)}
 
 
@@ -292,7 +293,7 @@ def sign(proposal_id: int):
 
     def act(s, actor, proof):
         proposal = setpoints.get_proposal(s, proposal_id)
-        names = list(setpoints.result_of(proposal)["optimum"]["settings"])
+        names = setpoints.factor_order(s, proposal)
         setpoint_signoff.sign(s, actor, proposal, proof=proof, meaning=meaning,
                               comment=form.get("comment"),
                               tolerance=_tolerance_form(form, names),

@@ -328,6 +328,17 @@ def release(session: Session, actor: User, proposal: SetpointProposal, *,
                                  expected_row_version=expected_row_version)
 
 
+def factor_order(session: Session, proposal: SetpointProposal) -> list[str]:
+    """The factors in the fits' own order (the stored settings have their keys sorted); pages
+    and forms that number factors use this order."""
+    chosen = fits_of(session, proposal)
+    settings = result_of(proposal)["optimum"]["settings"]
+    if not chosen:
+        return list(settings)
+    ordered = [f["name"] for f in results_of(chosen[0])["model"]["factors"]]
+    return [n for n in ordered if n in settings] + [n for n in settings if n not in ordered]
+
+
 def resolution_of(session: Session, proposal: SetpointProposal) -> dict[str, float | None]:
     """Each factor's and response's resolution as the data behind the proposal's fits states
     it (:func:`app.analysis.rounding.stated_step`)."""

@@ -63,7 +63,8 @@ BAD_INPUT = "invalid request"
 # The separation-of-duties rules, in the words the review and setpoint pages show.
 SEPARATION_OF_DUTIES = (
     "Nobody approves or returns a fit they made, submitted, or whose data version they uploaded.",
-    "Nobody releases setpoints they proposed, or that use a fit they made.",
+    "Nobody signs a setpoint sheet (release, confirmation, return, withdrawal) they proposed, "
+    "or one that uses a fit they made.",
     "Nobody grants roles to themself.",
     "No account holds the admin and the approver role together.",
     "Printed names are unique among active users; every signature shows the printed name "

@@ -57,6 +57,7 @@ def live_server(tmp_path, sqlite_template):
     with database(app).transaction() as s:
         for username, name, roles in (("erin", "Erin Engineer", "engineer"),
                                       ("abel", "Abel Approver", "approver"),
+                                      ("ada", "Ada Second-Approver", "approver"),
                                       ("otto", "Otto Auditor", "auditor")):
             accounts.create_user(s, None, username=username, full_name=name, roles=roles,
                                  password=PASSWORD)

@@ -6,6 +6,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import re
 
 import pytest
 from sqlalchemy import func, select, text
@@ -50,8 +51,9 @@ def release_form(db, pid: int, **fields) -> dict[str, str]:
     with db.session() as s:
         proposal = s.get(SetpointProposal, pid)
         offered = setpoints.default_tolerance(s, proposal)
+        order = setpoints.factor_order(s, proposal)
     return {"meaning": setpoints.RELEASE, "row_version": "1",
-            **{f"tolerance_{j}": str(v) for j, v in enumerate(offered.values())}, **fields}
+            **{f"tolerance_{j}": str(offered[name]) for j, name in enumerate(order)}, **fields}
 
 
 def _proposal_count(db) -> int:
@@ -433,3 +435,22 @@ def test_confirmation_file_is_parsed_before_the_write_transaction(db, approved, 
         other.dispose()
     assert done.status_code == 302
     assert outcomes == ["written"]
+
+
+def test_the_release_form_keeps_each_tolerance_with_its_factor(db, approved, client, actions):
+    from app.workflow import setpoint_signoff
+
+    pid = _draft_proposal(db, approved[2])
+    actions.login("abel")
+    sheet = client.get(f"/setpoints/{pid}").get_data(as_text=True)
+    # The labels in the form, in page order, each followed by its numbered field.
+    page_order = re.findall(r"<label>([^<±]+?) ± <input name=\"tolerance_(\d)\"", sheet)
+    assert len(page_order) == 3
+    chosen = {"Cure temperature": "1.5", "Cure time": "0.25", "Catalyst": "0.02"}
+    fields = {f"tolerance_{j}": chosen[name.strip()] for name, j in page_order}
+    response = actions.post(f"/setpoints/{pid}/sign", {"meaning": setpoints.RELEASE,
+                                                       "password": PASSWORD, **fields})
+    assert response.status_code == 302
+    with db.session() as s:
+        kept = setpoint_signoff.tolerance_of(s, s.get(SetpointProposal, pid))
+    assert kept == {name: float(v) for name, v in chosen.items()}
