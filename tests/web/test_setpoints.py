@@ -454,3 +454,36 @@ def test_the_release_form_keeps_each_tolerance_with_its_factor(db, approved, cli
     with db.session() as s:
         kept = setpoint_signoff.tolerance_of(s, s.get(SetpointProposal, pid))
     assert kept == {name: float(v) for name, v in chosen.items()}
+
+
+def test_the_api_walks_the_sign_off_with_confirmation_runs(db, approved, client):
+    pid = _draft_proposal(db, approved[2])
+    approver, engineer = bearer(db, "abel"), bearer(db, "erin")
+    released = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=approver,
+                           json={"meaning": setpoints.RELEASE, "password": PASSWORD})
+    assert released.status_code == 201, released.get_json()
+    assert released.get_json()["state_label"] == "released for confirmation"
+    early = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=approver,
+                        json={"meaning": "confirmed for production", "password": PASSWORD})
+    assert early.status_code == 409 and "no confirmation runs" in early.get_json()["error"]
+    with db.session() as s:
+        low, high = setpoints.result_of(s.get(SetpointProposal, pid))["optimum"]["pi"]["Hardness"]
+    wrong = client.post(f"/api/v1/setpoints/{pid}/confirmations", headers=engineer,
+                        data={"file": (io.BytesIO(b"Run,Gloss\nC1,80\n"), "runs.csv")},
+                        content_type="multipart/form-data")
+    assert wrong.status_code == 400 and "Hardness" in wrong.get_json()["error"]
+    body = f"Run,Hardness\nC1,{(low + high) / 2:.3f}\nC2,{(low + high) / 2 + 0.1:.3f}\n"
+    runs = client.post(f"/api/v1/setpoints/{pid}/confirmations", headers=engineer,
+                       data={"file": (io.BytesIO(body.encode()), "runs.csv")},
+                       content_type="multipart/form-data")
+    assert runs.status_code == 201, runs.get_json()
+    assert runs.get_json()["verdict"] == "pass" and runs.get_json()["m"] == 2
+    confirmed = client.post(f"/api/v1/setpoints/{pid}/signatures", headers=approver,
+                            json={"meaning": "confirmed for production", "password": PASSWORD})
+    assert confirmed.status_code == 201
+    sheet = client.get(f"/api/v1/setpoints/{pid}", headers=engineer).get_json()
+    assert sheet["state"] == "confirmed" and sheet["for_production"] is True
+    with db.session() as s:
+        refused = s.scalars(select(AuditEvent.action).where(
+            AuditEvent.action.in_(["setpoint.confirmation_refused", "signature.refused"]))).all()
+    assert sorted(refused) == ["setpoint.confirmation_refused", "signature.refused"]
