@@ -95,6 +95,19 @@ def thresholds(study_id: int):
     return redirect(url_for("studies.view", study_id=study_id))
 
 
+def _team_page_step(study_id: int, doing: str, act, done: str):
+    """A team change from the study page: flash what happened and go back to the team; a
+    study the user may not read stays a 404."""
+    try:
+        team_step(study_id, doing, act)
+        flash(done)
+    except WorkflowError as exc:
+        if exc.status == 404 and exc.field != "username":
+            raise
+        flash(exc.message, "error")
+    return redirect(url_for("studies.view", study_id=study_id) + "#team")
+
+
 @bp.route("/<int:study_id>/members", methods=["POST"])
 @allow("engineer", "admin")
 def add_member(study_id: int):
@@ -103,14 +116,8 @@ def add_member(study_id: int):
     def act(s):
         teams.add_member(s, me(s), teams.study_for(s, me(s), study_id), username)
 
-    try:
-        team_step(study_id, "add a team member", act)
-        flash(f"{username.strip()} added to the team.")
-    except WorkflowError as exc:
-        if exc.status == 404 and exc.field != "username":
-            raise
-        flash(exc.message, "error")
-    return redirect(url_for("studies.view", study_id=study_id) + "#team")
+    return _team_page_step(study_id, "add a team member", act,
+                           f"{username.strip()} added to the team.")
 
 
 @bp.route("/<int:study_id>/members/<username>/remove", methods=["POST"])
@@ -119,11 +126,5 @@ def remove_member(study_id: int, username: str):
     def act(s):
         teams.remove_member(s, me(s), teams.study_for(s, me(s), study_id), username)
 
-    try:
-        team_step(study_id, "remove a team member", act)
-        flash(f"{username} taken off the team.")
-    except WorkflowError as exc:
-        if exc.status == 404 and exc.field != "username":
-            raise
-        flash(exc.message, "error")
-    return redirect(url_for("studies.view", study_id=study_id) + "#team")
+    return _team_page_step(study_id, "remove a team member", act,
+                           f"{username} taken off the team.")
