@@ -20,19 +20,9 @@ def _sign_out(page):
     page.wait_for_url("**/login**")
 
 
-def _approved(db, version_id, response):
-    fit_id = h.make_fit(db, version_id, model="quadratic", response=response)
-    h.submit(db, fit_id)
-    h.sign(db, fit_id)
-    return fit_id
-
-
 def test_approved_fits_to_released_sheet_to_confirmation_verdict(page, live_server, tmp_path):
     db = database(live_server.app)
-    study_id = h.make_study(db, title="Cure window, line 2")
-    version_id = h.add_version(db, study_id)
-    hardness = _approved(db, version_id, "Hardness")
-    gloss = _approved(db, version_id, "Gloss")
+    study_id, hardness, gloss = h.study_with_approved_fits(db, "Cure window, line 2")
 
     login(page, "erin")
     page.goto(f"{page.base}/studies/{study_id}/setpoints/new")
@@ -140,10 +130,7 @@ def test_failed_confirmation_is_never_released_and_is_withdrawn(page, live_serve
     from tests.workflow.test_setpoints import propose
 
     db = database(live_server.app)
-    study_id = h.make_study(db, title="Cure window, line 3")
-    version_id = h.add_version(db, study_id)
-    hardness = _approved(db, version_id, "Hardness")
-    gloss = _approved(db, version_id, "Gloss")
+    study_id, hardness, gloss = h.study_with_approved_fits(db, "Cure window, line 3")
     pid = propose(db, [hardness, gloss], goals={"Hardness": {"goal": "maximize"},
                                                  "Gloss": {"goal": "within", "lower": 83}})
     sheet_url = f"{page.base}/setpoints/{pid}"

@@ -8,23 +8,13 @@ from tests.browser.conftest import login, screenshot
 from tests.workflow import helpers as h
 
 
-def _approved(db, version_id, response):
-    fit_id = h.make_fit(db, version_id, model="quadratic", response=response)
-    h.submit(db, fit_id)
-    h.sign(db, fit_id)
-    return fit_id
-
-
 def _shown(page, name: str) -> bool:
     return page.is_visible(f"input[name={name}]")
 
 
 def test_each_goal_shows_only_its_fields(page, live_server):
     db = database(live_server.app)
-    study_id = h.make_study(db, title="Cure window, line 2")
-    version_id = h.add_version(db, study_id)
-    hardness = _approved(db, version_id, "Hardness")
-    gloss = _approved(db, version_id, "Gloss")
+    study_id, hardness, gloss = h.study_with_approved_fits(db, "Cure window, line 2")
     login(page, "erin")
     page.goto(f"{page.base}/studies/{study_id}/setpoints/new")
     assert page.locator("fieldset.response-goal").count() == 2

@@ -13,7 +13,7 @@ from app.demo_data import rsm_study
 from app.store.models import AuditEvent, DataVersion, Fit, Study, StudyMember
 from app.web.openapi import API_PREFIX
 from app.workflow import accounts, studies
-from tests.conftest import PASSWORD, Actions
+from tests.conftest import Actions
 from tests.workflow import helpers as h
 
 DEMO = rsm_study()
@@ -23,10 +23,7 @@ ROLES_JSON = json.dumps({name: role.to_dict() for name, role in DEMO.roles.items
 @pytest.fixture
 def team(db, users):
     """erin's study with a data version and a draft fit; mia on its team; nina not."""
-    with db.transaction() as s:
-        for username, name in (("mia", "Mia Member"), ("nina", "Nina Outsider")):
-            accounts.create_user(s, None, username=username, full_name=name, roles="engineer",
-                                 password=PASSWORD)
+    h.add_engineers(db, ("mia", "Mia Member"), ("nina", "Nina Outsider"))
     study_id = h.make_study(db, title="Erin's cure study")
     h.join(db, study_id, "mia")
     version_id = h.add_version(db, study_id)

@@ -90,3 +90,27 @@ def join(db, study_id: int, username: str, by: str | None = None) -> None:
         study = studies.get_study(s, study_id)
         actor = user(s, by) if by else study.owner
         teams.add_member(s, actor, study, username)
+
+
+def study_with_approved_fits(db, title: str) -> tuple[int, int, int]:
+    """A study with the demo data and an approved quadratic fit of each response:
+    (study, Hardness fit, Gloss fit) ids."""
+    study_id = make_study(db, title=title)
+    version_id = add_version(db, study_id)
+    made = []
+    for response in ("Hardness", "Gloss"):
+        fit_id = make_fit(db, version_id, model="quadratic", response=response)
+        submit(db, fit_id)
+        sign(db, fit_id)
+        made.append(fit_id)
+    return study_id, made[0], made[1]
+
+
+def add_engineers(db, *people: tuple[str, str]) -> None:
+    """Engineer accounts (user name, full name), all with the tests' PASSWORD."""
+    from app.workflow import accounts
+
+    with db.transaction() as s:
+        for username, name in people:
+            accounts.create_user(s, None, username=username, full_name=name, roles="engineer",
+                                 password=PASSWORD)

@@ -21,17 +21,13 @@ from app.workflow import (
     teams,
     uploads,
 )
-from tests.conftest import PASSWORD
 from tests.workflow import helpers as h
 
 
 @pytest.fixture
 def people(db, users):
     """erin owns study 1; mia is on its team; nina is an engineer who is not."""
-    with db.transaction() as s:
-        for username, name in (("mia", "Mia Member"), ("nina", "Nina Outsider")):
-            accounts.create_user(s, None, username=username, full_name=name, roles="engineer",
-                                 password=PASSWORD)
+    h.add_engineers(db, ("mia", "Mia Member"), ("nina", "Nina Outsider"))
     study_id = h.make_study(db)
     h.join(db, study_id, "mia")
     return study_id
