@@ -188,7 +188,8 @@ def check_command(file: Path, response: str, factors: str | None, run_order: str
             exclusions=parse_exclusions(exclude), thresholds=parse_thresholds(thresholds),
         )
         result = analyse(table.frame, spec)
-        document = result.to_dict()
+        # The whole document (every run as an object) only when it is printed or searched.
+        document = result.to_dict() if as_json or goal else {}
         search = None
         if goal:
             from app.analysis.optimize import single_goal

@@ -16,6 +16,7 @@ import pandas as pd
 
 from .checks.common import CheckResult
 from .design import DesignInfo
+from .runstore import RunColumns, encode, from_table, runs_summary
 from .spec import FitSpec
 
 
@@ -171,7 +172,20 @@ class FitResult:
                 flags.setdefault(int(row), []).append(c.id)
         return flags
 
-    def to_dict(self) -> dict[str, Any]:
+    def run_columns(self) -> RunColumns:
+        """The per-run table as columns (app.analysis.runstore), check flags included."""
+        return from_table(self.runs, self.run_flags())
+
+    def stored(self) -> tuple[dict[str, Any], bytes]:
+        """The document a fit snapshot stores and the per-run block beside it: the document's
+        ``runs`` is the block's summary (counts, format, SHA-256), so hashing the document
+        covers the block without serialising every run as JSON."""
+        cols = self.run_columns()
+        block = encode(cols)
+        return self.to_dict(runs=runs_summary(cols, block)), block
+
+    def to_dict(self, runs: Any = None) -> dict[str, Any]:
+        """The whole document; ``runs`` replaces the per-run objects when given."""
         return {
             "software_version": self.software_version,
             "spec": clean(self.spec.to_dict()),
@@ -183,7 +197,7 @@ class FitResult:
             "anova": clean(list(self.anova)),
             "anova_method": self.anova_method,
             "fit": clean(self.fit),
-            "runs": self.runs.to_records(self.run_flags()),
+            "runs": self.runs.to_records(self.run_flags()) if runs is None else runs,
             "checks": [clean(c.to_dict()) for c in self.checks],
             "effects": [e.to_dict() for e in self.effects],
             "lenth": clean(self.lenth),

@@ -211,6 +211,20 @@ class Fit(Base):
     )
 
 
+class FitRuns(Base):
+    """A fit's per-run table in the column-wise block format of ``app.analysis.runstore``.
+
+    The fit's results document names the block's SHA-256, so the snapshot hash covers it;
+    database triggers (migration 0008) refuse UPDATE and DELETE.
+    """
+
+    __tablename__ = "fit_runs"
+
+    fit_id: Mapped[int] = mapped_column(ForeignKey("fits.id"), primary_key=True)
+    sha256: Mapped[str] = mapped_column(String(64))
+    data: Mapped[bytes] = mapped_column(LargeBinary)
+
+
 class Signature(Base):
     """An electronic signature: who, printed name, server UTC time, meaning, what was signed."""
 

@@ -61,6 +61,7 @@ def register(app: Flask) -> None:
         admin,
         api,
         api_reviews,
+        api_runs,
         api_setpoints,
         api_teams,
         auth,
@@ -81,7 +82,7 @@ def register(app: Flask) -> None:
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
-                   setpoints, api_setpoints, api_teams):
+                   setpoints, api_setpoints, api_teams, api_runs):
         app.register_blueprint(module.bp)
     from app.analysis.rounding import round_to
 

@@ -20,6 +20,7 @@ from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.ingest import ColumnRole, IngestError, UploadTooLarge, format_size
 from app.store.db import database, get_session
 from app.store.models import DataVersion, Fit, Study, User
+from app.web import api_runs
 from app.web.access import SIGNED_IN, allow
 from app.web.common import me, read_session, tx
 from app.web.openapi import build_document, check, document, json_body, ref, schema
@@ -137,7 +138,7 @@ schema("FitCreate", {
 schema("Fit", {"allOf": [ref("FitSummary"), {
     "type": "object",
     "required": ["snapshot_intact", "software_version", "spec", "thresholds", "signatures",
-                 "results"],
+                 "runs", "results"],
     "properties": {
         "snapshot_intact": {"type": "boolean",
                             "description": "The stored snapshot still hashes to snapshot_sha256"},
@@ -146,7 +147,15 @@ schema("Fit", {"allOf": [ref("FitSummary"), {
         "submitted_at": {"type": ["string", "null"], "format": "date-time"},
         "submitted_by": {"anyOf": [ref("UserRef"), {"type": "null"}]},
         "signatures": {"type": "array", "items": {"type": "object"}},
-        "results": {"type": "object", "description": "The stored results document"},
+        "runs": {"type": "object", "required": ["n", "excluded", "flagged", "runs", "runs_csv"],
+                 "description": "How many runs, excluded and flagged, and where to read them: "
+                                "`runs` (pages of JSON) and `runs_csv` (every run)",
+                 "properties": {"n": {"type": "integer"}, "excluded": {"type": "integer"},
+                                "flagged": {"type": "integer"}, "runs": {"type": "string"},
+                                "runs_csv": {"type": "string"}}},
+        "results": {"type": "object", "description": "The stored results document; its `runs` "
+                    "is a summary naming the SHA-256 of the per-run table, which the snapshot "
+                    "hash so covers (fits stored before that hold every run here instead)"},
     }}]})
 
 
@@ -193,6 +202,7 @@ def _fit(fit: Fit) -> dict[str, Any]:
             "thresholds": json.loads(fit.thresholds_json),
             "submitted_at": _when(fit.submitted_at), "submitted_by": _user(fit.submitted_by),
             "signatures": reviews.signatures_json(fit),
+            "runs": {**fits.runs_of(fit).summary(), **api_runs.links(fit.id)},
             "results": fits.results_of(fit)}
 
 

@@ -20,7 +20,8 @@ import altair as alt
 import numpy as np
 from scipy import stats
 
-from app.analysis import transforms
+from app.analysis import runstore, transforms
+from app.analysis.runstore import RunColumns
 
 # Our own palette: ink-blue points, a burnt-orange highlight, red and amber limit lines.
 POINT = "#23527c"
@@ -31,6 +32,8 @@ REFERENCE = "#5d6776"
 SURFACE = ["#f3f0e4", "#dfe6c8", "#b9d3b0", "#8dbaa6", "#5f9b9c", "#3d7890", "#2b5678"]
 WIDTH, HEIGHT = 360, 240
 GRID = 31
+# Beyond this many runs in the fit, run-based charts draw bins plus the marked runs.
+BIN_ABOVE = 5000
 
 
 @dataclass(frozen=True)
@@ -97,26 +100,44 @@ def _finish(layers: list[alt.Chart], data: list[dict], title: str) -> dict[str, 
     return _with_data(chart, data)
 
 
-def included_runs(results: dict) -> list[dict]:
-    """Runs that entered the fit and have residual diagnostics, in row order."""
-    return [r for r in results["runs"] if not r["excluded"] and r.get("standardized") is not None]
+def columns_of(results: dict, cols: RunColumns | None = None) -> RunColumns:
+    """The per-run columns: given, or read from a document that still holds per-run objects."""
+    if cols is not None:
+        return cols
+    runs = results.get("runs")
+    if runstore.is_summary(runs):
+        raise ValueError("this results document keeps its runs in a block: pass the columns")
+    return runstore.from_records(runs or [])
 
 
-def _base_rows(runs: list[dict]) -> list[dict]:
-    return [{"row": r["row"], "label": r.get("label") or f"row {r['row']}",
-             "run_order": r.get("run_order"), "residual": r["residual"], "fitted": r["fitted"],
-             "standardized": r["standardized"], "studentized": r["studentized"],
-             "deleted_studentized": r["deleted_studentized"], "leverage": r["leverage"],
-             "cooks_distance": r["cooks_distance"]} for r in runs]
+def included_runs(cols: RunColumns) -> np.ndarray:
+    """Positions of the runs that entered the fit and have residual diagnostics, row order."""
+    return np.flatnonzero(cols.included)
+
+
+_BASE = ("residual", "fitted", "standardized", "studentized", "deleted_studentized", "leverage",
+         "cooks_distance")
+
+
+def _base_rows(cols: RunColumns, idx: np.ndarray) -> list[dict]:
+    """One dict per run at positions ``idx`` (column-wise: no per-run object lookups)."""
+    order = cols.run_order[idx]
+    values = {name: cols.values[name][idx].tolist() for name in _BASE}
+    fields = {"row": cols.row[idx].tolist(), "label": cols.labels(idx),
+              "run_order": [None if not np.isfinite(v) else int(v) for v in order.tolist()],
+              **values}
+    names = list(fields)
+    return [dict(zip(names, vals, strict=True)) for vals in zip(*fields.values(), strict=True)]
 
 
 def _r(v: Any, digits: int = 4) -> Any:
     return round(v, digits) if isinstance(v, float) else v
 
 
-def normal_probability(results: dict) -> Chart:
+def normal_probability(results: dict, cols: RunColumns | None = None) -> Chart:
     """Residuals against Blom normal scores, reference line through the quartiles."""
-    data = _base_rows(included_runs(results))
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
     order = np.argsort([d["residual"] for d in data], kind="stable")
     n = len(data)
     scores = stats.norm.ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
@@ -140,9 +161,10 @@ def normal_probability(results: dict) -> Chart:
                  "Reference line through the first and third quartiles.")
 
 
-def histogram(results: dict) -> Chart:
+def histogram(results: dict, cols: RunColumns | None = None) -> Chart:
     """Histogram of residuals (bins chosen by Vega-Lite), points underneath for the runs."""
-    data = _base_rows(included_runs(results))
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
     bars = alt.Chart(name="bins").mark_bar(color="#9fb6cc").encode(
         x=alt.X("residual:Q", bin=alt.Bin(maxbins=10), title="Residual"),
         y=alt.Y("count():Q", title="Runs"))
@@ -158,8 +180,9 @@ def histogram(results: dict) -> Chart:
                  rows)
 
 
-def residuals_vs_fitted(results: dict) -> Chart:
-    data = _base_rows(included_runs(results))
+def residuals_vs_fitted(results: dict, cols: RunColumns | None = None) -> Chart:
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
     pts = _points(alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
                   alt.Y("residual:Q", title="Residual"),
                   alt.Tooltip("fitted:Q", format=".4g", title="Fitted"),
@@ -171,11 +194,17 @@ def residuals_vs_fitted(results: dict) -> Chart:
                  ("Run", "Run order", "Fitted", "Residual"), rows)
 
 
-def residuals_vs_factor(results: dict, factor: str) -> Chart:
-    runs = included_runs(results)
-    data = _base_rows(runs)
-    for d, r in zip(data, runs, strict=True):
-        d["level"] = r["actual"][factor]
+def _level_rows(cols: RunColumns, factor: str) -> list[dict]:
+    """The included runs' chart rows, each with its setting of ``factor`` as ``level``."""
+    idx = included_runs(cols)
+    data = _base_rows(cols, idx)
+    for d, level in zip(data, cols.actual[factor][idx].tolist(), strict=True):
+        d["level"] = level
+    return data
+
+
+def residuals_vs_factor(results: dict, factor: str, cols: RunColumns | None = None) -> Chart:
+    data = _level_rows(columns_of(results, cols), factor)
     pts = _points(alt.X("level:Q", title=factor, scale=alt.Scale(zero=False)),
                   alt.Y("residual:Q", title="Residual"), alt.Tooltip("level:Q", title=factor))
     spec = _finish([_rules([{"at": 0}], REFERENCE, dash=(1, 0)), pts], data,
@@ -185,11 +214,12 @@ def residuals_vs_factor(results: dict, factor: str) -> Chart:
                  ("Run", "Run order", factor, "Residual"), rows)
 
 
-def residuals_vs_covariate(results: dict, covariate: str, values: dict[int, Any]) -> Chart:
+def residuals_vs_covariate(results: dict, covariate: str, values: dict[int, Any],
+                           cols: RunColumns | None = None) -> Chart:
     """Residuals against a recorded column left out of the model (values by row)."""
-    runs = included_runs(results)
-    data = _base_rows(runs)
-    numeric = all(isinstance(values.get(r["row"]), int | float) for r in runs)
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
+    numeric = all(isinstance(values.get(d["row"]), int | float) for d in data)
     for d in data:
         d["value"] = values.get(d["row"])
     x = (alt.X("value:Q", title=covariate, scale=alt.Scale(zero=False)) if numeric
@@ -208,9 +238,10 @@ def _outlier_limit(results: dict) -> float:
     return _check(results, "outliers").get("details", {}).get("limit", 2.5)
 
 
-def run_order(results: dict) -> Chart | None:
+def run_order(results: dict, cols: RunColumns | None = None) -> Chart | None:
     """Studentized residuals in run order, joined, with the outlier check's ± limit lines."""
-    data = [d for d in _base_rows(included_runs(results)) if d["run_order"] is not None]
+    cols = columns_of(results, cols)
+    data = [d for d in _base_rows(cols, included_runs(cols)) if d["run_order"] is not None]
     if not data:
         return None
     limit = _outlier_limit(results)
@@ -229,12 +260,9 @@ def run_order(results: dict) -> Chart | None:
                  f"Dashed lines at ±{limit:g}: the runs the outlier check marks lie beyond them.")
 
 
-def spread_by_level(results: dict, factor: str) -> Chart:
+def spread_by_level(results: dict, factor: str, cols: RunColumns | None = None) -> Chart:
     """Residuals at each level of a factor with each level's ±1 SD bar."""
-    runs = included_runs(results)
-    data = _base_rows(runs)
-    for d, r in zip(data, runs, strict=True):
-        d["level"] = r["actual"][factor]
+    data = _level_rows(columns_of(results, cols), factor)
     by_level: dict[Any, list[float]] = {}
     for d in data:
         by_level.setdefault(d["level"], []).append(d["residual"])
@@ -263,8 +291,9 @@ def _check(results: dict, check_id: str) -> dict:
     return next((c for c in results.get("checks", []) if c["id"] == check_id), {})
 
 
-def cooks_distance(results: dict) -> Chart:
-    data = _base_rows(included_runs(results))
+def cooks_distance(results: dict, cols: RunColumns | None = None) -> Chart:
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
     limit = _check(results, "influence").get("details", {}).get("cooks_review_limit")
     bars = (alt.Chart(name="runs").mark_bar().encode(
         x=alt.X("row:O", title="Row"), y=alt.Y("cooks_distance:Q", title="Cook's distance"),
@@ -279,9 +308,10 @@ def cooks_distance(results: dict) -> Chart:
                  "" if not limit else f"Dashed line: review limit {limit:.3g} (F median).")
 
 
-def leverage(results: dict) -> Chart:
+def leverage(results: dict, cols: RunColumns | None = None) -> Chart:
     """Leverage against studentized residual, with the 2p/n line and the outlier limits."""
-    data = _base_rows(included_runs(results))
+    cols = columns_of(results, cols)
+    data = _base_rows(cols, included_runs(cols))
     p, n = results["fit"]["p"], results["fit"]["n"]
     limit = _outlier_limit(results)
     pts = _points(alt.X("leverage:Q", title="Leverage h"),
@@ -383,15 +413,16 @@ def predict_grid(model: dict, settings: dict[str, np.ndarray]) -> np.ndarray:
     return np.asarray(out, dtype=float)
 
 
-def contour(results: dict, x_factor: str, y_factor: str) -> Chart:
+def contour(results: dict, x_factor: str, y_factor: str,
+            cols: RunColumns | None = None) -> Chart:
     """Fitted response over two factors (others at their centre) with the design points."""
     model = results["model"]
     factors = {f["name"]: f for f in model["factors"]}
-    runs = [r for r in results["runs"] if not r["excluded"]]
+    cols = columns_of(results, cols)
     span = {}
     for name in (x_factor, y_factor):
-        values = [r["actual"][name] for r in results["runs"]]
-        span[name] = np.linspace(min(values), max(values), GRID)
+        values = cols.actual[name]
+        span[name] = np.linspace(np.nanmin(values), np.nanmax(values), GRID)
     gx, gy = np.meshgrid(span[x_factor], span[y_factor])
     settings = {}
     for name, f in factors.items():
@@ -412,9 +443,7 @@ def contour(results: dict, x_factor: str, y_factor: str) -> Chart:
         color=alt.Color("predicted:Q", title=f"Predicted {response}",
                         scale=alt.Scale(type="quantize", range=SURFACE)),
         tooltip=[alt.Tooltip("predicted:Q", format=".4g", title=f"Predicted {response}")])
-    data = [{"row": r["row"], "label": r.get("label") or f"row {r['row']}",
-             "run_order": r.get("run_order"), "px": r["actual"][x_factor],
-             "py": r["actual"][y_factor], "observed": r["observed"]} for r in runs]
+    data = _design_points(cols, x_factor, y_factor)
     pts = (alt.Chart(name="runs").mark_point(filled=True, stroke="#ffffff", strokeWidth=1)
            .encode(x="px:Q", y="py:Q", color=_colour(), size=_size(),
                    tooltip=_tooltip(alt.Tooltip("observed:Q", title=f"Observed {response}")))
@@ -431,21 +460,42 @@ def contour(results: dict, x_factor: str, y_factor: str) -> Chart:
                  ("Run", "Run order", x_factor, y_factor, f"Observed {response}"), rows, note)
 
 
+def _design_points(cols: RunColumns, x_factor: str, y_factor: str) -> list[dict]:
+    idx = np.flatnonzero(~cols.excluded)
+    order = cols.run_order[idx].tolist()
+    return [{"row": row, "label": label, "run_order": None if o != o else int(o),
+             "px": px, "py": py, "observed": obs}
+            for row, label, o, px, py, obs in zip(
+                cols.row[idx].tolist(), cols.labels(idx), order,
+                cols.actual[x_factor][idx].tolist(), cols.actual[y_factor][idx].tolist(),
+                [None if v != v else v for v in cols.values["observed"][idx].tolist()],
+                strict=True)]
+
+
 def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
-               covariates: dict[str, dict[int, Any]] | None = None) -> list[Chart]:
-    """Every chart that applies to this fit, in reading order."""
+               covariates: dict[str, dict[int, Any]] | None = None,
+               cols: RunColumns | None = None) -> list[Chart]:
+    """Every chart that applies to this fit, in reading order. Beyond ``binned.BIN_ABOVE``
+    runs the run-based charts draw bins with the marked runs on top (app.web.charts_binned)."""
+    from app.web.charts_binned import binned_charts, binned_contour
+
+    cols = columns_of(results, cols)
     factor_names = [f["name"] for f in results["factors"]]
     out: list[Chart | None] = []
-    if included_runs(results):
-        out += [normal_probability(results), histogram(results), residuals_vs_fitted(results),
-                run_order(results)]
-        out += [residuals_vs_factor(results, f) for f in factor_names]
-        out += [spread_by_level(results, f) for f in factor_names]
-        out += [residuals_vs_covariate(results, name, values)
+    used = int(cols.included.sum())
+    if used > BIN_ABOVE:
+        out += binned_charts(results, cols, factor_names, covariates or {})
+    elif used:
+        out += [normal_probability(results, cols), histogram(results, cols),
+                residuals_vs_fitted(results, cols), run_order(results, cols)]
+        out += [residuals_vs_factor(results, f, cols) for f in factor_names]
+        out += [spread_by_level(results, f, cols) for f in factor_names]
+        out += [residuals_vs_covariate(results, name, values, cols)
                 for name, values in (covariates or {}).items()]
-        out += [cooks_distance(results), leverage(results)]
+        out += [cooks_distance(results, cols), leverage(results, cols)]
     out += [half_normal(results), boxcox_profile(results)]
     if len(factor_names) >= 2:
         x, y = pair if pair else (factor_names[0], factor_names[1])
-        out.append(contour(results, x, y))
+        out.append(contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
+                   else binned_contour(results, x, y, cols))
     return [c for c in out if c is not None]

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import json
 import re
-from collections import OrderedDict
 from threading import Lock
 from typing import Any
 
+import numpy as np
 from flask import (
     Blueprint,
     abort,
@@ -22,8 +22,10 @@ from markupsafe import Markup
 from sqlalchemy import select
 
 from app.analysis.boxcox import LAMBDA_RANGE
+from app.analysis.runstore import RunColumns
 from app.analysis.spec import NAMED_MODELS, TRANSFORMS
 from app.analysis.terms import Term, named_model, sort_key
+from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.db import get_session
 from app.store.models import Fit
@@ -39,11 +41,12 @@ MODEL_LABELS = {"linear": "Main effects", "interaction": "Main effects and two-f
                 "full": "Every interaction (two-level designs)"}
 TRANSFORM_LABELS = {"none": "None", "log": "Natural log", "sqrt": "Square root",
                     "inverse": "Reciprocal (1/y)", "boxcox": "Box–Cox with a chosen λ"}
-# Snapshots never change, so the charts built from one can be kept (keyed on its hash).
-_CHART_CACHE: OrderedDict[tuple, Any] = OrderedDict()
-_CHART_CACHE_SIZE = 32
-_CHART_LOCK = Lock()
+# Snapshots never change, so the charts and the page body built from one can be kept (keyed on
+# its hash), within a byte budget.
+_CHART_CACHE = ByteCache(64 * MB)
 _BUILD_LOCK = Lock()
+# Up to this many runs the page lists every run; beyond it, the flagged and excluded ones.
+RUN_TABLE_ALL = 500
 
 
 def chart_id(name: str) -> str:
@@ -83,7 +86,11 @@ def _builder_context(version, form: dict[str, Any]) -> dict[str, Any]:
             "factors": factor_names, "terms": candidate_terms(factor_names, two_level),
             "models": [(m, MODEL_LABELS[m]) for m in NAMED_MODELS],
             "transforms": [(t, TRANSFORM_LABELS[t]) for t in TRANSFORMS],
-            "lambda_range": LAMBDA_RANGE, "form": form}
+            "lambda_range": LAMBDA_RANGE, "form": form,
+            # Beyond RUN_TABLE_ALL runs the builder lists only the runs already left out and
+            # takes more as typed lines (a tick box per run would not fit the page).
+            "pick_rows": None if table.n_runs <= RUN_TABLE_ALL else sorted(
+                r for r in form["exclusions"] if r in table.frame.index)}
 
 
 def _form_from_fit(fit: Fit) -> dict[str, Any]:
@@ -132,6 +139,7 @@ def parse_builder_form(form) -> dict[str, Any]:
     exclusions = {}
     for row in form.getlist("exclude"):
         exclusions[row] = (form.get(f"reason_{row}") or "").strip()
+    exclusions.update(exclusion_lines(form.get("exclude_lines") or ""))
     choices: dict[str, Any] = {
         "response": form.get("response", ""),
         "model": form.get("model", "linear") if mode == "named" else None,
@@ -155,6 +163,20 @@ def parse_builder_form(form) -> dict[str, Any]:
     return choices
 
 
+def exclusion_lines(text: str) -> dict[str, str]:
+    """``row: reason`` lines (``=`` works too) to {row: reason}; a bad line names itself."""
+    out: dict[str, str] = {}
+    for number, line in enumerate(text.splitlines(), start=1):
+        if not line.strip():
+            continue
+        match = re.fullmatch(r"(\d+)\s*[:=]\s*(.*)", line.strip())
+        if match is None:
+            raise WorkflowError(f"Runs to leave out, line {number}: '{line.strip()[:60]}' must "
+                                "look like 'row: reason'.", field="exclusions")
+        out[match.group(1)] = match.group(2).strip()
+    return out
+
+
 def _echo(form) -> dict[str, Any]:
     """The submitted form, shaped like DEFAULT_FORM, to re-render the builder unchanged."""
     return {"response": form.get("response"), "mode": form.get("mode", "named"),
@@ -163,7 +185,8 @@ def _echo(form) -> dict[str, Any]:
             "boxcox_lambda": form.get("boxcox_lambda"), "reduce": form.get("reduce") == "on",
             "reduce_alpha": form.get("reduce_alpha") or 0.05,
             "exclusions": {int(r): form.get(f"reason_{r}", "") for r in form.getlist("exclude")
-                           if r.isdigit()}}
+                           if r.isdigit()},
+            "exclude_lines": form.get("exclude_lines", "")}
 
 
 @bp.route("/data/<int:version_id>/fit", methods=["POST"])
@@ -202,8 +225,8 @@ def _covariate_values(fit: Fit, results: dict) -> dict[str, dict[int, Any]]:
     if not names:
         return {}
     frame = uploads.design_table(fit.data_version).frame
-    return {n: {int(row): (v.item() if hasattr(v, "item") else v)
-                for row, v in frame[n].items()} for n in names if n in frame}
+    rows = [int(r) for r in frame.index.tolist()]
+    return {n: dict(zip(rows, frame[n].tolist(), strict=True)) for n in names if n in frame}
 
 
 def fit_charts(fit: Fit, results: dict, pair: tuple[str, str] | None) -> list[charts.Chart]:
@@ -218,24 +241,28 @@ def fit_charts(fit: Fit, results: dict, pair: tuple[str, str] | None) -> list[ch
         cached = _cached_charts(key)
         if cached is not None:
             return cached
-        built = charts.all_charts(results, pair=pair, covariates=_covariate_values(fit, results))
-        _remember(key, built)
+        built = charts.all_charts(results, pair=pair, cols=fits.runs_of(fit),
+                                  covariates=_covariate_values(fit, results))
+        _CHART_CACHE.put(key, built)
     return built
 
 
 def _cached_charts(key: tuple) -> Any:
-    with _CHART_LOCK:
-        if key in _CHART_CACHE:
-            _CHART_CACHE.move_to_end(key)
-            return _CHART_CACHE[key]
-    return None
+    return _CHART_CACHE.get(key)
 
 
-def _remember(key: tuple, value: Any) -> None:
-    with _CHART_LOCK:
-        _CHART_CACHE[key] = value
-        while len(_CHART_CACHE) > _CHART_CACHE_SIZE:
-            _CHART_CACHE.popitem(last=False)
+def run_table(cols: RunColumns) -> dict[str, Any]:
+    """The runs the page lists: every run up to RUN_TABLE_ALL, else the flagged and excluded
+    ones (at most RUN_TABLE_ALL of them); with the counts to say so."""
+    n = len(cols)
+    excluded = np.flatnonzero(cols.excluded)
+    flagged = np.flatnonzero(np.isin(cols.row, np.fromiter(cols.flags, dtype=np.int64,
+                                                            count=len(cols.flags))))
+    marked = np.union1d(flagged, excluded)
+    index = np.arange(n) if n <= RUN_TABLE_ALL else marked[:RUN_TABLE_ALL]
+    return {"rows": [cols.records(i, i + 1)[0] for i in index.tolist()],
+            "excluded": [cols.records(i, i + 1)[0] for i in excluded.tolist()],
+            "total": n, "all": n <= RUN_TABLE_ALL, "marked": len(marked)}
 
 
 def _other_fits(fit: Fit) -> list[Fit]:
@@ -261,6 +288,7 @@ def _render_view(fit_id: int) -> str:
     query = {} if pair is None else {"x": pair[0], "y": pair[1]}
     context = dict(fit=fit, results=results, study=fit.study, version=fit.data_version,
                    charts=built, chart_names=names, pair=pair or (None, None),
+                   runs=run_table(fits.runs_of(fit)),
                    charts_url=url_for("fits.charts_json", fit_id=fit.id, **query))
     return render_template(
         "fits/view.html", body=_snapshot_body(context), intact=fits.snapshot_intact(fit),
@@ -276,7 +304,7 @@ def _snapshot_body(context: dict[str, Any]) -> Markup:
     if cached is None:
         # Safe: the output of an autoescaping Jinja template, not raw user text.
         cached = Markup(render_template("fits/_body.html", **context))  # noqa: S704
-        _remember(key, cached)
+        _CHART_CACHE.put(key, cached)
     return cached
 
 

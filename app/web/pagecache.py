@@ -10,60 +10,28 @@ cached or not.
 
 Not cached: a request with flashed messages waiting (they are shown once), and anything that
 raises (a 404 stays a 404). The cache is per process, bounded in bytes
-(``PAGE_CACHE_MB``, 0 turns it off), least recently used first out.
+(``PAGE_CACHE_MB``, 0 turns it off; ``app.caches``), least recently used first out.
 """
 
 from __future__ import annotations
 
 import hashlib
-import threading
-from collections import OrderedDict
 from collections.abc import Callable, Iterable
 
 from flask import current_app, g, request, session
 from sqlalchemy import select
 
+from app.caches import ByteCache
 from app.store.db import get_session
 from app.store.models import ChainHead
 from app.web.access import csrf_token
 
 
-class PageCache:
-    """A byte-bounded LRU of rendered pages (thread-safe)."""
+class PageCache(ByteCache):
+    """Rendered pages (encoded), bounded in bytes by their length."""
 
     def __init__(self, max_bytes: int):
-        self.max_bytes = max_bytes
-        self._pages: OrderedDict[tuple, bytes] = OrderedDict()
-        self._bytes = 0
-        self._lock = threading.Lock()
-        self.hits = self.misses = 0
-
-    def get(self, key: tuple) -> bytes | None:
-        with self._lock:
-            page = self._pages.get(key)
-            if page is None:
-                self.misses += 1
-                return None
-            self._pages.move_to_end(key)
-            self.hits += 1
-            return page
-
-    def put(self, key: tuple, page: bytes) -> None:
-        size = len(page)
-        if size > self.max_bytes:
-            return
-        with self._lock:
-            old = self._pages.pop(key, None)
-            if old is not None:
-                self._bytes -= len(old)
-            self._pages[key] = page
-            self._bytes += size
-            while self._bytes > self.max_bytes:
-                _, dropped = self._pages.popitem(last=False)
-                self._bytes -= len(dropped)
-
-    def __len__(self) -> int:
-        return len(self._pages)
+        super().__init__(max_bytes, sizeof=len)
 
 
 def _cache() -> PageCache | None:

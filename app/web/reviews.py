@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import json
 
+import numpy as np
 from flask import Blueprint, current_app, flash, g, redirect, render_template, request, url_for
 
 from app.analysis.calibration import rates_for_design
@@ -87,6 +88,22 @@ def _barred(fit) -> str | None:
     return None
 
 
+# The review page lists at most this many flagged runs; the rest are in the per-run CSV.
+FLAGGED_LISTED = 200
+
+
+def flagged_runs(fit) -> dict:
+    """The flagged runs (the first FLAGGED_LISTED, most extreme first) and how many there are."""
+    cols = fits.runs_of(fit)
+    index = np.flatnonzero(np.isin(cols.row, np.fromiter(cols.flags, dtype=np.int64,
+                                                          count=len(cols.flags))))
+    total = len(index)
+    if total > FLAGGED_LISTED:
+        extreme = np.abs(np.nan_to_num(cols.values["deleted_studentized"][index]))
+        index = np.sort(index[np.argsort(-extreme, kind="stable")[:FLAGGED_LISTED]])
+    return {"rows": [cols.records(i, i + 1)[0] for i in index.tolist()], "total": total}
+
+
 def review_context(session, fit) -> dict:
     results = fits.results_of(fit)
     checks = results.get("checks", [])
@@ -94,7 +111,7 @@ def review_context(session, fit) -> dict:
     return {
         "fit": fit, "study": fit.study, "results": results, "checks": checks,
         "not_run": [c for c in checks if c["verdict"] == "not_applicable"],
-        "flagged": [r for r in results.get("runs", []) if r.get("flags")],
+        "flagged": flagged_runs(fit),
         "exclusions": json.loads(fit.spec_json).get("exclusions", []),
         "thresholds": json.loads(fit.thresholds_json),
         "events": events_of_fit(session, fit),

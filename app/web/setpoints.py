@@ -256,7 +256,7 @@ def design_space_page(proposal_id: int):
     if specs:
         fixed = {n: v for n, v in settings.items() if n not in (x, y)}
         try:
-            space = design_space({f.response: fits.results_of(f) for f in chosen}, specs, x, y,
+            space = design_space({f.response: fits.search_document(f) for f in chosen}, specs, x, y,
                                  fixed=fixed, points=41)
         except SetpointError as exc:
             raise WorkflowError(f"{exc}.", field=exc.field) from None

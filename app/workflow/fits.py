@@ -2,20 +2,26 @@
 
 from __future__ import annotations
 
+import csv
 import hashlib
+import io
 import json
-from typing import Any
+from collections.abc import Iterator
+from typing import Any, NamedTuple
 
+import numpy as np
+import pandas as pd
 from sqlalchemy import bindparam, select
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, object_session
 
-from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse
+from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse, runstore
 from app.analysis.boxcox import LAMBDA_RANGE
+from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
-from app.store.models import DataVersion, Fit, Signature, User
-from app.workflow import NotFound, WorkflowError, in_id_range, teams
+from app.store.models import DataVersion, Fit, FitRuns, Signature, User
+from app.workflow import NotFound, WorkflowError, csvsafe, in_id_range, teams
 from app.workflow.uploads import design_table
 
 
@@ -105,19 +111,71 @@ _SNAPSHOT_HASHES: dict[str, str] = {}
 
 
 def snapshot_intact(fit: Fit) -> bool:
-    """True when the stored snapshot still hashes to the value recorded at creation."""
-    return snapshot_sha256(fit) == fit.snapshot_sha256
+    """True when the stored snapshot still hashes to the value recorded at creation, and the
+    per-run block it names (when it names one) still hashes to the value the snapshot holds."""
+    return snapshot_sha256(fit) == fit.snapshot_sha256 and runs_problem(fit) is None
 
 
-def run_analysis(version: DataVersion, spec: FitSpec) -> dict[str, Any]:
+class Analysed(NamedTuple):
+    """A fit's results document and its per-run block (app.analysis.runstore)."""
+
+    results: dict[str, Any]
+    runs: bytes
+
+
+def run_analysis(version: DataVersion, spec: FitSpec) -> Analysed:
     table = design_table(version)
     try:
-        return analyse(table.frame, spec).to_dict()
+        return Analysed(*analyse(table.frame, spec).stored())
     except AnalysisError as exc:
         raise WorkflowError(str(exc), field="model") from None
 
 
-def plan_fit(version: DataVersion, **choices: Any) -> tuple[FitSpec, dict[str, Any]]:
+# Decoded per-run tables, by (fit id, block hash): a block never changes once stored.
+_RUNS = ByteCache(96 * MB)
+
+
+def _runs_row(fit: Fit) -> FitRuns | None:
+    session = object_session(fit)
+    return None if session is None else session.get(FitRuns, fit.id)
+
+
+def runs_problem(fit: Fit) -> str | None:
+    """Why the fit's stored per-run block does not match its snapshot, or None when it does
+    (fits stored with their runs inside the document have no block and nothing to match)."""
+    summary = results_of(fit).get("runs")
+    if not runstore.is_summary(summary):
+        return None
+    row = _runs_row(fit)
+    if row is None:
+        return f"fit {fit.id}: its per-run table is missing"
+    if runstore.sha256(row.data) != summary["sha256"] or row.sha256 != summary["sha256"]:
+        return f"fit {fit.id}: its per-run table does not hash to the value its snapshot holds"
+    return None
+
+
+def runs_of(fit: Fit) -> runstore.RunColumns:
+    """The fit's per-run table as columns, from its block or (older fits) its document."""
+    summary = results_of(fit).get("runs")
+    if not runstore.is_summary(summary):
+        return runstore.from_records(summary or [])
+
+    def load() -> runstore.RunColumns:
+        row = _runs_row(fit)
+        if row is None:
+            raise WorkflowError(f"Fit {fit.id} has lost its per-run table.", status=500)
+        return runstore.decode(row.data)
+
+    return _RUNS.get_or_build((fit.id, summary["sha256"]), load)
+
+
+def runs_block(fit: Fit) -> bytes | None:
+    """The stored per-run block's bytes (None for fits that keep their runs in the document)."""
+    row = _runs_row(fit) if runstore.is_summary(results_of(fit).get("runs")) else None
+    return None if row is None else row.data
+
+
+def plan_fit(version: DataVersion, **choices: Any) -> tuple[FitSpec, Analysed]:
     """Spec and results for a fit with the study's current thresholds, without writing.
 
     Callers run this before opening their write transaction, so the analysis does not hold the
@@ -129,13 +187,12 @@ def plan_fit(version: DataVersion, **choices: Any) -> tuple[FitSpec, dict[str, A
 
 
 def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpec,
-               results: dict[str, Any] | None = None) -> Fit:
+               results: Analysed | None = None) -> Fit:
     """Store the snapshot with its hash; one audit event. ``results`` from :func:`plan_fit`
     (computed outside the transaction) or, when None, computed here. Only an engineer on the
     study's team may (app.workflow.teams)."""
     teams.require_act(session, actor, version.study, "fit a model in it")
-    if results is None:
-        results = run_analysis(version, spec)
+    results, block = results if results is not None else run_analysis(version, spec)
     fit = Fit(study_id=version.study_id, data_version_id=version.id, data_version=version,
               response=spec.response, spec_json=canonical_json(spec.to_dict()),
               results_json=canonical_json(results),
@@ -146,6 +203,7 @@ def create_fit(session: Session, actor: User, version: DataVersion, spec: FitSpe
     fit.key_id, fit.seal = sealing_ring(session).seal("fit", fit.snapshot_sha256)
     session.add(fit)
     session.flush()
+    session.add(FitRuns(fit_id=fit.id, sha256=runstore.sha256(block), data=block))
     verdicts = {c["id"]: c["verdict"] for c in results.get("checks", [])}
     audit.record(session, actor=actor, action="fit.create", object_type="fit", object_id=fit.id,
                  study_id=version.study_id,
@@ -165,6 +223,8 @@ def get_fit(session: Session, fit_id: int) -> Fit:
 
 
 _FITS, _VERSIONS, _SIGNATURES = Fit.__table__, DataVersion.__table__, Signature.__table__
+_BLOCKS = FitRuns.__table__
+_FIT_BLOCK = select(_BLOCKS).where(_BLOCKS.c.fit_id == bindparam("fit_id"))
 _FIT_ROW = select(_FITS).where(_FITS.c.id == bindparam("fit_id"))
 _STUDY_VERSIONS = (select(_VERSIONS.c.id, _VERSIONS.c.version, _VERSIONS.c.canonical_sha256)
                    .where(_VERSIONS.c.study_id == bindparam("study_id"))
@@ -175,7 +235,8 @@ _FIT_SIGNATURES = (select(_SIGNATURES).where(_SIGNATURES.c.fit_id == bindparam("
 
 def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
     """The stored rows the fit page's live checks read (snapshot hash, signature validity):
-    the fit, its study's data versions and the fit's signatures; None when there is no fit.
+    the fit, its per-run block, its study's data versions and the fit's signatures; None when
+    there is no fit.
     Core queries, no objects: pages use them as a cache key (``app.web.pagecache``)."""
     if not in_id_range(fit_id):
         return None
@@ -184,7 +245,8 @@ def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
         return None
     versions = session.execute(_STUDY_VERSIONS, {"study_id": fit.study_id}).all()
     signatures = session.execute(_FIT_SIGNATURES, {"fit_id": fit_id}).all()
-    return [tuple(fit), *map(tuple, versions), *map(tuple, signatures)]
+    block = session.execute(_FIT_BLOCK, {"fit_id": fit_id}).all()
+    return [tuple(fit), *map(tuple, block), *map(tuple, versions), *map(tuple, signatures)]
 
 
 def results_of(fit: Fit) -> dict[str, Any]:
@@ -217,8 +279,8 @@ def compare(fit_a: Fit, fit_b: Fit) -> dict[str, Any]:
     checks_a = {c["id"]: c for c in a.get("checks", [])}
     checks_b = {c["id"]: c for c in b.get("checks", [])}
     check_ids = list(checks_a) + [i for i in checks_b if i not in checks_a]
-    runs_a = {r["row"]: r for r in a.get("runs", [])}
-    runs_b = {r["row"]: r for r in b.get("runs", [])}
+    # Only flagged and excluded runs are listed: read them from the columns, never every run.
+    runs_a, runs_b = _listed_runs(runs_of(fit_a)), _listed_runs(runs_of(fit_b))
     rows = sorted(set(runs_a) | set(runs_b))
 
     def run_field(runs, row, key):
@@ -258,6 +320,70 @@ def compare(fit_a: Fit, fit_b: Fit) -> dict[str, Any]:
     }
 
 
+def _listed_runs(cols: runstore.RunColumns) -> dict[int, dict[str, Any]]:
+    """Flagged or excluded runs by row, as per-run objects."""
+    rows = cols.row
+    index = sorted(set(np.flatnonzero(cols.excluded).tolist())
+                   | set(np.flatnonzero(np.isin(rows, list(cols.flags))).tolist()))
+    out = {}
+    for i in index:
+        out[int(rows[i])] = cols.records(i, i + 1)[0]
+    return out
+
+
 def fits_of_version(session: Session, version_id: int) -> list[Fit]:
     return list(session.scalars(select(Fit).where(Fit.data_version_id == version_id)
                                 .order_by(Fit.created_at.desc())))
+
+
+RUNS_PAGE_MAX = 10_000
+RUNS_CSV_CHUNK = 20_000
+
+
+def runs_csv(fit: Fit) -> Iterator[str]:
+    """Every run of the fit as CSV text, in chunks (numbers in full precision; label and
+    reason cells neutralised against spreadsheet formulas)."""
+    cols = runs_of(fit)
+    names = ["row", "run_order", "label", "excluded", "exclusion_reason",
+             *[f"actual:{f}" for f in cols.factors], *[f"coded:{f}" for f in cols.factors],
+             *runstore.NUMERIC, "flags"]
+    header = io.StringIO()
+    csv.writer(header, lineterminator="\n").writerow([csvsafe.neutralise_all(n) for n in names])
+    yield header.getvalue()
+    for start in range(0, len(cols), RUNS_CSV_CHUNK):
+        stop = min(start + RUNS_CSV_CHUNK, len(cols))
+        part = slice(start, stop)
+        rows = cols.row[part].tolist()
+        frame = pd.DataFrame({
+            "row": rows,
+            "run_order": pd.array(np.where(np.isfinite(cols.run_order[part]),
+                                           cols.run_order[part], np.nan)).astype("Int64"),
+            "label": [csvsafe.neutralise_all(v) for v in
+                      (cols.label[part] if cols.label is not None else [None] * (stop - start))],
+            "excluded": cols.excluded[part],
+            "exclusion_reason": [csvsafe.neutralise_all(cols.exclusion_reason.get(i))
+                                 for i in range(start, stop)],
+            **{f"actual:{f}": cols.actual[f][part] for f in cols.factors},
+            **{f"coded:{f}": cols.coded[f][part] for f in cols.factors},
+            **{name: cols.values[name][part] for name in runstore.NUMERIC},
+            "flags": [" ".join(cols.flags.get(r, [])) for r in rows],
+        })
+        yield frame.to_csv(index=False, header=False, lineterminator="\n",
+                           float_format="%.17g")
+
+
+def search_document(fit: Fit) -> dict[str, Any]:
+    """The results document with the few per-run fields the setpoint search reads (row,
+    excluded, observed, coded and actual settings) in place of the block's summary."""
+    results = results_of(fit)
+    cols = runs_of(fit)
+    factors = cols.factors
+    coded = {f: cols.coded[f].tolist() for f in factors}
+    actual = {f: cols.actual[f].tolist() for f in factors}
+    observed = [None if v != v else v for v in cols.values["observed"].tolist()]
+    results["runs"] = [
+        {"row": row, "excluded": excluded, "observed": observed[i],
+         "coded": {f: coded[f][i] for f in factors}, "actual": {f: actual[f][i] for f in factors}}
+        for i, (row, excluded) in enumerate(zip(cols.row.tolist(), cols.excluded.tolist(),
+                                                strict=True))]
+    return results

@@ -41,7 +41,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from app.analysis import AnalysisError
+from app.analysis import AnalysisError, runstore
 from app.analysis.confirm import judge_confirmation
 from app.store import audit
 from app.store.audit import ChainReport, canonical_json, verify_chain
@@ -49,7 +49,7 @@ from app.store.base import utcnow
 from app.store.models import AuditEvent, Fit, SetpointProposal, Study
 from app.workflow import confirmations, setpoints
 from app.workflow.csvsafe import neutralise, safe_csv
-from app.workflow.fits import snapshot_document
+from app.workflow.fits import runs_block, snapshot_document
 from app.workflow.reviews import signatures_json
 from app.workflow.setpoint_signoff import state_label
 
@@ -60,6 +60,7 @@ READABLE_VERSIONS = (1, 2)
 SETPOINTS_FROM = 2
 MANIFEST = "manifest.json"
 SPREADSHEET_CSV = "canonical-spreadsheet.csv"
+RUNS_BLOCK = "runs.bin"
 SIGNED_FIELDS = ("fit_id", "signer_id", "printed_name", "signed_at", "meaning", "comment",
                  "snapshot_sha256")
 # A release signature's manifest covers the fit-signature fields and the setpoint id.
@@ -81,6 +82,8 @@ data/v<N>/canonical-spreadsheet.csv  the same table for spreadsheets: text cells
                        spreadsheet would run as a formula (starting with = + - @, tab or CR)
                        begin with an apostrophe; numbers are unchanged
 fits/<id>/snapshot.json  the exact document whose SHA-256 is the fit's snapshot hash
+fits/<id>/runs.bin     the fit's per-run table (format plumbline-runs/1, described in
+                       app/analysis/runstore.py), whose SHA-256 the snapshot names
 fits/<id>/fit.json     state and who made and submitted it
 fits/<id>/signatures.json  signer, printed name, UTC time, meaning, comment, signed hash
 setpoints/<id>/snapshot.json  the exact document whose SHA-256 the release signature signed:
@@ -103,6 +106,14 @@ audit/chain_head.json  the chain head when the package was made
 
 Check it offline with:  plumbline audit verify --package <this file>
 """
+
+
+def _member_state(zf: zipfile.ZipFile, present: set[str], name: str,
+                  expected: str | None) -> str:
+    """"missing", "altered" (its SHA-256 is not ``expected``) or "intact"."""
+    if name not in present:
+        return "missing"
+    return "altered" if _sha(zf.read(name)) != expected else "intact"
 
 
 def _sha(data: bytes) -> str:
@@ -158,6 +169,9 @@ def build_package(session: Session, study: Study, software_version: str) -> byte
         folder = f"fits/{fit.id}"
         # Exactly the bytes that were hashed, so the signed hash can be recomputed from the file.
         files[f"{folder}/snapshot.json"] = canonical_json(snapshot_document(fit)).encode()
+        block = runs_block(fit)
+        if block is not None:  # the per-run table whose SHA-256 the snapshot names
+            files[f"{folder}/{RUNS_BLOCK}"] = block
         files[f"{folder}/fit.json"] = _json_bytes({
             "id": fit.id, "response": fit.response, "state": fit.state,
             "row_version": fit.row_version, "data_version_id": fit.data_version_id,
@@ -414,6 +428,15 @@ def _check_fits(zf: zipfile.ZipFile, present: set[str], report: PackageReport) -
         if canonical.get(snapshot.get("data_version_id")) != snapshot.get("data_canonical_sha256"):
             report.problems.append(f"fit {fit_id}: the canonical table of its data version does "
                                    "not match the hash in the snapshot")
+        runs = (snapshot.get("results") or {}).get("runs")
+        if runstore.is_summary(runs):
+            state = _member_state(zf, present, f"fits/{fit_id}/{RUNS_BLOCK}", runs.get("sha256"))
+            if state == "missing":
+                report.problems.append(f"fit {fit_id}: its per-run table ({RUNS_BLOCK}) is "
+                                       "missing from the package")
+            elif state == "altered":
+                report.problems.append(f"fit {fit_id}: {RUNS_BLOCK} does not hash to the value "
+                                       "its snapshot holds")
         recorded = _recorded_manifests(report, fit_id)
         for sig in _load(zf, f"fits/{fit_id}/signatures.json", report) or []:
             report.signatures += 1
@@ -546,10 +569,11 @@ def _check_setpoint(zf: zipfile.ZipFile, present: set[str], manifest: dict, setp
     models = {}
     for fit in snapshot.get("fits") or []:
         fit_snapshot = f"fits/{fit.get('id')}/snapshot.json"
-        if fit_snapshot not in present:
+        state = _member_state(zf, present, fit_snapshot, fit.get("snapshot_sha256"))
+        if state == "missing":
             report.problems.append(f"{label}: fit {fit.get('id')}, which it uses, is not in the "
                                    "package")
-        elif _sha(zf.read(fit_snapshot)) != fit.get("snapshot_sha256"):
+        elif state == "altered":
             report.problems.append(f"{label}: fit {fit.get('id')}'s snapshot in the package is "
                                    "not the one the proposal names")
         else:

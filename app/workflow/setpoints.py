@@ -32,7 +32,7 @@ from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
 from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, teams
-from app.workflow.fits import results_of
+from app.workflow.fits import results_of, search_document
 from app.workflow.reviews import APPROVE, check_signature
 from app.workflow.setpoint_signoff import MEANINGS as RELEASE_MEANINGS
 from app.workflow.setpoint_signoff import RELEASE, attempt, state_label
@@ -249,7 +249,7 @@ def propose(session: Session, actor: User, fits: list[Fit], goals: dict, bounds:
     responses = [f.response for f in fits]
     search_goals, specs = split_goals(goals, responses)
     try:
-        result = search_setpoint({f.response: results_of(f) for f in fits}, search_goals,
+        result = search_setpoint({f.response: search_document(f) for f in fits}, search_goals,
                                  bounds=bounds or None, fixed=fixed or None)
     except OutsideRegion as exc:
         raise Conflict(f"The request leaves the design region: {exc}.",

@@ -1,6 +1,6 @@
-"""Dropping the triggers that guard signatures, fit and setpoint snapshots and confirmation
-runs (migrations 0005 and 0007), the way someone with write access to the database could, so
-tests can tamper on purpose."""
+"""Dropping the triggers that guard signatures, fit and setpoint snapshots, confirmation
+runs and fits' per-run tables (migrations 0005, 0007 and 0008), the way someone with write
+access to the database could, so tests can tamper on purpose."""
 
 from __future__ import annotations
 
@@ -14,6 +14,7 @@ TRIGGERS = {
                            "setpoint_proposals_no_delete", "setpoint_proposals_no_truncate"),
     "confirmation_runs": ("confirmation_runs_no_update", "confirmation_runs_no_delete",
                           "confirmation_runs_no_truncate"),
+    "fit_runs": ("fit_runs_no_update", "fit_runs_no_delete", "fit_runs_no_truncate"),
 }
 
 

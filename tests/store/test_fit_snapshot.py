@@ -2,13 +2,15 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 
 import pytest
 from sqlalchemy import select, text
+from sqlalchemy.exc import DBAPIError
 
 from app.analysis import Thresholds
-from app.store.models import AuditEvent, Fit, User
+from app.store.models import AuditEvent, Fit, FitRuns, User
 from app.workflow import WorkflowError, fits, uploads
 from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow.helpers import add_version, make_study
@@ -34,7 +36,11 @@ def test_fit_snapshot_is_hashed_and_audited(db, version):
         fit = s.get(Fit, fit_id)
         assert fits.snapshot_intact(fit)
         results = fits.results_of(fit)
-        excluded = [r["row"] for r in results["runs"] if r["excluded"]]
+        # The document holds a summary naming the per-run table's hash; the table is beside it.
+        block = s.get(FitRuns, fit_id)
+        assert results["runs"]["sha256"] == hashlib.sha256(block.data).hexdigest()
+        assert results["runs"]["n"] == 20 and results["runs"]["excluded"] == 1
+        excluded = [r["row"] for r in fits.runs_of(fit).records() if r["excluded"]]
         assert excluded == [3]
         event = s.scalar(select(AuditEvent).where(AuditEvent.action == "fit.create"))
         assert fit.snapshot_sha256 in event.new_json
@@ -51,6 +57,29 @@ def test_altered_results_break_the_snapshot_hash(db, version):
                   {"j": json.dumps(doc), "i": fit_id})
     with db.session() as s:
         assert not fits.snapshot_intact(s.get(Fit, fit_id))
+
+
+def test_altered_per_run_table_breaks_the_snapshot(db, version):
+    fit_id = _fit(db, version, response="Hardness", model="linear")
+    with db.transaction() as s:
+        data = bytearray(s.get(FitRuns, fit_id).data)
+        data[-3] ^= 0x01  # one bit of the last run's DFFITS
+        drop_signed_row_triggers(s)
+        s.execute(text("UPDATE fit_runs SET data = :d WHERE fit_id = :i"),
+                  {"d": bytes(data), "i": fit_id})
+    with db.session() as s:
+        fit = s.get(Fit, fit_id)
+        assert not fits.snapshot_intact(fit)
+        assert "does not hash" in fits.runs_problem(fit)
+
+
+def test_the_database_refuses_to_change_or_delete_a_per_run_table(db, version):
+    fit_id = _fit(db, version, response="Hardness", model="linear")
+    for statement in ("UPDATE fit_runs SET sha256 = 'x' WHERE fit_id = :i",
+                      "DELETE FROM fit_runs WHERE fit_id = :i"):
+        with pytest.raises(DBAPIError, match="fit run tables are immutable"):
+            with db.transaction() as s:
+                s.execute(text(statement), {"i": fit_id})
 
 
 def test_running_again_makes_a_new_fit(db, version):

@@ -159,8 +159,14 @@ def test_fit_round_trips_through_the_api(app, db, users, client, monkeypatch, so
     assert body["created_by"]["username"] == "erin"
     assert (body["study_id"], body["data_version_id"]) == (study_id, version["id"])
     assert body["thresholds"] == {"review": 0.1, "fail": 0.01}  # the study's own thresholds
-    excluded = [(r["row"], r["excluded"]) for r in body["results"]["runs"] if r["excluded"]]
-    assert excluded == [(3, True)]
+    # The document names the per-run table's hash and links to its pages and its CSV.
+    assert body["results"]["runs"]["n"] == body["runs"]["n"] == 20
+    page = client.get(body["runs"]["runs"], headers=auth).get_json()
+    assert page["total"] == 20 and page["next"] is None and len(page["runs"]) == 20
+    excluded = [(r["row"], r["excluded"], r["exclusion_reason"]) for r in page["runs"]
+                if r["excluded"]]
+    assert excluded == [(3, True, reason)]
+    assert body["runs"]["excluded"] == 1
     assert body["spec"]["exclusions"] == [[3, reason]]
     # Full quadratic in three factors: 3 main effects, 3 two-factor interactions, 3 squares
     # (the order of names inside an interaction follows the stored roles, so compare as sets).
@@ -193,7 +199,8 @@ def test_exclusions_as_a_mapping(client, db, version_id):
         "exclusions": {"7": "gloss meter not zeroed"}})
     assert fitted.status_code == 201, fitted.get_json()
     body = fitted.get_json()
-    assert [r["row"] for r in body["results"]["runs"] if r["excluded"]] == [7]
+    page = client.get(body["runs"]["runs"], headers=auth).get_json()
+    assert [r["row"] for r in page["runs"] if r["excluded"]] == [7]
     assert body["spec"]["model"] is None
 
 

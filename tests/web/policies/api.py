@@ -12,4 +12,6 @@ POLICY = {
     "api.get_data": "signed-in",
     "api.create_fit": {"engineer"},
     "api.get_fit": "signed-in",
+    "api_runs.page": "signed-in",
+    "api_runs.csv": "signed-in",
 }
