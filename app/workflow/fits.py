@@ -148,9 +148,9 @@ def runs_problem(fit: Fit) -> str | None:
         return None
     row = _runs_row(fit)
     if row is None:
-        return f"fit {fit.id}: its per-run table is missing"
+        return "its per-run table is missing (deleted)"
     if runstore.sha256(row.data) != summary["sha256"] or row.sha256 != summary["sha256"]:
-        return f"fit {fit.id}: its per-run table does not hash to the value its snapshot holds"
+        return "its per-run table does not hash to the SHA-256 its snapshot holds (altered)"
     return None
 
 

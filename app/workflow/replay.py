@@ -35,6 +35,7 @@ from app.store.models import (
     Signature,
 )
 from app.workflow.confirmations import record_sha256
+from app.workflow.fits import runs_problem as fit_runs_problem
 from app.workflow.fits import snapshot_sha256 as fit_snapshot_sha256
 from app.workflow.setpoints import snapshot_sha256 as setpoint_snapshot_sha256
 from app.workflow.signing import manifest_document, manifest_sha256
@@ -150,6 +151,8 @@ def _signed_object(session: Session, kind: str, row: Any, stored_hash: str,
     if recomputed != stored_hash:
         yield Disagreement(label, row.id, "its stored snapshot no longer hashes to its "
                                           "recorded SHA-256 (content altered)", tracked.seq)
+    if kind == "fit" and (problem := fit_runs_problem(row)) is not None:
+        yield Disagreement(label, row.id, problem, tracked.seq)
     if stored_hash != recorded:
         yield Disagreement(label, row.id, f"its snapshot SHA-256 {stored_hash[:12]}… is not the "
                                           f"{str(recorded)[:12]}… recorded at creation",

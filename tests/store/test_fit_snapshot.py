@@ -11,7 +11,7 @@ from sqlalchemy.exc import DBAPIError
 
 from app.analysis import Thresholds
 from app.store.models import AuditEvent, Fit, FitRuns, User
-from app.workflow import WorkflowError, fits, uploads
+from app.workflow import WorkflowError, fits, replay, uploads
 from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow.helpers import add_version, make_study
 
@@ -71,6 +71,19 @@ def test_altered_per_run_table_breaks_the_snapshot(db, version):
         fit = s.get(Fit, fit_id)
         assert not fits.snapshot_intact(fit)
         assert "does not hash" in fits.runs_problem(fit)
+        assert (f"fit {fit_id}: its per-run table does not hash to the SHA-256 its snapshot "
+                "holds (altered)") in [d.describe().split(" (event")[0]
+                                       for d in replay.disagreements(s)]
+
+
+def test_a_deleted_per_run_table_is_named_by_the_replay(db, version):
+    fit_id = _fit(db, version, response="Hardness", model="linear")
+    with db.transaction() as s:
+        drop_signed_row_triggers(s)
+        s.execute(text("DELETE FROM fit_runs WHERE fit_id = :i"), {"i": fit_id})
+    with db.session() as s:
+        found = [d.describe() for d in replay.fit_disagreements(s, s.get(Fit, fit_id))]
+    assert any(f"fit {fit_id}: its per-run table is missing (deleted)" in d for d in found)
 
 
 def test_the_database_refuses_to_change_or_delete_a_per_run_table(db, version):
