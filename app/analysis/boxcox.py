@@ -70,6 +70,26 @@ def not_estimated(reason: str) -> BoxCoxResult:
                         f"lambda not estimated: {reason}.", reason)
 
 
+def _rss_css(z: np.ndarray, q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """(RSS, centred SS) of each column of ``z`` (or of the vector ``z``) for the column space of
+    the orthonormal ``q``, which holds the intercept.
+
+    One pass over ``q`` (most of the cost at 100,000 runs): RSS = SS - |q'z|^2 on the centred
+    column, which is exact to about 1e-12 relative while RSS is not tiny next to SS. Where it is
+    (a near-exact fit), the residual is formed explicitly with one refinement step instead.
+    """
+    zc = z - z.mean(axis=0)
+    css = np.einsum("i...,i...->...", zc, zc)
+    c = q.T @ zc
+    rss = css - np.einsum("i...,i...->...", c, c)
+    near_exact = rss <= 1e-4 * css
+    if np.any(near_exact):
+        r = zc - q @ c
+        r = r - q @ (q.T @ r)  # one refinement step
+        rss = np.where(near_exact, np.einsum("i...,i...->...", r, r), rss)
+    return rss, css
+
+
 class _Profile:
     """L(lambda) for the column space spanned by the orthonormal ``q`` (which holds the mean)."""
 
@@ -78,7 +98,7 @@ class _Profile:
         self.g = float(np.exp(np.mean(log_y)))
         # log(y/g) without cancellation when y - g is small next to g
         self.d = np.log1p((y - self.g) / self.g)
-        self.q = q
+        self.q = np.asfortranarray(q)  # q'z reads it column by column
         self.n = len(y)
         self.exact_at: float | None = None
 
@@ -89,11 +109,8 @@ class _Profile:
 
     def rss(self, lam: float) -> tuple[float, float]:
         """(RSS, centred SS) of the transformed response."""
-        z = self.transformed(lam)
-        r = z - self.q @ (self.q.T @ z)
-        r = r - self.q @ (self.q.T @ r)  # one refinement step
-        zc = z - z.mean()
-        return float(r @ r), float(zc @ zc)
+        rss, css = _rss_css(self.transformed(lam), self.q)
+        return float(rss), float(css)
 
     def __call__(self, lam: float) -> float:
         return self._loglik(lam, *self.rss(lam))
@@ -116,11 +133,7 @@ class _Profile:
             z = self.g * np.expm1(np.outer(self.d, safe)) / safe
             if small.any():
                 z[:, small] = (self.g * self.d)[:, None]
-            r = z - self.q @ (self.q.T @ z)
-            r = r - self.q @ (self.q.T @ r)  # one refinement step
-            zc = z - z.mean(axis=0)
-            rss = np.einsum("ij,ij->j", r, r)
-            css = np.einsum("ij,ij->j", zc, zc)
+            rss, css = _rss_css(z, self.q)
             out += [self._loglik(float(lam), float(a), float(b))
                     for lam, a, b in zip(part, rss, css, strict=True)]
         return np.array(out)
@@ -146,6 +159,22 @@ def _refusal(y: np.ndarray, q: np.ndarray) -> str | None:
     if np.linalg.norm(ones - q @ (q.T @ ones)) > 1e-8:
         return "the model has no intercept"
     return None
+
+
+def _bracket(grid: np.ndarray, values: np.ndarray, lam_hat: float, bound: float,
+             cut: float) -> tuple[float, float]:
+    """The grid step, walking from ``lam_hat`` towards ``bound``, where the profile first falls
+    below ``cut``: a bracket one step wide for the root finder (``bound`` itself is below)."""
+    step = 1.0 if bound > lam_hat else -1.0
+    ahead = [(float(g), float(v)) for g, v in zip(grid, values, strict=True)
+             if step * (g - lam_hat) > 0]
+    ahead.sort(key=lambda gv: step * (gv[0] - lam_hat))
+    near = lam_hat
+    for g, v in ahead:
+        if v < cut:
+            return near, g
+        near = g
+    return near, bound
 
 
 def boxcox_profile(y: np.ndarray, q: np.ndarray, grid_size: int = GRID_SIZE) -> BoxCoxResult:
@@ -184,7 +213,10 @@ def boxcox_profile(y: np.ndarray, q: np.ndarray, grid_size: int = GRID_SIZE) -> 
     def ci_end(bound: float) -> tuple[float, bool]:
         if lam_hat == bound or ll(bound) >= cut:
             return bound, True  # the interval runs to the edge of the range searched
-        return float(optimize.brentq(lambda v: ll(v) - cut, lam_hat, bound, xtol=1e-8)), False
+        near, far = _bracket(grid, values, lam_hat, bound, cut)
+        if ll(near) < cut:  # the grid's value and a fresh one disagree in the last digit
+            near = lam_hat
+        return float(optimize.brentq(lambda v: ll(v) - cut, near, far, xtol=1e-8)), False
 
     (ci_lo, open_lo), (ci_hi, open_hi) = ci_end(LAMBDA_RANGE[0]), ci_end(LAMBDA_RANGE[1])
     ci, ci_open = (ci_lo, ci_hi), (open_lo, open_hi)
