@@ -58,16 +58,16 @@ def dependent_columns(x: np.ndarray, rank_tol: float = RANK_TOL,
     norms = np.linalg.norm(x, axis=0)
     zero = norms == 0
     norms[zero] = 1.0
-    scaled = x / norms
     if r is None:
-        r = np.linalg.qr(scaled, mode="r")
+        r = np.linalg.qr(x / norms, mode="r")
     diag = np.abs(np.diag(r))
     out = []
     independent: list[int] = []
     for j in range(x.shape[1]):
         if diag[j] < rank_tol or zero[j]:
             if independent:
-                sol, *_ = np.linalg.lstsq(scaled[:, independent], scaled[:, j], rcond=None)
+                sol, *_ = np.linalg.lstsq(x[:, independent] / norms[independent],
+                                          x[:, j] / norms[j], rcond=None)
                 partners = [independent[i] for i in np.flatnonzero(np.abs(sol) > 1e-6)]
             else:
                 partners = []
@@ -103,7 +103,7 @@ def least_squares(x: np.ndarray, y: np.ndarray, *, check_rank: bool = True,
     coef_scaled = linalg.solve_triangular(r, qty)
     # One step of refinement on the residual of the original columns recovers digits lost in
     # ill-conditioned problems (Björck's semi-normal correction).
-    correction = linalg.solve_triangular(r, q.T @ (y - (x / scale) @ coef_scaled))
+    correction = linalg.solve_triangular(r, q.T @ (y - x @ (coef_scaled / scale)))
     coef_scaled = coef_scaled + correction
     coef = coef_scaled / scale
     fitted = x @ coef
