@@ -14,6 +14,14 @@ from pathlib import PurePath
 from .canonical import DesignTable, load_canonical
 from .csv_reader import read_csv
 from .errors import IngestError, Problem, UploadTooLarge, format_size
+from .limits import (
+    DEFAULT_MAX_BYTES,
+    DEFAULT_MAX_CELLS,
+    DEFAULT_MAX_XLSX_RATIO,
+    DEFAULT_MAX_XLSX_UNCOMPRESSED,
+    MAX_CELL_CHARS,
+    MAX_HEADER_CHARS,
+)
 from .raw import RawTable
 from .roles import ColumnRole, suggest_roles
 from .sniff import detect_kind
@@ -21,6 +29,12 @@ from .validate import validate
 from .xlsx_reader import read_xlsx
 
 __all__ = [
+    "DEFAULT_MAX_BYTES",
+    "DEFAULT_MAX_CELLS",
+    "DEFAULT_MAX_XLSX_RATIO",
+    "DEFAULT_MAX_XLSX_UNCOMPRESSED",
+    "MAX_CELL_CHARS",
+    "MAX_HEADER_CHARS",
     "ColumnRole",
     "DesignTable",
     "IngestError",
@@ -32,11 +46,6 @@ __all__ = [
     "suggest_roles",
     "validate",
 ]
-
-DEFAULT_MAX_BYTES = 20_000_000
-DEFAULT_MAX_CELLS = 2_000_000
-DEFAULT_MAX_XLSX_UNCOMPRESSED = 200_000_000
-DEFAULT_MAX_XLSX_RATIO = 100.0
 
 
 def read_upload(data: bytes, filename: str, sheet: str | None = None, *,
