@@ -143,14 +143,10 @@ def clean_grid(grid: pd.DataFrame) -> pd.DataFrame:
 
 
 def _clean_column(column: pd.Series) -> np.ndarray:
-    values = column.to_numpy(dtype=object)
-    out = np.full(len(values), None, dtype=object)
-    present = ~pd.isna(values)
-    if present.any():
-        stripped = np.array(pd.Series(values[present], dtype=object).str.strip(), dtype=object)
-        stripped[stripped == ""] = None
-        out[present] = stripped
-    return out
+    """Strip each distinct text once; empty and missing cells become None."""
+    codes, distinct = pd.factorize(column.to_numpy(dtype=object))
+    cleaned = np.array([t.strip() or None for t in distinct.tolist()] + [None], dtype=object)
+    return cleaned[codes]  # code -1 (missing) picks the trailing None
 
 
 def trim_grid(grid: pd.DataFrame) -> pd.DataFrame:
@@ -235,15 +231,17 @@ def check_cell_lengths(frame: pd.DataFrame) -> None:
     """
     problems = []
     for name in frame.columns:
-        lengths = frame[name].str.len().to_numpy(dtype=float, na_value=0.0)
-        if not len(lengths) or lengths.max() <= MAX_CELL_CHARS:
+        values = frame[name].to_numpy(dtype=object)
+        distinct = pd.unique(values)
+        longest = max((len(t) for t in distinct if t is not None), default=0)
+        if longest <= MAX_CELL_CHARS:
             continue
-        over = np.flatnonzero(lengths > MAX_CELL_CHARS)
-        rows = frame.index[over].tolist()
+        rows = frame.index[np.flatnonzero(
+            [t is not None and len(t) > MAX_CELL_CHARS for t in values])].tolist()
         problems.append(Problem(
             f"Column '{name}' row{'s' if len(rows) > 1 else ''} {format_rows(rows)}: a cell may "
             f"hold at most {MAX_CELL_CHARS:,} characters, and the longest here holds "
-            f"{int(lengths.max()):,}.", row=rows[0], column=name))
+            f"{longest:,}.", row=rows[0], column=name))
     if problems:
         raise IngestError(problems)
 
