@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -60,7 +60,7 @@ def number_values(cells: pd.Series | np.ndarray, decimal: str = ".") -> np.ndarr
 def _distinct_numbers(texts: np.ndarray, decimal: str) -> np.ndarray:
     """Float64 value of each text, NaN for those :func:`parse_number` refuses."""
     pattern = _NUMBER_COMMA if decimal == "," else _NUMBER_POINT
-    ok = np.fromiter((pattern.fullmatch(t) is not None for t in texts), bool, len(texts))
+    ok = np.fromiter(map(bool, map(pattern.fullmatch, texts)), bool, len(texts))
     out = np.full(len(texts), np.nan)
     if ok.any():
         matched = texts[ok]
@@ -112,11 +112,62 @@ class RawTable:
     decimal: str = "."
     sheet: str | None = None
     sheets: tuple[str, ...] = ()
+    _columns: dict = field(default_factory=dict, init=False, repr=False)
 
     @property
     def n_rows(self) -> int:
         """Number of data rows."""
         return len(self.frame)
+
+    def missing(self, column: str) -> np.ndarray:
+        """Boolean array, true where the column's cell is empty (read-only, computed once)."""
+        return self._column(column)[0]
+
+    def numbers(self, column: str) -> np.ndarray:
+        """The column through :func:`number_values` with this file's decimal mark: float64,
+        NaN where a cell is empty or not a number (read-only, computed once)."""
+        return self._column(column)[1]
+
+    def _column(self, column: str) -> tuple[np.ndarray, np.ndarray]:
+        if column not in self._columns:
+            cells = self.frame[column].to_numpy(dtype=object)
+            missing = pd.isna(cells)
+            values = number_values(cells, self.decimal)
+            missing.flags.writeable = values.flags.writeable = False
+            self._columns[column] = (missing, values)
+        return self._columns[column]
+
+
+@dataclass(frozen=True)
+class ColumnSummary:
+    """What one column holds, counted at once: the numbers, the blanks and the other text.
+
+    Attributes
+    ----------
+    name : str
+    numbers, blanks, text : int
+        Cells that are numbers, empty cells, and filled cells that are not numbers.
+    low, high : float or None
+        Smallest and largest number; None when the column holds none.
+    """
+
+    name: str
+    numbers: int
+    blanks: int
+    text: int
+    low: float | None
+    high: float | None
+
+
+def summarize_column(raw: RawTable, column: str) -> ColumnSummary:
+    """Count a column's numbers, blanks and other text, with the range of its numbers."""
+    missing, values = raw.missing(column), raw.numbers(column)
+    found = ~np.isnan(values)
+    count = int(found.sum())
+    blanks = int(missing.sum())
+    low = float(values[found].min()) if count else None
+    high = float(values[found].max()) if count else None
+    return ColumnSummary(column, count, blanks, len(values) - count - blanks, low, high)
 
 
 def clean_cell(value: str | None) -> str | None:

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 
 from .errors import IngestError
-from .raw import RawTable, number_values
+from .raw import RawTable
 
 ROLES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
 COVARIATE_KINDS = ("numeric", "categorical")
@@ -113,16 +113,17 @@ def suggest_levels(values: list[float]) -> tuple[float, float]:
     return levels[0], levels[-1]
 
 
-def _summary(cells: np.ndarray, decimal: str) -> tuple[int, np.ndarray | None, int]:
+def _summary(raw: RawTable, column: str) -> tuple[int, np.ndarray | None, int]:
     """Count the filled cells, their numbers (None unless every one is a number) and the
     distinct values (numbers compared as numbers, text as text), for one column at once."""
-    filled = cells[~pd.isna(cells)]
-    if not len(filled):
+    filled = ~raw.missing(column)
+    count = int(filled.sum())
+    if not count:
         return 0, None, 0
-    values = number_values(filled, decimal)
+    values = raw.numbers(column)[filled]
     if np.isnan(values).any():
-        return len(filled), None, len(pd.unique(filled))
-    return len(filled), values, len(np.unique(values))
+        return count, None, len(pd.unique(raw.frame[column].to_numpy(dtype=object)[filled]))
+    return count, values, len(np.unique(values))
 
 
 def _once(role: str, units: str | None, taken: set[str]) -> ColumnRole:
@@ -151,8 +152,7 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
         bare, units = split_units(column)
         plain = _plain(bare)
         words = set(plain.split())
-        filled, numbers, distinct = _summary(raw.frame[column].to_numpy(dtype=object),
-                                             raw.decimal)
+        filled, numbers, distinct = _summary(raw, column)
 
         if plain in _STANDARD_ORDER_NAMES:
             roles[column] = ColumnRole("ignore", units=units)

@@ -11,7 +11,7 @@ from app.analysis.terms import factor_name_problem
 
 from .canonical import DesignTable, design_table, typed_frame
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, format_rows
-from .raw import RawTable, number_values
+from .raw import RawTable
 from .roles import ColumnRole
 
 # Run order is a count of runs; beyond this a "whole number" from a float is no longer exact.
@@ -37,8 +37,8 @@ def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Proble
     Returns the float64 values, NaN where a cell is missing or not a number.
     """
     cells = raw.frame[column].to_numpy(dtype=object)
-    values = number_values(cells, raw.decimal)
-    missing_mask = pd.isna(cells)
+    values = raw.numbers(column)
+    missing_mask = raw.missing(column)
     bad = np.flatnonzero(np.isnan(values) & ~missing_mask)
     word = _ROLE_WORDS[role]
     for i in bad[:CELLS_LISTED_PER_COLUMN].tolist():
@@ -63,7 +63,7 @@ def _text_column(raw: RawTable, column: str, role: str, problems: list[Problem],
                  *, required: bool) -> np.ndarray:
     values = raw.frame[column].to_numpy(dtype=object)
     if required:
-        missing = _rows(raw, pd.isna(values))
+        missing = _rows(raw, raw.missing(column))
         if missing:
             problems.append(Problem(
                 f"Column '{column}' ({_ROLE_WORDS[role]}) has no value in "
@@ -118,8 +118,7 @@ def _repeated_orders(raw: RawTable, column: str, orders: np.ndarray, good: np.nd
 
 def _all_numbers(raw: RawTable, column: str) -> bool:
     """True when every filled cell of the column is a number."""
-    cells = raw.frame[column].to_numpy(dtype=object)
-    return not (np.isnan(number_values(cells, raw.decimal)) & ~pd.isna(cells)).any()
+    return not (np.isnan(raw.numbers(column)) & ~raw.missing(column)).any()
 
 
 def _check_roles(raw: RawTable, roles: dict[str, ColumnRole]) -> list[Problem]:
