@@ -9,7 +9,7 @@ import hashlib
 import numpy as np
 import pytest
 
-from app.ingest import ColumnRole, load_canonical, read_upload, validate
+from app.ingest import ColumnRole, IngestError, load_canonical, read_upload, validate
 from app.ingest.canonical import design_table, typed_frame
 
 _AWKWARD = ["0.30000000000000004", "1e-300", "-0.0", "123456789012345678", "1.7976931348623157e308",
@@ -100,3 +100,17 @@ def test_small_table_bytes_are_pinned_literally():
         b'2,1,170.0,2.5,-0.0,I,\n'
         b'3,2,150.0,2.5,0.00125,II,"\xc3\x96lbad, neu"\n'
         b'4,4,170.0,1.5,12345678901234.5,II,x\n')
+
+
+@pytest.mark.parametrize(("old", "new", "messages"), [
+    (b"\n2,1,", b"\n3,1,", ["Stored table row 2 is malformed."]),
+    (b"2,1,170.0", b"2,1", ["Stored table row 2 is malformed."]),
+    (b"1.5,0.1,", b"1.5,nan,", ["Stored table column 'Ausbeute' row 1: 'nan' is not valid."]),
+    (b"\n4,4,", b"\n4,4.5,", ["Stored table column 'Lauf' row 4: '4.5' is not valid."]),
+])
+def test_damaged_stored_table_names_row_and_column(old, new, messages):
+    table = _comma_table()
+    damaged = table.to_canonical_csv().replace(old, new)
+    with pytest.raises(IngestError) as err:
+        load_canonical(damaged, table.roles_json())
+    assert [p.message for p in err.value.problems] == messages
