@@ -6,11 +6,13 @@ import datetime as dt
 import io
 import warnings
 import zipfile
+from xml.parsers import expat
 
 from openpyxl import load_workbook
 from openpyxl.utils import get_column_letter
 
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, UploadTooLarge, format_size
+from .limits import MAX_CELL_CHARS, MAX_XLSX_STRING_CHARS
 from .raw import RawTable, clean_cell, split_header, trim_table
 
 # Members smaller than this are never called a bomb whatever their ratio: tiny XML parts
@@ -58,6 +60,95 @@ def check_archive(data: bytes, name: str, *, max_uncompressed: int, max_ratio: f
             raise UploadTooLarge.single(
                 f"'{name}' part '{member.filename}' is compressed {ratio:,.0f} to 1 (limit "
                 f"{max_ratio:g} to 1); the workbook is refused as a possible zip bomb.")
+
+
+class _TooLong(Exception):
+    """Raised from inside the XML scan to stop it at the first over-long string."""
+
+
+class _DocumentType(Exception):
+    """Raised from inside the XML scan when a part declares a document type."""
+
+
+def _string_lengths_ok(stream, limit: int) -> None:
+    """Stream one XML part through expat, raising :class:`_TooLong` as soon as any string
+    (all text runs of a shared or inline string together, or the text of any other element)
+    passes ``limit`` characters; :class:`_DocumentType` for a document type declaration, which
+    a spreadsheet program never writes (and whose entities could expand without bound)."""
+    parser = expat.ParserCreate()
+    parser.buffer_text = True
+    state = {"inside": 0, "length": 0}
+
+    def start(tag, _attrs):
+        if tag.rpartition(":")[2] in ("si", "is"):
+            state["inside"] += 1
+            state["length"] = 0
+        elif not state["inside"]:
+            state["length"] = 0
+
+    def end(tag):
+        if tag.rpartition(":")[2] in ("si", "is"):
+            state["inside"] -= 1
+        if not state["inside"]:
+            state["length"] = 0
+
+    def text(data):
+        state["length"] += len(data)
+        if state["length"] > limit:
+            raise _TooLong
+
+    def doctype(*_args):
+        raise _DocumentType
+
+    parser.StartElementHandler = start
+    parser.EndElementHandler = end
+    parser.CharacterDataHandler = text
+    parser.StartDoctypeDeclHandler = doctype
+    try:
+        while chunk := stream.read(1 << 16):
+            parser.Parse(chunk, False)
+        parser.Parse(b"", True)
+    except expat.ExpatError:
+        return  # malformed XML: openpyxl reports the workbook as unreadable
+
+
+def check_strings(data: bytes, name: str, *, limit: int = MAX_XLSX_STRING_CHARS) -> None:
+    """Refuse a workbook holding a string too long for any cell, before openpyxl builds it.
+
+    openpyxl reads the whole shared-string table into memory, and a cell's text in full, so a
+    small file of one highly compressible string could make it build hundreds of megabytes.
+    The shared strings and every worksheet are streamed in 64 kB pieces instead, keeping only
+    the length of the string being read.
+
+    Raises
+    ------
+    UploadTooLarge
+        A string over ``limit`` characters (names the part and the per-cell limit).
+    IngestError
+        A part with a document type declaration.
+    """
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        for member in archive.namelist():
+            if member != "xl/sharedStrings.xml" and not (
+                    member.startswith("xl/worksheets/") and member.endswith(".xml")):
+                continue
+            try:
+                with archive.open(member) as stream:
+                    _string_lengths_ok(stream, limit)
+            except _TooLong:
+                raise UploadTooLarge.single(
+                    f"'{name}' part '{member}' holds a text of more than {limit:,} characters, "
+                    f"more than a spreadsheet cell can hold; a cell may hold at most "
+                    f"{MAX_CELL_CHARS:,}. The workbook is refused.") from None
+            except _DocumentType:
+                raise IngestError.single(
+                    f"'{name}' cannot be read as an XLSX workbook (part '{member}' declares a "
+                    "document type); open it in a spreadsheet program and save it again, or "
+                    "upload CSV.") from None
+            # A damaged member fails in zipfile or zlib in many ways; openpyxl then reports the
+            # workbook as unreadable with the usual message.
+            except Exception:  # noqa: BLE001, S112
+                continue
 
 
 def _cell_text(value: object) -> str | None:
@@ -157,7 +248,8 @@ def read_xlsx(data: bytes, name: str, sheet: str | None, *, max_cells: int,
               max_uncompressed: int, max_ratio: float) -> RawTable:
     """Read one worksheet (the first when ``sheet`` is None) into a :class:`RawTable`.
 
-    The archive is checked with :func:`check_archive` first, then opened with openpyxl in
+    The archive is checked with :func:`check_archive` and :func:`check_strings` first, then
+    opened with openpyxl in
     read-only mode with cached formula results (``data_only=True``). Leading empty rows and
     columns are skipped, so the table may start anywhere; its first row is the header.
     Verified by the XLSX tests in ``tests/ingest``.
@@ -166,11 +258,12 @@ def read_xlsx(data: bytes, name: str, sheet: str | None, *, max_cells: int,
     ------
     IngestError
         Unknown sheet, a damaged workbook, formula cells with no saved value (each cell named),
-        no header, duplicate names.
+        no header, duplicate names, a cell or column name over its length cap.
     UploadTooLarge
-        Zip-bomb guard or more than ``max_cells`` cells.
+        Zip-bomb guard, a string too long for any cell, or more than ``max_cells`` cells.
     """
     check_archive(data, name, max_uncompressed=max_uncompressed, max_ratio=max_ratio)
+    check_strings(data, name)
     try:
         grid, chosen, names = _read_grid(data, sheet, name, data_only=True, max_cells=max_cells)
     except IngestError:
