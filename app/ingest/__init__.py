@@ -22,7 +22,7 @@ from .limits import (
     MAX_CELL_CHARS,
     MAX_HEADER_CHARS,
 )
-from .raw import RawTable
+from .raw import ColumnSummary, RawTable, summarize_column
 from .roles import ColumnRole, suggest_roles
 from .sniff import detect_kind
 from .validate import validate
@@ -36,6 +36,7 @@ __all__ = [
     "MAX_CELL_CHARS",
     "MAX_HEADER_CHARS",
     "ColumnRole",
+    "ColumnSummary",
     "DesignTable",
     "IngestError",
     "Problem",
@@ -44,6 +45,7 @@ __all__ = [
     "load_canonical",
     "read_upload",
     "suggest_roles",
+    "summarize_column",
     "validate",
 ]
 
