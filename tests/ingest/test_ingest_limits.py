@@ -2,6 +2,7 @@
 
 import io
 import random
+import re
 import string
 import time
 import zipfile
@@ -79,21 +80,76 @@ def test_xlsx_header_over_the_cap_names_the_column_position():
         "most 200."]
 
 
-def _with_shared_string(base: bytes, chunks, count: int) -> bytes:
-    """Replace the shared-string table by one string written from ``chunks`` repeated."""
+_MAIN = b'xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"'
+_SST_TYPE = b"application/vnd.openxmlformats-officedocument.spreadsheetml.sharedStrings+xml"
+_SST_REL = (b"http://schemas.openxmlformats.org/officeDocument/2006/relationships/"
+            b"sharedStrings")
+
+
+def _with_shared_string(base: bytes, chunks: bytes, count: int, *, runs: bool = False) -> bytes:
+    """Make cell B2 of ``base`` a shared string written from ``chunks`` repeated ``count`` times
+    (each repeat its own rich-text run when ``runs``), streamed so the test never holds it."""
     source = zipfile.ZipFile(io.BytesIO(base))
+    wired = {
+        "[Content_Types].xml": lambda x: x.replace(b"</Types>", b'<Override PartName="/xl/'
+                                                   b'sharedStrings.xml" ContentType="' + _SST_TYPE
+                                                   + b'" /></Types>'),
+        "xl/_rels/workbook.xml.rels": lambda x: x.replace(
+            b"</Relationships>", b'<Relationship Id="rIdSst" Type="' + _SST_REL
+            + b'" Target="sharedStrings.xml" /></Relationships>'),
+        "xl/worksheets/sheet1.xml": lambda x: re.sub(
+            rb'<c r="B2" t="inlineStr"><is><t>[^<]*</t></is></c>',
+            b'<c r="B2" t="s"><v>0</v></c>', x),
+    }
     buffer = io.BytesIO()
     with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as target:
         for info in source.infolist():
-            if info.filename != "xl/sharedStrings.xml":
-                target.writestr(info.filename, source.read(info.filename))
+            content = source.read(info.filename)
+            target.writestr(info.filename, wired.get(info.filename, lambda x: x)(content))
         with target.open("xl/sharedStrings.xml", "w", force_zip64=True) as member:
-            member.write(b'<sst xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/'
-                         b'main" count="1" uniqueCount="1"><si><t>')
+            member.write(b"<sst " + _MAIN + b' count="1" uniqueCount="1"><si>')
+            piece = b"<r><t>" + chunks + b"</t></r>" if runs else chunks
+            member.write(b"" if runs else b"<t>")
             for _ in range(count):
-                member.write(chunks)
-            member.write(b"</t></si></sst>")
+                member.write(piece)
+            member.write(b"</si></sst>" if runs else b"</t></si></sst>")
     return buffer.getvalue()
+
+
+def test_a_wired_shared_string_is_read_as_the_cell():
+    data = _with_shared_string(workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]}),
+                               b"ab", 3)
+    assert read_upload(data, "w.xlsx").frame.loc[1, "Note"] == "ababab"
+    data = _with_shared_string(workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]}),
+                               b"ab", 3, runs=True)
+    assert read_upload(data, "w.xlsx").frame.loc[1, "Note"] == "ababab"
+
+
+def test_rich_text_runs_count_together(openpyxl_must_not_open):  # noqa: F811
+    # No run is long, but the string they make is longer than a cell can hold.
+    data = _with_shared_string(workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]}),
+                               b"r" * 1_000, 40, runs=True)
+    with pytest.raises(UploadTooLarge, match="more than a spreadsheet cell can hold"):
+        read_upload(data, "w.xlsx")
+
+
+@pytest.mark.parametrize("cell", [
+    b'<c r="B2" t="inlineStr"><is><t>' + b"q" * 40_000 + b"</t></is></c>",
+    b'<c r="B2" t="inlineStr"><is>' + (b"<r><t>" + b"q" * 500 + b"</t></r>") * 80 + b"</is></c>",
+    b'<c r="B2" t="str"><v>' + b"7" * 40_000 + b"</v></c>",
+])
+def test_long_strings_inside_a_worksheet_are_refused(openpyxl_must_not_open, cell):  # noqa: F811
+    base = workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]})
+    sheet = zipfile.ZipFile(io.BytesIO(base)).read("xl/worksheets/sheet1.xml")
+    sheet = re.sub(rb'<c r="B2" t="inlineStr"><is><t>[^<]*</t></is></c>', cell, sheet)
+    source = zipfile.ZipFile(io.BytesIO(base))
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
+        for info in source.infolist():
+            target.writestr(info.filename, sheet if info.filename == "xl/worksheets/sheet1.xml"
+                            else source.read(info.filename))
+    with pytest.raises(UploadTooLarge, match="'xl/worksheets/sheet1.xml' holds a text of more"):
+        read_upload(buffer.getvalue(), "w.xlsx")
 
 
 def test_string_longer_than_any_cell_is_refused_before_openpyxl(openpyxl_must_not_open):  # noqa: F811
