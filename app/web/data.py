@@ -92,9 +92,13 @@ def _staged_raw(study_id: int, token: str, sheet: str | None):
     return staged, read_upload(staged.data, staged.filename, sheet or None, **_limits())
 
 
-def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole], problems, status=200):
+def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | None, problems,
+                  status=200):
+    """The preview: roles to confirm (the suggested ones when ``roles`` is None), a summary of
+    every column and the first ``PREVIEW_ROWS`` rows."""
     head = raw.frame.head(PREVIEW_ROWS)
     suggested = suggest_roles(raw)
+    roles = suggested if roles is None else roles
     summary = [(summarize_column(raw, c), suggested[c].role) for c in raw.frame.columns]
     return render_template(
         "data/preview.html", study=study, staged=staged, raw=raw, roles=roles,
@@ -114,7 +118,7 @@ def preview(study_id: int, token: str):
         return render_template(
             "data/upload.html", study=study, needs_reason=_has_versions(study_id),
             problems=[p.to_dict() for p in exc.problems]), 400
-    return _preview_page(study, staged, raw, suggest_roles(raw), [])
+    return _preview_page(study, staged, raw, None, [])
 
 
 def roles_from_form(form, columns: list[str]) -> dict[str, ColumnRole]:
@@ -157,7 +161,7 @@ def confirm(study_id: int, token: str):
     try:
         roles = roles_from_form(request.form, columns)
     except IngestError as exc:
-        return _preview_page(study, staged, raw, suggest_roles(raw),
+        return _preview_page(study, staged, raw, None,
                              [p.to_dict() for p in exc.problems], 400)
     try:
         from app.ingest import validate
