@@ -125,12 +125,13 @@ def build_roles(raw, suggested: dict, *, response: str, factors: list[str], run_
 
 
 def _levels_from_data(raw, name: str, units: str | None):
+    import numpy as np
+
     from app.ingest import ColumnRole
-    from app.ingest.raw import parse_number
     from app.ingest.roles import suggest_levels
 
-    values = [parse_number(c, raw.decimal) for c in raw.frame[name] if c is not None]
-    values = [v for v in values if v is not None]
+    numbers = raw.numbers(name)
+    values = numbers[~np.isnan(numbers)].tolist()
     if len(set(values)) < 2:
         return ColumnRole("factor", units=units)  # validation reports the constant column
     lo, hi = suggest_levels(values)

@@ -14,14 +14,29 @@ from pathlib import PurePath
 from .canonical import DesignTable, load_canonical
 from .csv_reader import read_csv
 from .errors import IngestError, Problem, UploadTooLarge, format_size
-from .raw import RawTable
+from .limits import (
+    DEFAULT_MAX_BYTES,
+    DEFAULT_MAX_CELLS,
+    DEFAULT_MAX_XLSX_RATIO,
+    DEFAULT_MAX_XLSX_UNCOMPRESSED,
+    MAX_CELL_CHARS,
+    MAX_HEADER_CHARS,
+)
+from .raw import ColumnSummary, RawTable, summarize_column
 from .roles import ColumnRole, suggest_roles
 from .sniff import detect_kind
 from .validate import validate
 from .xlsx_reader import read_xlsx
 
 __all__ = [
+    "DEFAULT_MAX_BYTES",
+    "DEFAULT_MAX_CELLS",
+    "DEFAULT_MAX_XLSX_RATIO",
+    "DEFAULT_MAX_XLSX_UNCOMPRESSED",
+    "MAX_CELL_CHARS",
+    "MAX_HEADER_CHARS",
     "ColumnRole",
+    "ColumnSummary",
     "DesignTable",
     "IngestError",
     "Problem",
@@ -30,13 +45,9 @@ __all__ = [
     "load_canonical",
     "read_upload",
     "suggest_roles",
+    "summarize_column",
     "validate",
 ]
-
-DEFAULT_MAX_BYTES = 20_000_000
-DEFAULT_MAX_CELLS = 2_000_000
-DEFAULT_MAX_XLSX_UNCOMPRESSED = 200_000_000
-DEFAULT_MAX_XLSX_RATIO = 100.0
 
 
 def read_upload(data: bytes, filename: str, sheet: str | None = None, *,

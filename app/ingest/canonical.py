@@ -42,6 +42,19 @@ def typed_frame(columns: dict[str, list], roles: dict[str, ColumnRole],
     return frame
 
 
+def _canonical_texts(values: np.ndarray, kind: str) -> list[str]:
+    """One column's cells as canonical text: floats as ``repr``, whole numbers in decimal,
+    text as it is, missing as the empty string."""
+    items = values.tolist()
+    if kind == _NUMERIC:
+        if values.dtype == np.float64:
+            return list(map(repr, items))
+        return ["" if v is None else repr(float(v)) for v in items]
+    if kind == "int64":
+        return [str(int(v)) for v in items]
+    return ["" if v is None else str(v) for v in items]
+
+
 @dataclass(frozen=True, eq=False)
 class DesignTable:
     """A validated table with a role for every column.
@@ -100,21 +113,10 @@ class DesignTable:
         out = io.StringIO(newline="")
         writer = csv.writer(out, lineterminator="\n", quoting=csv.QUOTE_MINIMAL)
         writer.writerow([ROW_COLUMN, *self.frame.columns])
-        kinds = [column_dtype(self.roles[c]) for c in self.frame.columns]
-        columns = [self.frame[c].tolist() for c in self.frame.columns]
-        for i, row in enumerate(self.frame.index):
-            cells = [str(int(row))]
-            for kind, values in zip(kinds, columns, strict=True):
-                value = values[i]
-                if value is None:
-                    cells.append("")
-                elif kind == _NUMERIC:
-                    cells.append(repr(float(value)))
-                elif kind == "int64":
-                    cells.append(str(int(value)))
-                else:
-                    cells.append(str(value))
-            writer.writerow(cells)
+        columns = [_canonical_texts(self.frame.index.to_numpy(), "int64")]
+        columns += [_canonical_texts(self.frame[c].to_numpy(), column_dtype(self.roles[c]))
+                    for c in self.frame.columns]
+        writer.writerows(zip(*columns, strict=True))
         return out.getvalue().encode("utf-8")
 
     def roles_json(self) -> str:
@@ -137,6 +139,33 @@ def design_table(frame: pd.DataFrame, roles: dict[str, ColumnRole]) -> DesignTab
                        responses=named("response"), run_order=single("run_order"),
                        block=single("block"), covariates=named("covariate"),
                        label=single("label"))
+
+
+def _stored_values(cells: tuple[str, ...], kind: str) -> list:
+    """One stored column back to values, as a whole; ValueError when any cell is not valid."""
+    if kind == _NUMERIC:
+        values = np.asarray(cells, dtype=object).astype(np.float64)  # float() of each cell
+        if not np.isfinite(values).all():
+            raise ValueError("not finite")
+        return values
+    if kind == "int64":
+        return list(map(int, cells))
+    return [cell if cell != "" else None for cell in cells]
+
+
+def _stored_problems(header: list[str], body: list[list[str]],
+                     roles: dict[str, ColumnRole]) -> list[Problem]:
+    """Every stored cell that is not what its role requires, row by row."""
+    problems = []
+    for number, row in enumerate(body, start=1):
+        for name, cell in zip(header, row[1:], strict=True):
+            try:
+                _stored_values((cell,), column_dtype(roles[name]))
+            except ValueError:
+                problems.append(Problem(
+                    f"Stored table column '{name}' row {number}: '{cell}' is not valid.",
+                    row=number, column=name))
+    return problems
 
 
 def load_canonical(csv_bytes: bytes, roles_json: str) -> DesignTable:
@@ -165,30 +194,19 @@ def load_canonical(csv_bytes: bytes, roles_json: str) -> DesignTable:
         raise IngestError.single(
             "The stored table's columns do not match its roles: "
             f"table has {header}, roles expect {kept}.")
-    columns: dict[str, list] = {c: [] for c in header}
-    problems = []
-    for number, row in enumerate(rows[1:], start=1):
-        if len(row) != len(header) + 1 or row[0] != str(number):
-            raise IngestError.single(f"Stored table row {number} is malformed.", row=number)
-        for name, cell in zip(header, row[1:], strict=True):
-            kind = column_dtype(roles[name])
-            try:
-                if kind == _NUMERIC:
-                    value = float(cell)
-                    if not np.isfinite(value):
-                        raise ValueError(cell)
-                elif kind == "int64":
-                    value = int(cell)
-                else:
-                    value = cell if cell != "" else None
-            except ValueError:
-                problems.append(Problem(
-                    f"Stored table column '{name}' row {number}: '{cell}' is not valid.",
-                    row=number, column=name))
-                continue
-            columns[name].append(value)
-    if problems:
-        raise IngestError(problems)
+    body = rows[1:]
+    numbers = list(map(str, range(1, len(body) + 1)))
+    if set(map(len, body)) - {len(header) + 1} or [row[0] for row in body] != numbers:
+        for number, row in zip(numbers, body, strict=True):
+            if len(row) != len(header) + 1 or row[0] != number:
+                raise IngestError.single(f"Stored table row {number} is malformed.",
+                                         row=int(number))
+    cells = list(zip(*body, strict=True)) if body else [()] * (len(header) + 1)
+    try:
+        columns = {name: _stored_values(column, column_dtype(roles[name]))
+                   for name, column in zip(header, cells[1:], strict=True)}
+    except ValueError:
+        raise IngestError(_stored_problems(header, body, roles)) from None
     ordered = {c: roles[c] for c in header}
     ordered.update({c: r for c, r in roles.items() if c not in ordered})
     return design_table(typed_frame(columns, ordered, len(rows) - 1), ordered)

@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
+import numpy as np
 import pandas as pd
 
 from .errors import IngestError, Problem, format_rows
+from .limits import MAX_CELL_CHARS, MAX_HEADER_CHARS
 
 # A plain decimal number: optional sign, digits with an optional fraction, optional exponent.
 # Deliberately narrower than float(): "nan", "inf", "1_000" and hex are not measurements.
@@ -38,18 +40,43 @@ def parse_number(text: str, decimal: str = ".") -> float | None:
     return value
 
 
-def parse_numbers(cells: list[str | None], decimal: str = ".") -> list[float | None]:
-    """:func:`parse_number` over a column (None stays None), parsing each distinct text once."""
-    seen: dict[str, float | None] = {}
-    out = []
-    for cell in cells:
-        if cell is None:
-            out.append(None)
-            continue
-        if cell not in seen:
-            seen[cell] = parse_number(cell, decimal)
-        out.append(seen[cell])
+def number_values(cells: pd.Series | np.ndarray, decimal: str = ".") -> np.ndarray:
+    """:func:`parse_number` over a column at once: a float64 array, NaN where it gives None.
+
+    Each distinct text is matched and converted once; the same patterns and the same refusal
+    of overflow apply, so ``"nan"``, ``"inf"``, ``"1_000"``, hex and ``"1e999"`` are NaN here
+    exactly when :func:`parse_number` refuses them. Empty cells (None) are NaN too.
+    """
+    values = np.asarray(cells, dtype=object)
+    out = np.full(len(values), np.nan)
+    present = ~pd.isna(values)
+    if not present.any():
+        return out
+    codes, distinct = pd.factorize(values[present])
+    out[present] = _distinct_numbers(np.asarray(distinct, dtype=object), decimal)[codes]
     return out
+
+
+def _distinct_numbers(texts: np.ndarray, decimal: str) -> np.ndarray:
+    """Float64 value of each text, NaN for those :func:`parse_number` refuses."""
+    pattern = _NUMBER_COMMA if decimal == "," else _NUMBER_POINT
+    ok = np.fromiter(map(bool, map(pattern.fullmatch, texts)), bool, len(texts))
+    out = np.full(len(texts), np.nan)
+    if ok.any():
+        matched = texts[ok]
+        if decimal == ",":
+            matched = np.asarray([t.replace(",", ".") for t in matched], dtype=object)
+        with np.errstate(over="ignore", invalid="ignore"):
+            numbers = matched.astype(np.float64)  # float() of each text, so the same double
+        numbers[~np.isfinite(numbers)] = np.nan  # an exponent such as 1e999 overflows to inf
+        out[ok] = numbers
+    return out
+
+
+def parse_numbers(cells: list[str | None], decimal: str = ".") -> list[float | None]:
+    """:func:`parse_number` over a column (None stays None), through :func:`number_values`."""
+    values = number_values(np.asarray(cells, dtype=object), decimal)
+    return [None if v != v else v for v in values.tolist()]
 
 
 def looks_numeric(text: str) -> bool:
@@ -85,11 +112,62 @@ class RawTable:
     decimal: str = "."
     sheet: str | None = None
     sheets: tuple[str, ...] = ()
+    _columns: dict = field(default_factory=dict, init=False, repr=False)
 
     @property
     def n_rows(self) -> int:
         """Number of data rows."""
         return len(self.frame)
+
+    def missing(self, column: str) -> np.ndarray:
+        """Boolean array, true where the column's cell is empty (read-only, computed once)."""
+        return self._column(column)[0]
+
+    def numbers(self, column: str) -> np.ndarray:
+        """The column through :func:`number_values` with this file's decimal mark: float64,
+        NaN where a cell is empty or not a number (read-only, computed once)."""
+        return self._column(column)[1]
+
+    def _column(self, column: str) -> tuple[np.ndarray, np.ndarray]:
+        if column not in self._columns:
+            cells = self.frame[column].to_numpy(dtype=object)
+            missing = pd.isna(cells)
+            values = number_values(cells, self.decimal)
+            missing.flags.writeable = values.flags.writeable = False
+            self._columns[column] = (missing, values)
+        return self._columns[column]
+
+
+@dataclass(frozen=True)
+class ColumnSummary:
+    """What one column holds, counted at once: the numbers, the blanks and the other text.
+
+    Attributes
+    ----------
+    name : str
+    numbers, blanks, text : int
+        Cells that are numbers, empty cells, and filled cells that are not numbers.
+    low, high : float or None
+        Smallest and largest number; None when the column holds none.
+    """
+
+    name: str
+    numbers: int
+    blanks: int
+    text: int
+    low: float | None
+    high: float | None
+
+
+def summarize_column(raw: RawTable, column: str) -> ColumnSummary:
+    """Count a column's numbers, blanks and other text, with the range of its numbers."""
+    missing, values = raw.missing(column), raw.numbers(column)
+    found = ~np.isnan(values)
+    count = int(found.sum())
+    blanks = int(missing.sum())
+    low = float(values[found].min()) if count else None
+    high = float(values[found].max()) if count else None
+    return ColumnSummary(column, count, blanks, len(values) - count - blanks, low, high)
 
 
 def clean_cell(value: str | None) -> str | None:
@@ -100,7 +178,126 @@ def clean_cell(value: str | None) -> str | None:
     return value or None
 
 
-def build_frame(header: list[str | None], rows: list[list[str | None]],
+def grid_from_rows(rows: list[list[str | None]]) -> pd.DataFrame:
+    """The cells of a file as a frame of object columns 0..w-1, rows shorter than the widest
+    padded with None; row 0 is the file's first row."""
+    width = max((len(r) for r in rows), default=0)
+    grid = pd.DataFrame([r + [None] * (width - len(r)) for r in rows], dtype=object,
+                        columns=range(width))
+    return grid.reset_index(drop=True)
+
+
+def clean_grid(grid: pd.DataFrame) -> pd.DataFrame:
+    """:func:`clean_cell` column by column: whitespace stripped, empty or missing to None."""
+    return pd.DataFrame({k: _clean_column(grid[k]) for k in grid.columns}, index=grid.index,
+                        columns=grid.columns, dtype=object)
+
+
+def _clean_column(column: pd.Series) -> np.ndarray:
+    """Strip each distinct text once; empty and missing cells become None."""
+    codes, distinct = pd.factorize(column.to_numpy(dtype=object))
+    cleaned = np.array([t.strip() or None for t in distinct.tolist()] + [None], dtype=object)
+    return cleaned[codes]  # code -1 (missing) picks the trailing None
+
+
+def trim_grid(grid: pd.DataFrame) -> pd.DataFrame:
+    """Drop trailing empty rows, and trailing columns that are empty in every row.
+
+    Spreadsheet exports often carry formatted but empty cells at the edges; they are not data.
+    Empty rows inside the table are kept so that row numbers match the file.
+    """
+    filled = grid.notna().to_numpy()
+    rows = np.flatnonzero(filled.any(axis=1))
+    columns = np.flatnonzero(filled.any(axis=0))
+    height = int(rows[-1]) + 1 if len(rows) else 0
+    width = int(columns[-1]) + 1 if len(columns) and height else 0
+    return grid.iloc[:height, :width]
+
+
+def trim_table(table: list[list[str | None]]) -> list[list[str | None]]:
+    """:func:`trim_grid` for a table held as lists; every row comes back the same width."""
+    trimmed = trim_grid(grid_from_rows(table))
+    return [[None if v is None or v != v else v for v in row]
+            for row in trimmed.to_numpy(dtype=object).tolist()]
+
+
+def split_header(table: list[list[str | None]] | pd.DataFrame, where: str) -> pd.DataFrame:
+    """Take the first row as the header and build the frame.
+
+    ``table`` holds cleaned cells, as lists of rows or as a grid from :func:`clean_grid`. A
+    column with no name and no values (a spacer, or an export's stray delimiter) is dropped;
+    a column with values but no name is a problem.
+    """
+    grid = trim_grid(table if isinstance(table, pd.DataFrame) else grid_from_rows(table))
+    if grid.empty:
+        raise IngestError.single(f"{where} holds no cells; it is empty.")
+    header = [None if v is None or v != v else v for v in grid.iloc[0].tolist()]
+    body = grid.iloc[1:]
+    check_header_lengths(header)
+    _require_header(header, where)
+    keep = []
+    problems = []
+    for i, name in enumerate(header):
+        if name is not None:
+            keep.append(i)
+            continue
+        filled = (np.flatnonzero(body.iloc[:, i].notna().to_numpy()) + 1).tolist()
+        if filled:
+            keep.append(i)
+            problems.append(Problem(
+                f"Header row: column {i + 1} has no name, but row{'s' if len(filled) > 1 else ''} "
+                f"{format_rows(filled)} hold{'' if len(filled) > 1 else 's'} values in it; "
+                "name the column or remove it.", row=filled[0]))
+    if problems and not any(h is not None for h in header):
+        raise IngestError.single(f"{where} has no header row: the first row is empty.")
+    if problems:
+        raise IngestError(problems)
+    return build_frame([header[i] for i in keep], body.iloc[:, keep], where)
+
+
+def check_header_lengths(header: list[str | None]) -> None:
+    """Refuse column names over :data:`~app.ingest.limits.MAX_HEADER_CHARS` characters.
+
+    Raises
+    ------
+    IngestError
+        Naming each such column by its position and the limit (the name is not repeated).
+    """
+    problems = [Problem(
+        f"Header row: the name of column {position} is {len(name):,} characters long; a column "
+        f"name may hold at most {MAX_HEADER_CHARS:,}.")
+        for position, name in enumerate(header, start=1)
+        if name is not None and len(name) > MAX_HEADER_CHARS]
+    if problems:
+        raise IngestError(problems)
+
+
+def check_cell_lengths(frame: pd.DataFrame) -> None:
+    """Refuse cells over :data:`~app.ingest.limits.MAX_CELL_CHARS` characters, per column.
+
+    Raises
+    ------
+    IngestError
+        One problem per column with such cells, naming the column, the rows and the limit.
+    """
+    problems = []
+    for name in frame.columns:
+        values = frame[name].to_numpy(dtype=object)
+        distinct = pd.unique(values)
+        longest = max((len(t) for t in distinct if t is not None), default=0)
+        if longest <= MAX_CELL_CHARS:
+            continue
+        rows = frame.index[np.flatnonzero(
+            [t is not None and len(t) > MAX_CELL_CHARS for t in values])].tolist()
+        problems.append(Problem(
+            f"Column '{name}' row{'s' if len(rows) > 1 else ''} {format_rows(rows)}: a cell may "
+            f"hold at most {MAX_CELL_CHARS:,} characters, and the longest here holds "
+            f"{longest:,}.", row=rows[0], column=name))
+    if problems:
+        raise IngestError(problems)
+
+
+def build_frame(header: list[str | None], rows: list[list[str | None]] | pd.DataFrame,
                 where: str) -> pd.DataFrame:
     """Check the header and assemble the object-dtype frame with index 1..n.
 
@@ -108,7 +305,7 @@ def build_frame(header: list[str | None], rows: list[list[str | None]],
     ----------
     header : list
         First row of the table, cells already cleaned.
-    rows : list of list
+    rows : list of list, or pandas.DataFrame
         Data rows, cells already cleaned, each padded or cut to the header width.
     where : str
         How messages name the place, e.g. ``"The file"`` or ``"Sheet 'Runs'"``.
@@ -116,9 +313,11 @@ def build_frame(header: list[str | None], rows: list[list[str | None]],
     Raises
     ------
     IngestError
-        No header row, an unnamed or number-like column name, or duplicate names.
+        No header row, an unnamed or number-like column name, or duplicate names, or a cell
+        longer than the cap.
     """
     problems: list[Problem] = []
+    check_header_lengths(header)
     _require_header(header, where)
     for position, name in enumerate(header, start=1):
         if name is not None and looks_numeric(name):
@@ -141,10 +340,16 @@ def build_frame(header: list[str | None], rows: list[list[str | None]],
             seen[key] = position
     if problems:
         raise IngestError(problems)
-    if not rows:
+    if not len(rows):
         raise IngestError.single(f"{where} has a header row but no data rows.")
-    frame = pd.DataFrame(rows, columns=header, dtype=object)
+    if isinstance(rows, pd.DataFrame):
+        frame = pd.DataFrame({i: rows.iloc[:, i].to_numpy(dtype=object)
+                              for i in range(len(header))}, dtype=object)
+        frame.columns = header
+    else:
+        frame = pd.DataFrame(rows, columns=header, dtype=object)
     frame.index = pd.RangeIndex(1, len(rows) + 1, name="row")
+    check_cell_lengths(frame)
     return frame
 
 
@@ -155,48 +360,3 @@ def _require_header(header: list[str | None], where: str) -> None:
             f"{where} has no header row: the first row holds only numbers "
             f"({', '.join(named[:3])}{' …' if len(named) > 3 else ''}). "
             "Add a first row that names every column.")
-
-
-def trim_table(table: list[list[str | None]]) -> list[list[str | None]]:
-    """Drop trailing empty rows, and trailing columns that are empty in every row.
-
-    Spreadsheet exports often carry formatted but empty cells at the edges; they are not data.
-    Empty rows inside the table are kept so that row numbers match the file.
-    """
-    while table and all(cell is None for cell in table[-1]):
-        table.pop()
-    width = max((len(r) for r in table), default=0)
-    while width and all(len(r) < width or r[width - 1] is None for r in table):
-        width -= 1
-    return [(r + [None] * (width - len(r)))[:width] for r in table]
-
-
-def split_header(table: list[list[str | None]], where: str) -> pd.DataFrame:
-    """Take the first row as the header and build the frame.
-
-    A column with no name and no values (a spacer, or an export's stray delimiter) is dropped;
-    a column with values but no name is a problem.
-    """
-    table = trim_table(table)
-    if not table:
-        raise IngestError.single(f"{where} holds no cells; it is empty.")
-    header, body = table[0], table[1:]
-    _require_header(header, where)
-    keep = []
-    problems = []
-    for i, name in enumerate(header):
-        if name is not None:
-            keep.append(i)
-            continue
-        filled = [number for number, row in enumerate(body, start=1) if row[i] is not None]
-        if filled:
-            keep.append(i)
-            problems.append(Problem(
-                f"Header row: column {i + 1} has no name, but row{'s' if len(filled) > 1 else ''} "
-                f"{format_rows(filled)} hold{'' if len(filled) > 1 else 's'} values in it; "
-                "name the column or remove it.", row=filled[0]))
-    if problems and not any(h is not None for h in header):
-        raise IngestError.single(f"{where} has no header row: the first row is empty.")
-    if problems:
-        raise IngestError(problems)
-    return build_frame([header[i] for i in keep], [[r[i] for i in keep] for r in body], where)

@@ -6,8 +6,11 @@ import math
 import re
 from dataclasses import asdict, dataclass
 
+import numpy as np
+import pandas as pd
+
 from .errors import IngestError
-from .raw import RawTable, parse_numbers
+from .raw import RawTable
 
 ROLES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
 COVARIATE_KINDS = ("numeric", "categorical")
@@ -110,9 +113,17 @@ def suggest_levels(values: list[float]) -> tuple[float, float]:
     return levels[0], levels[-1]
 
 
-def _numbers(cells: list[str], decimal: str) -> list[float] | None:
-    parsed = parse_numbers(cells, decimal)
-    return None if any(v is None for v in parsed) else parsed
+def _summary(raw: RawTable, column: str) -> tuple[int, np.ndarray | None, int]:
+    """Count the filled cells, their numbers (None unless every one is a number) and the
+    distinct values (numbers compared as numbers, text as text), for one column at once."""
+    filled = ~raw.missing(column)
+    count = int(filled.sum())
+    if not count:
+        return 0, None, 0
+    values = raw.numbers(column)[filled]
+    if np.isnan(values).any():
+        return count, None, len(pd.unique(raw.frame[column].to_numpy(dtype=object)[filled]))
+    return count, values, len(np.unique(values))
 
 
 def _once(role: str, units: str | None, taken: set[str]) -> ColumnRole:
@@ -141,9 +152,7 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
         bare, units = split_units(column)
         plain = _plain(bare)
         words = set(plain.split())
-        cells = [c for c in raw.frame[column].tolist() if c is not None]
-        numbers = _numbers(cells, raw.decimal) if cells else None
-        distinct = len(set(numbers if numbers is not None else cells))
+        filled, numbers, distinct = _summary(raw, column)
 
         if plain in _STANDARD_ORDER_NAMES:
             roles[column] = ColumnRole("ignore", units=units)
@@ -158,12 +167,12 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
         elif numbers is not None:
             if words & _COVARIATE_WORDS:
                 roles[column] = ColumnRole("covariate", units=units, kind="numeric")
-            elif (len(cells) == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n):
-                low, high = suggest_levels(numbers)
+            elif filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
+                low, high = suggest_levels(numbers.tolist())
                 roles[column] = ColumnRole("factor", units=units, low=low, high=high)
             else:
                 roles[column] = ColumnRole("response", units=units)
-        elif distinct < len(cells):
+        elif distinct < filled:
             roles[column] = ColumnRole("covariate", units=units, kind="categorical")
         else:
             roles[column] = _once("label", units, taken)

@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+import pandas as pd
+
 from app.analysis.terms import factor_name_problem
 
 from .canonical import DesignTable, design_table, typed_frame
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, format_rows
-from .raw import RawTable, parse_numbers
+from .raw import RawTable
 from .roles import ColumnRole
 
 # Run order is a count of runs; beyond this a "whole number" from a float is no longer exact.
@@ -22,34 +25,33 @@ def _fmt(value: float) -> str:
     return f"{value:g}" if math.isclose(value, float(f"{value:g}")) else repr(value)
 
 
-def _cells(raw: RawTable, column: str) -> list[tuple[int, str | None]]:
-    return list(zip(raw.frame.index.tolist(), raw.frame[column].tolist(), strict=True))
+def _rows(raw: RawTable, where: np.ndarray) -> list[int]:
+    """Row numbers (as int) of the cells where the mask is true."""
+    return raw.frame.index.to_numpy()[where].tolist()
 
 
 def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Problem],
-                    *, missing_note: str = "") -> list[float | None]:
-    """Parse a column of numbers, adding a problem for the first few bad cells and the gaps."""
-    values: list[float | None] = []
-    bad: list[tuple[int, str]] = []
-    missing: list[int] = []
-    cells = raw.frame[column].tolist()
-    for row, cell, value in zip(raw.frame.index.tolist(), cells,
-                                parse_numbers(cells, raw.decimal), strict=True):
-        if cell is None:
-            missing.append(row)
-        elif value is None:
-            bad.append((row, cell))
-        values.append(value)
+                    *, missing_note: str = "") -> np.ndarray:
+    """Parse a column of numbers, adding a problem for the first few bad cells and the gaps.
+
+    Returns the float64 values, NaN where a cell is missing or not a number.
+    """
+    cells = raw.frame[column].to_numpy(dtype=object)
+    values = raw.numbers(column)
+    missing_mask = raw.missing(column)
+    bad = np.flatnonzero(np.isnan(values) & ~missing_mask)
     word = _ROLE_WORDS[role]
-    for row, cell in bad[:CELLS_LISTED_PER_COLUMN]:
+    for i in bad[:CELLS_LISTED_PER_COLUMN].tolist():
+        row = int(raw.frame.index[i])
         problems.append(Problem(
-            f"Column '{column}' ({word}) row {row}: '{cell}' is not a number"
+            f"Column '{column}' ({word}) row {row}: '{cells[i]}' is not a number"
             + (" (this file uses a decimal comma)" if raw.decimal == "," else "") + ".",
             row=row, column=column))
     if len(bad) > CELLS_LISTED_PER_COLUMN:
         problems.append(Problem(
             f"Column '{column}' ({word}) has {len(bad) - CELLS_LISTED_PER_COLUMN} more cells "
             "that are not numbers.", column=column))
+    missing = _rows(raw, missing_mask)
     if missing:
         problems.append(Problem(
             f"Column '{column}' ({word}) has no value in row{'s' if len(missing) > 1 else ''} "
@@ -58,48 +60,53 @@ def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Proble
 
 
 def _text_column(raw: RawTable, column: str, role: str, problems: list[Problem],
-                 *, required: bool) -> list[str | None]:
-    values = [cell for _, cell in _cells(raw, column)]
-    missing = [row for row, cell in _cells(raw, column) if cell is None]
-    if required and missing:
-        problems.append(Problem(
-            f"Column '{column}' ({_ROLE_WORDS[role]}) has no value in "
-            f"row{'s' if len(missing) > 1 else ''} {format_rows(missing)}.",
-            row=missing[0], column=column))
+                 *, required: bool) -> np.ndarray:
+    values = raw.frame[column].to_numpy(dtype=object)
+    if required:
+        missing = _rows(raw, raw.missing(column))
+        if missing:
+            problems.append(Problem(
+                f"Column '{column}' ({_ROLE_WORDS[role]}) has no value in "
+                f"row{'s' if len(missing) > 1 else ''} {format_rows(missing)}.",
+                row=missing[0], column=column))
     return values
 
 
-def _run_order(raw: RawTable, column: str, problems: list[Problem]) -> list[int | None]:
+def _listed(rows: list[int], values: np.ndarray) -> str:
+    return ", ".join(f"row {r} has {_fmt(float(v))}"
+                     for r, v in zip(rows[:CELLS_LISTED_PER_COLUMN],
+                                     values[:CELLS_LISTED_PER_COLUMN].tolist(), strict=False))
+
+
+def _run_order(raw: RawTable, column: str, problems: list[Problem]) -> np.ndarray:
     numbers = _numeric_column(raw, column, "run_order", problems)
-    orders: list[int | None] = []
-    not_whole: list[tuple[int, float]] = []
-    not_positive: list[tuple[int, float]] = []
-    for row, value in zip(raw.frame.index.tolist(), numbers, strict=True):
-        if value is None:
-            orders.append(None)
-        elif not value.is_integer() or value > _MAX_RUN_ORDER:
-            not_whole.append((row, value))
-            orders.append(None)
-        elif value < 1:
-            not_positive.append((row, value))
-            orders.append(None)
-        else:
-            orders.append(int(value))
-    if not_whole:
-        listed = ", ".join(f"row {r} has {_fmt(v)}" for r, v in not_whole[:CELLS_LISTED_PER_COLUMN])
-        problems.append(Problem(f"Run order '{column}' must be whole numbers: {listed}.",
-                                row=not_whole[0][0], column=column))
-    if not_positive:
-        listed = ", ".join(f"row {r} has {_fmt(v)}"
-                           for r, v in not_positive[:CELLS_LISTED_PER_COLUMN])
-        problems.append(Problem(f"Run order '{column}' must be 1 or more: {listed}.",
-                                row=not_positive[0][0], column=column))
-    rows_by_order: dict[int, list[int]] = {}
-    for row, order in zip(raw.frame.index.tolist(), orders, strict=True):
-        if order is not None:
-            rows_by_order.setdefault(order, []).append(row)
-    repeats = [(o, rows) for o, rows in sorted(rows_by_order.items()) if len(rows) > 1]
-    for order, rows in repeats[:CELLS_LISTED_PER_COLUMN]:
+    present = ~np.isnan(numbers)
+    with np.errstate(invalid="ignore"):
+        not_whole = present & ((np.floor(numbers) != numbers) | (numbers > _MAX_RUN_ORDER))
+        not_positive = present & ~not_whole & (numbers < 1)
+    good = present & ~not_whole & ~not_positive
+    if not_whole.any():
+        rows = _rows(raw, not_whole)
+        problems.append(Problem(
+            f"Run order '{column}' must be whole numbers: {_listed(rows, numbers[not_whole])}.",
+            row=rows[0], column=column))
+    if not_positive.any():
+        rows = _rows(raw, not_positive)
+        problems.append(Problem(
+            f"Run order '{column}' must be 1 or more: {_listed(rows, numbers[not_positive])}.",
+            row=rows[0], column=column))
+    orders = np.where(good, numbers, 0).astype(np.int64)
+    _repeated_orders(raw, column, orders, good, problems)
+    return orders if good.all() else np.where(good, orders, None).astype(object)
+
+
+def _repeated_orders(raw: RawTable, column: str, orders: np.ndarray, good: np.ndarray,
+                     problems: list[Problem]) -> None:
+    """Add a problem for each of the first few run-order numbers used in more than one row."""
+    distinct, counts = np.unique(orders[good], return_counts=True)
+    repeats = distinct[counts > 1].tolist()
+    for order in repeats[:CELLS_LISTED_PER_COLUMN]:
+        rows = _rows(raw, good & (orders == order))
         problems.append(Problem(
             f"Run order {order} appears in rows {format_rows(rows)} of '{column}'; each run "
             "needs its own place in the order.", row=rows[1], column=column))
@@ -107,7 +114,11 @@ def _run_order(raw: RawTable, column: str, problems: list[Problem]) -> list[int 
         problems.append(Problem(
             f"Run order '{column}' repeats {len(repeats) - CELLS_LISTED_PER_COLUMN} more "
             "numbers.", column=column))
-    return orders
+
+
+def _all_numbers(raw: RawTable, column: str) -> bool:
+    """True when every filled cell of the column is a number."""
+    return not (np.isnan(raw.numbers(column)) & ~raw.missing(column)).any()
 
 
 def _check_roles(raw: RawTable, roles: dict[str, ColumnRole]) -> list[Problem]:
@@ -174,27 +185,22 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
     several = sum(1 for r in full.values() if r.role == "response") > 1
     response_note = (" Every response needs a value in every row; mark a column 'ignore' to "
                      "leave it out." if several else "")
-    columns: dict[str, list] = {}
+    columns: dict[str, np.ndarray] = {}
     for name, role in full.items():
         if role.role == "ignore":
             continue
         if role.role == "factor":
             values = _numeric_column(raw, name, "factor", problems)
-            present = [v for v in values if v is not None]
-            if present and len(set(present)) == 1 and len(present) == len(values):
+            if len(values) and not np.isnan(values).any() and (values == values[0]).all():
                 problems.append(Problem(
-                    f"Factor '{name}' is constant (every row is {_fmt(present[0])}); a factor "
-                    "must vary to be estimated. Mark it 'ignore'.", column=name))
+                    f"Factor '{name}' is constant (every row is {_fmt(float(values[0]))}); a "
+                    "factor must vary to be estimated. Mark it 'ignore'.", column=name))
         elif role.role == "response":
             values = _numeric_column(raw, name, "response", problems, missing_note=response_note)
         elif role.role == "run_order":
             values = _run_order(raw, name, problems)
         elif role.role == "covariate":
-            cells = raw.frame[name].tolist()
-            kind = role.kind or ("numeric" if all(
-                v is not None for c, v in zip(cells, parse_numbers(cells, raw.decimal),
-                                              strict=True) if c is not None)
-                else "categorical")
+            kind = role.kind or ("numeric" if _all_numbers(raw, name) else "categorical")
             full[name] = role = ColumnRole("covariate", units=role.units, kind=kind)
             if kind == "numeric":
                 values = _numeric_column(raw, name, "covariate", problems)
@@ -207,7 +213,7 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
     n = raw.n_rows
     factors = sum(1 for r in full.values() if r.role == "factor")
     block = next((c for c, r in full.items() if r.role == "block"), None)
-    blocks = len({v for v in columns[block] if v is not None}) if block else 1
+    blocks = len({v for v in pd.unique(columns[block]) if v is not None}) if block else 1
     needed = 1 + factors + max(blocks - 1, 0)
     if n < needed:
         extra = f" and {blocks - 1} for blocks" if blocks > 1 else ""

@@ -4,19 +4,24 @@ from __future__ import annotations
 
 import datetime as dt
 import io
+import re
 import warnings
 import zipfile
+from xml.parsers import expat
 
 from openpyxl import load_workbook
 from openpyxl.utils import get_column_letter
 
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, UploadTooLarge, format_size
+from .limits import MAX_CELL_CHARS, MAX_XLSX_STRING_CHARS
 from .raw import RawTable, clean_cell, split_header, trim_table
 
 # Members smaller than this are never called a bomb whatever their ratio: tiny XML parts
 # (styles, relationships) compress extremely well and are harmless.
 _RATIO_FLOOR_BYTES = 1_000_000
 _MAX_MEMBERS = 10_000
+# Opening and closing tags of a shared string (si) or an inline string (is), any prefix.
+_STRING_TAG = re.compile(rb"<(/?)(?:[A-Za-z_][\w.-]*:)?(?:si|is)>")
 
 
 def check_archive(data: bytes, name: str, *, max_uncompressed: int, max_ratio: float) -> None:
@@ -58,6 +63,156 @@ def check_archive(data: bytes, name: str, *, max_uncompressed: int, max_ratio: f
             raise UploadTooLarge.single(
                 f"'{name}' part '{member.filename}' is compressed {ratio:,.0f} to 1 (limit "
                 f"{max_ratio:g} to 1); the workbook is refused as a possible zip bomb.")
+
+
+class _TooLong(Exception):
+    """Raised from inside the XML scan to stop it at the first over-long string."""
+
+
+class _DocumentType(Exception):
+    """Raised from inside the XML scan when a part declares a document type."""
+
+
+def _string_lengths_ok(stream, limit: int) -> None:
+    """Stream one XML part through expat, raising :class:`_TooLong` as soon as any string
+    (all text runs of a shared or inline string together, or the text of any other element)
+    passes ``limit`` characters; :class:`_DocumentType` for a document type declaration, which
+    a spreadsheet program never writes (and whose entities could expand without bound)."""
+    parser = expat.ParserCreate()
+    parser.buffer_text = True
+    state = {"inside": 0, "length": 0}
+
+    def start(tag, _attrs):
+        if tag.rpartition(":")[2] in ("si", "is"):
+            state["inside"] += 1
+            state["length"] = 0
+        elif not state["inside"]:
+            state["length"] = 0
+
+    def end(tag):
+        if tag.rpartition(":")[2] in ("si", "is"):
+            state["inside"] -= 1
+        if not state["inside"]:
+            state["length"] = 0
+
+    def text(data):
+        state["length"] += len(data)
+        if state["length"] > limit:
+            raise _TooLong
+
+    def doctype(*_args):
+        raise _DocumentType
+
+    parser.StartElementHandler = start
+    parser.EndElementHandler = end
+    parser.CharacterDataHandler = text
+    parser.StartDoctypeDeclHandler = doctype
+    try:
+        while chunk := stream.read(1 << 16):
+            parser.Parse(chunk, False)
+        parser.Parse(b"", True)
+    except expat.ExpatError:
+        return  # malformed XML: openpyxl reports the workbook as unreadable
+
+
+def _new_tag(buffer: bytes, seen: int, *, last: bool) -> re.Match | None:
+    """The first (or last) shared- or inline-string tag in ``buffer`` ending after ``seen``."""
+    if not last:
+        match = _STRING_TAG.search(buffer)
+        while match is not None and match.end() <= seen:
+            match = _STRING_TAG.search(buffer, match.end())
+        return match
+    end = len(buffer)
+    while (at := max(buffer.rfind(b"is>", 0, end), buffer.rfind(b"si>", 0, end))) >= 0:
+        if at + 3 <= seen:
+            return None
+        start = buffer.rfind(b"<", 0, at)
+        match = _STRING_TAG.fullmatch(buffer, start, at + 3) if start >= 0 else None
+        if match is not None:
+            return match
+        end = at + 2
+    return None
+
+
+def _may_hold_long_text(stream, limit: int) -> bool:
+    """Cheap byte-level pass over one XML part: could any string in it pass ``limit``?
+
+    A text node of more than ``limit`` characters is a run of more than ``limit`` bytes with no
+    ``<``, and a shared (``<si>``) or inline (``<is>``) string of more than ``limit`` characters
+    spans more than ``limit`` bytes between its tags; markup and entities only lengthen those,
+    so a False here is certain. Also True for a document type declaration. The part is read in
+    pieces no longer than ``limit``, so only what is open where a piece ends can grow too long,
+    and each piece needs a few searches, never a step per cell.
+    """
+    size = max(1, min(1 << 14, limit))
+    position = text_from = 0
+    opened: int | None = None  # where the string being read began
+    carry = b""  # the previous piece's last bytes, so a tag cut in two is still found
+    while chunk := stream.read(size):
+        buffer, base = carry + chunk, position - len(carry)
+        if b"<!DOCTYPE" in buffer:
+            return True
+        if (first := chunk.find(b"<")) >= 0:
+            if position + first - text_from > limit:
+                return True
+            text_from = position + chunk.rfind(b"<") + 1
+        tag = _new_tag(buffer, len(carry), last=False)
+        if tag is not None and tag.group(1) and opened is not None:
+            if base + tag.start() - opened > limit:
+                return True
+            opened = None
+        tag = _new_tag(buffer, len(carry), last=True)
+        if tag is not None:
+            opened = None if tag.group(1) else (
+                base + tag.end() if opened is None else opened)
+        position += len(chunk)
+        if position - text_from > limit or (opened is not None and position - opened > limit):
+            return True
+        carry = chunk[-32:]
+    return False
+
+
+def check_strings(data: bytes, name: str, *, limit: int = MAX_XLSX_STRING_CHARS) -> None:
+    """Refuse a workbook holding a string too long for any cell, before openpyxl builds it.
+
+    openpyxl reads the whole shared-string table into memory, and a cell's text in full, so a
+    small file of one highly compressible string could make it build hundreds of megabytes.
+    The shared strings and every worksheet are streamed in 64 kB pieces instead: a byte-level
+    pass (:func:`_may_hold_long_text`) clears almost every part, and a part it cannot clear is
+    read again through expat, keeping only the length of the string being read.
+
+    Raises
+    ------
+    UploadTooLarge
+        A string over ``limit`` characters (names the part and the per-cell limit).
+    IngestError
+        A part with a document type declaration.
+    """
+    with zipfile.ZipFile(io.BytesIO(data)) as archive:
+        for member in archive.namelist():
+            if member != "xl/sharedStrings.xml" and not (
+                    member.startswith("xl/worksheets/") and member.endswith(".xml")):
+                continue
+            try:
+                with archive.open(member) as stream:
+                    suspect = _may_hold_long_text(stream, limit)
+                if suspect:
+                    with archive.open(member) as stream:
+                        _string_lengths_ok(stream, limit)
+            except _TooLong:
+                raise UploadTooLarge.single(
+                    f"'{name}' part '{member}' holds a text of more than {limit:,} characters, "
+                    f"more than a spreadsheet cell can hold; a cell may hold at most "
+                    f"{MAX_CELL_CHARS:,}. The workbook is refused.") from None
+            except _DocumentType:
+                raise IngestError.single(
+                    f"'{name}' cannot be read as an XLSX workbook (part '{member}' declares a "
+                    "document type); open it in a spreadsheet program and save it again, or "
+                    "upload CSV.") from None
+            # A damaged member fails in zipfile or zlib in many ways; openpyxl then reports the
+            # workbook as unreadable with the usual message.
+            except Exception:  # noqa: BLE001, S112
+                continue
 
 
 def _cell_text(value: object) -> str | None:
@@ -157,7 +312,8 @@ def read_xlsx(data: bytes, name: str, sheet: str | None, *, max_cells: int,
               max_uncompressed: int, max_ratio: float) -> RawTable:
     """Read one worksheet (the first when ``sheet`` is None) into a :class:`RawTable`.
 
-    The archive is checked with :func:`check_archive` first, then opened with openpyxl in
+    The archive is checked with :func:`check_archive` and :func:`check_strings` first, then
+    opened with openpyxl in
     read-only mode with cached formula results (``data_only=True``). Leading empty rows and
     columns are skipped, so the table may start anywhere; its first row is the header.
     Verified by the XLSX tests in ``tests/ingest``.
@@ -166,11 +322,12 @@ def read_xlsx(data: bytes, name: str, sheet: str | None, *, max_cells: int,
     ------
     IngestError
         Unknown sheet, a damaged workbook, formula cells with no saved value (each cell named),
-        no header, duplicate names.
+        no header, duplicate names, a cell or column name over its length cap.
     UploadTooLarge
-        Zip-bomb guard or more than ``max_cells`` cells.
+        Zip-bomb guard, a string too long for any cell, or more than ``max_cells`` cells.
     """
     check_archive(data, name, max_uncompressed=max_uncompressed, max_ratio=max_ratio)
+    check_strings(data, name)
     try:
         grid, chosen, names = _read_grid(data, sheet, name, data_only=True, max_cells=max_cells)
     except IngestError:

@@ -17,7 +17,15 @@ from flask import (
 )
 from sqlalchemy import select
 
-from app.ingest import ColumnRole, IngestError, RawTable, UploadTooLarge, read_upload, suggest_roles
+from app.ingest import (
+    ColumnRole,
+    IngestError,
+    RawTable,
+    UploadTooLarge,
+    read_upload,
+    suggest_roles,
+    summarize_column,
+)
 from app.store.db import get_session
 from app.store.models import DataVersion
 from app.web import staging
@@ -29,7 +37,8 @@ from app.workflow.csvsafe import safe_csv
 bp = Blueprint("data", __name__)
 
 ROLE_CHOICES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
-PREVIEW_ROWS = 25
+# The preview shows this many rows and a summary of every column, never the whole table.
+PREVIEW_ROWS = 20
 
 
 def _limits() -> dict[str, int]:
@@ -83,11 +92,18 @@ def _staged_raw(study_id: int, token: str, sheet: str | None):
     return staged, read_upload(staged.data, staged.filename, sheet or None, **_limits())
 
 
-def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole], problems, status=200):
+def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | None, problems,
+                  status=200):
+    """The preview: roles to confirm (the suggested ones when ``roles`` is None), a summary of
+    every column and the first ``PREVIEW_ROWS`` rows."""
     head = raw.frame.head(PREVIEW_ROWS)
+    suggested = suggest_roles(raw)
+    roles = suggested if roles is None else roles
+    summary = [(summarize_column(raw, c), suggested[c].role) for c in raw.frame.columns]
     return render_template(
         "data/preview.html", study=study, staged=staged, raw=raw, roles=roles,
         columns=list(raw.frame.columns), rows=head.itertuples(), n_rows=len(raw.frame),
+        n_shown=len(head), summary=summary,
         role_choices=ROLE_CHOICES, problems=problems, needs_reason=_has_versions(study.id),
         reason=request.form.get("reason", "")), status
 
@@ -102,7 +118,7 @@ def preview(study_id: int, token: str):
         return render_template(
             "data/upload.html", study=study, needs_reason=_has_versions(study_id),
             problems=[p.to_dict() for p in exc.problems]), 400
-    return _preview_page(study, staged, raw, suggest_roles(raw), [])
+    return _preview_page(study, staged, raw, None, [])
 
 
 def roles_from_form(form, columns: list[str]) -> dict[str, ColumnRole]:
@@ -145,7 +161,7 @@ def confirm(study_id: int, token: str):
     try:
         roles = roles_from_form(request.form, columns)
     except IngestError as exc:
-        return _preview_page(study, staged, raw, suggest_roles(raw),
+        return _preview_page(study, staged, raw, None,
                              [p.to_dict() for p in exc.problems], 400)
     try:
         from app.ingest import validate

@@ -78,6 +78,31 @@ def test_preview_then_confirm_stores_one_version(client, actions, db, study_id):
     assert original.headers["Content-Disposition"].startswith("attachment;")
 
 
+def test_preview_of_a_long_upload_shows_twenty_rows_and_a_column_summary(client, actions,
+                                                                        study_id):
+    lines = ["Run,Temp,Yield,Note"]
+    for i in range(1, 501):
+        yield_cell = "" if i == 7 else ("n/a" if i == 9 else f"{60 + i / 10:g}")
+        lines.append(f"{i},{150 if i % 2 else 170},{yield_cell},note {i}")
+    response = _upload(actions, study_id, ("\n".join(lines) + "\n").encode(), "long.csv")
+    assert response.status_code == 302
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    assert "500 data rows" in html and "Showing the first 20 of 500 rows." in html
+    data = re.search(r'<table class="data">.*?<tbody>(.*?)</tbody>', html, re.S).group(1)
+    rows = re.findall(r"<tr>(.*?)</tr>", data, re.S)
+    assert len(rows) == 20
+    assert "<td>20</td>" in rows[-1] and "note 21" not in html
+    summary = re.search(r'<table class="data summary">.*?<tbody>(.*?)</tbody>', html, re.S)
+    cells = {re.search(r'<th scope="row">(.*?)</th>', r).group(1): re.findall(r"<td>(.*?)</td>", r)
+             for r in re.findall(r"<tr>(.*?)</tr>", summary.group(1), re.S)}
+    assert cells == {
+        "Run": ["run order", "500", "0", "0", "1", "500"],
+        "Temp": ["factor", "500", "0", "0", "150", "170"],
+        "Yield": ["label", "498", "1", "1", "60.1", "110"],  # text in it: not a response
+        "Note": ["ignore", "0", "0", "500", "", ""],  # the label is taken
+    }
+
+
 def test_second_version_needs_a_reason(client, actions, db, study_id):
     for attempt in range(2):
         response = _upload(actions, study_id, GOOD, "cure.csv")
