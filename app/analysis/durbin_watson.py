@@ -109,14 +109,14 @@ def _moments(q: np.ndarray) -> tuple[float, float, int]:
     """Exact E[d] and Var[d] from traces of M A (no eigen-decomposition)."""
     n, p = q.shape
     m = n - p
-    g = np.diff(q, axis=0)
-    tr_ma = 2.0 * (n - 1) - float(np.sum(g * g))
-    tg = 2.0 * g
-    tg[1:] -= g[:-1]
-    tg[:-1] -= g[1:]
+    g = np.diff(q, axis=0)  # A Q = D'D Q with D the (n-1) x n difference matrix; g = D Q
+    gg = float(np.einsum("ij,ij->", g, g))
+    tr_ma = 2.0 * (n - 1) - gg
+    # sum(g * D D' g): D D' is tridiagonal (2 on the diagonal, -1 beside it)
+    g_dd_g = 2.0 * gg - 2.0 * float(np.einsum("ij,ij->", g[1:], g[:-1]))
     tr_t2 = 4.0 * (n - 1) + 2.0 * (n - 2)
     gtg = g.T @ g
-    tr_ma2 = tr_t2 - 2.0 * float(np.sum(g * tg)) + float(np.sum(gtg * gtg))
+    tr_ma2 = tr_t2 - 2.0 * g_dd_g + float(np.sum(gtg * gtg))
     mean = tr_ma / m
     var = 2.0 * (m * tr_ma2 - tr_ma**2) / (m**2 * (m + 2.0))
     return mean, var, m
