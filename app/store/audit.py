@@ -14,13 +14,14 @@ from __future__ import annotations
 
 import hashlib
 import json
-from collections.abc import Iterable, Iterator
+import re
+from collections.abc import Callable, Iterable, Iterator
 from contextlib import closing
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
-from sqlalchemy import func, select
+from sqlalchemy import String, func, select, type_coerce
 from sqlalchemy.orm import Session
 
 from app.store.base import utcnow
@@ -37,21 +38,77 @@ HASHED_FIELDS = (
 )
 
 
+# What json.dumps(value, sort_keys=True, ...) builds on every call, built once.
+_CANONICAL = json.JSONEncoder(sort_keys=True, separators=(",", ":"), ensure_ascii=False,
+                              allow_nan=False, default=str)
+
+
 def canonical_json(value: Any) -> str:
     """Deterministic JSON used for everything that is hashed."""
-    return json.dumps(value, sort_keys=True, separators=(",", ":"), ensure_ascii=False,
-                      allow_nan=False, default=str)
+    return _CANONICAL.encode(value)
 
 
 def iso(at: datetime | str) -> str:
     return at if isinstance(at, str) else at.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
 
+# How SQLite stores an event time (app.store.base.UTCDateTime): naive UTC, microseconds.
+_SQLITE_TIME = re.compile(r"[1-9][0-9]{3}-[0-9]{2}-[0-9]{2} [0-9]{2}:[0-9]{2}:[0-9]{2}\.[0-9]{6}")
+
+
+def stored_iso(at: datetime | str) -> str:
+    """:func:`iso` of an event time as the driver returns it undecoded: a string as SQLite
+    stores it (read as :class:`~app.store.base.UTCDateTime` would, by ``fromisoformat``) or a
+    naive UTC datetime (PostgreSQL)."""
+    if isinstance(at, str):
+        if _SQLITE_TIME.fullmatch(at):
+            return f"{at[:10]}T{at[11:]}Z"  # the same text, sooner
+        at = datetime.fromisoformat(at)
+    if at.tzinfo is None and at.year >= 1000:
+        return at.isoformat(timespec="microseconds") + "Z"  # the same text, sooner
+    return iso(at)
+
+
+# JSON text of a string, as canonical_json writes it (ensure_ascii=False).
+_json_string = json.encoder.encode_basestring
+
+
+def hashed_json(fields: dict[str, Any]) -> str:
+    """:func:`canonical_json` of an event's hashed fields (``at`` as ISO-8601 UTC).
+
+    Verifying a trail does this once per event, so the usual case (integers, strings and
+    None where the columns have them) is written out directly, keys in sorted order; anything
+    else goes through :func:`canonical_json`. tests/store/test_verify_batches.py holds the two
+    to the same text.
+    """
+    get = fields.get
+    at, seq, actor_id, study_id = iso(get("at")), get("seq"), get("actor_id"), get("study_id")
+    if (type(seq) is int and (actor_id is None or type(actor_id) is int)
+            and (study_id is None or type(study_id) is int)):
+        new, object_id, old, reason = (get("new_json"), get("object_id"), get("old_json"),
+                                       get("reason"))
+        try:
+            return (
+                f'{{"action":{_json_string(get("action"))},'
+                f'"actor_id":{"null" if actor_id is None else actor_id},'
+                f'"actor_name":{_json_string(get("actor_name"))},"at":{_json_string(at)},'
+                f'"new_json":{"null" if new is None else _json_string(new)},'
+                f'"object_id":{"null" if object_id is None else _json_string(object_id)},'
+                f'"object_type":{_json_string(get("object_type"))},'
+                f'"old_json":{"null" if old is None else _json_string(old)},'
+                f'"prev_hash":{_json_string(get("prev_hash"))},'
+                f'"reason":{"null" if reason is None else _json_string(reason)},'
+                f'"seq":{seq},"study_id":{"null" if study_id is None else study_id}}}')
+        except TypeError:
+            pass  # not a string where one belongs
+    payload = {name: get(name) for name in HASHED_FIELDS}
+    payload["at"] = at
+    return canonical_json(payload)
+
+
 def event_hash(fields: dict[str, Any]) -> str:
     """SHA-256 of an event's hashed fields (``at`` as ISO-8601 UTC)."""
-    payload = {name: fields.get(name) for name in HASHED_FIELDS}
-    payload["at"] = iso(payload["at"])
-    return hashlib.sha256(canonical_json(payload).encode()).hexdigest()
+    return hashlib.sha256(hashed_json(fields).encode()).hexdigest()
 
 
 def event_to_dict(event: AuditEvent) -> dict[str, Any]:
@@ -162,7 +219,7 @@ def verify_chain(events: Iterable[dict[str, Any]], head: dict[str, Any] | None,
     that does not hold. Unsealed events are accepted only before the first sealed one."""
     prev_hash, expected_seq, checked = GENESIS_HASH, 1, 0
     sealed = unsealed = 0
-    last = {"seq": 0, "hash": GENESIS_HASH}
+    last_seq = 0  # the last event that holds is (last_seq, prev_hash)
 
     def broken(seq: Any, ev_id: Any, problem: str, ev: dict | None = None) -> ChainReport:
         subject = None
@@ -170,70 +227,105 @@ def verify_chain(events: Iterable[dict[str, Any]], head: dict[str, Any] | None,
             subject = f"{ev.get('action')} on {ev.get('object_type')}"
             if ev.get("object_id") is not None:
                 subject += f" {ev.get('object_id')}"
-        return ChainReport(False, checked, last["seq"], last["hash"], seq, ev_id, problem,
+        return ChainReport(False, checked, last_seq, prev_hash, seq, ev_id, problem,
                            None if ring is None else sealed, unsealed, subject)
 
     for ev in events:
-        seq, ev_id = ev.get("seq"), ev.get("id")
+        get = ev.get
+        seq, ev_id = get("seq"), get("id")
         if seq != expected_seq:
             if isinstance(seq, int) and seq > expected_seq:
                 return broken(expected_seq, ev_id,
                               f"event #{expected_seq} is missing (next present is #{seq})")
             return broken(seq, ev_id, f"out of order: expected #{expected_seq}, found #{seq}")
-        if ev.get("prev_hash") != prev_hash:
+        if get("prev_hash") != prev_hash:
             return broken(seq, ev_id, "its link to the previous event does not match (missing "
                                       "or reordered event before it)", ev)
-        if event_hash(ev) != ev.get("hash"):
+        if event_hash(ev) != get("hash"):
             return broken(seq, ev_id, "its content does not match its hash (altered)", ev)
         if ring is not None:
             problem = _seal_problem(ring, ev, sealed > 0)
             if problem:
                 return broken(seq, ev_id, problem, ev)
-            if ev.get("seal"):
+            if get("seal"):
                 sealed += 1
             else:
                 unsealed += 1
-        prev_hash, expected_seq, checked = ev["hash"], expected_seq + 1, checked + 1
-        last = {"seq": seq, "hash": ev["hash"]}
+        prev_hash, expected_seq, checked, last_seq = ev["hash"], expected_seq + 1, checked + 1, seq
     if ring is not None and checked and not sealed:
-        return broken(last["seq"], None,
+        return broken(last_seq, None,
                       "no event carries a seal under the integrity key (seals removed, or a "
                       "trail from before sealing began: `plumbline db upgrade` seals its end)")
-    if head is not None and (head.get("seq") != last["seq"] or head.get("hash") != last["hash"]):
+    if head is not None and (head.get("seq") != last_seq or head.get("hash") != prev_hash):
         return broken(head.get("seq"), None,
                       f"the chain head records #{head.get('seq')} but the last event present "
-                      f"is #{last['seq']} (events removed from the end)")
-    return ChainReport(True, checked, last["seq"], last["hash"],
+                      f"is #{last_seq} (events removed from the end)")
+    return ChainReport(True, checked, last_seq, prev_hash,
                        sealed=None if ring is None else sealed, unsealed_start=unsealed)
 
 
 EVENT_COLUMNS = ("id", *HASHED_FIELDS, "hash", "key_id", "seal")
+# Rows fetched at a time; only one batch of events is held in memory.
 BATCH = 5000
 
 
-def stored_events(session: Session) -> Iterator[dict[str, Any]]:
-    """Every stored event as a dict, in insertion (id) order, read in batches."""
+def stored_events(session: Session, observe: Callable[[dict[str, Any]], None] | None = None,
+                  ) -> Iterator[dict[str, Any]]:
+    """Every stored event as a dict, in insertion (id) order, read ``BATCH`` rows at a time.
+
+    One query, streamed (a server-side cursor on PostgreSQL), so the events read are one
+    consistent snapshot. The time comes undecoded and is put in its ISO form directly
+    (:func:`stored_iso`). ``observe``, when given, is called with each event before it is
+    yielded.
+    """
     table = AuditEvent.__table__
-    query = select(*(table.c[name] for name in EVENT_COLUMNS)).order_by(table.c.id)
+    query = select(*(type_coerce(table.c[name], String) if name == "at" else table.c[name]
+                     for name in EVENT_COLUMNS)).order_by(table.c.id)
     result = session.execute(query.execution_options(yield_per=BATCH))
+    at = EVENT_COLUMNS.index("at")
     try:
-        for row in result:
-            ev = dict(zip(EVENT_COLUMNS, row, strict=True))
-            ev["at"] = iso(ev["at"])
-            yield ev
+        for rows in result.partitions():
+            for row in rows:
+                ev = dict(zip(EVENT_COLUMNS, row, strict=False))  # the select has them all
+                ev["at"] = stored_iso(row[at])
+                if observe is not None:
+                    observe(ev)
+                yield ev
     finally:
         result.close()  # a server-side cursor on PostgreSQL when the reader stops early
 
 
-def verify(session: Session, ring: Keyring | None = None) -> ChainReport:
+def verify(session: Session, ring: Keyring | None = None, *,
+           observe: Callable[[dict[str, Any]], None] | None = None) -> ChainReport:
     """Verify the whole stored chain against the recorded head; seals too, with the session's
-    key ring (or ``ring``) when it has one."""
+    key ring (or ``ring``) when it has one.
+
+    Parameters
+    ----------
+    session
+        A session of the database holding the trail.
+    ring
+        The key ring to check seals with, instead of the session's.
+    observe
+        Called with every stored event, in order, as it is read: also with those after the
+        first one that does not hold, so that one reading serves another check of the whole
+        trail (the replay, :func:`app.workflow.replay.verified_replay`).
+
+    Returns
+    -------
+    ChainReport
+        The first event that does not hold, or the head of an intact chain.
+    """
     ring = ring if ring is not None else ring_of(session)
     head = session.get(ChainHead, 1)
     head_dict = None if head is None else {"seq": head.seq, "hash": head.hash}
     # Read in insertion (id) order: a row whose seq does not follow was moved.
-    with closing(stored_events(session)) as events:
-        return verify_chain(events, head_dict, ring)
+    with closing(stored_events(session, observe)) as events:
+        report = verify_chain(events, head_dict, ring)
+        if observe is not None:
+            for _rest in events:  # past a break, for the observer
+                pass
+        return report
 
 
 def begin_sealing(session: Session) -> int | None:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import csv
-import hashlib
 import io
 import json
 from collections.abc import Iterator
@@ -22,6 +21,10 @@ from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import DataVersion, Fit, FitRuns, Signature, User
 from app.workflow import NotFound, WorkflowError, csvsafe, in_id_range, teams
+from app.workflow.digests import (  # noqa: F401  (their home is app.workflow.digests)
+    fit_snapshot_document as snapshot_document,
+)
+from app.workflow.digests import fit_snapshot_sha256 as snapshot_sha256
 from app.workflow.uploads import design_table
 
 
@@ -74,40 +77,6 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
                        thresholds=thresholds)
     except AnalysisError as exc:
         raise WorkflowError(str(exc), field="spec") from None
-
-
-def snapshot_document(fit: Fit) -> dict[str, Any]:
-    """What a fit's SHA-256 covers: the data it used, the inputs, the results, the software."""
-    return {
-        "data_version_id": fit.data_version_id,
-        "data_canonical_sha256": fit.data_version.canonical_sha256,
-        "spec": json.loads(fit.spec_json),
-        "results": json.loads(fit.results_json),
-        "thresholds": json.loads(fit.thresholds_json),
-        "software_version": fit.software_version,
-    }
-
-
-def snapshot_sha256(fit: Fit) -> str:
-    """SHA-256 of the canonical snapshot document, recomputed from the stored columns.
-
-    Pages check a snapshot once per signature shown; parsing and re-serialising the results
-    each time is the costly part, so the canonical hash is remembered per digest of the raw
-    stored values. Any change to a stored column changes that digest and forces a recompute.
-    """
-    raw = hashlib.sha256("\x1f".join((
-        str(fit.data_version_id), fit.data_version.canonical_sha256, fit.spec_json,
-        fit.results_json, fit.thresholds_json, fit.software_version)).encode()).hexdigest()
-    known = _SNAPSHOT_HASHES.get(raw)
-    if known is None:
-        known = hashlib.sha256(canonical_json(snapshot_document(fit)).encode()).hexdigest()
-        if len(_SNAPSHOT_HASHES) >= 1024:
-            _SNAPSHOT_HASHES.clear()
-        _SNAPSHOT_HASHES[raw] = known
-    return known
-
-
-_SNAPSHOT_HASHES: dict[str, str] = {}
 
 
 def snapshot_intact(fit: Fit) -> bool:
