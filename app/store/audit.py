@@ -20,6 +20,7 @@ from collections.abc import Callable, Iterable, Iterator
 from contextlib import closing
 from dataclasses import dataclass
 from datetime import datetime
+from operator import itemgetter
 from typing import Any
 
 from sqlalchemy import String, func, select, type_coerce
@@ -77,20 +78,20 @@ _json_string = json.encoder.encode_basestring
 def hashed_json(fields: dict[str, Any]) -> str:
     """:func:`canonical_json` of an event's hashed fields (``at`` as ISO-8601 UTC)."""
     get = fields.get
-    return _hashed_text(*(iso(get(name)) if name == "at" else get(name)
-                          for name in HASHED_FIELDS))
+    return _hashed_text(tuple(get(name) for name in EVENT_COLUMNS), iso(get("at")))
 
 
-def _hashed_text(seq: Any, at: Any, actor_id: Any, actor_name: Any, action: Any,
-                 object_type: Any, object_id: Any, study_id: Any, old: Any, new: Any,
-                 reason: Any, prev_hash: Any) -> str:
-    """:func:`hashed_json` of the fields in ``HASHED_FIELDS`` order, ``at`` in its ISO form.
+def _hashed_text(row: Any, at: str) -> str:
+    """:func:`hashed_json` of an event given as a row of ``EVENT_COLUMNS`` (its ``at``
+    aside, in ISO form).
 
     Verifying a trail does this once per event, so the usual case (integers, strings and
     None where the columns have them) is written out directly, keys in sorted order; anything
     else goes through :func:`canonical_json`. tests/store/test_verify_batches.py holds the two
     to the same text.
     """
+    (_id, seq, _at, actor_id, actor_name, action, object_type, object_id, study_id, old, new,
+     reason, prev_hash) = row[:13]
     if (type(seq) is int and (actor_id is None or type(actor_id) is int)
             and (study_id is None or type(study_id) is int)):
         try:
@@ -289,8 +290,8 @@ class _Chain:
                 or [row[_PREV] for row in rows] != [self.prev_hash, *hashes[:-1]]):
             return False
         sha256 = hashlib.sha256
-        if hashes != [sha256(_hashed_text(row[_SEQ], at, *row[_AT + 1:_PREV + 1]).encode())
-                      .hexdigest() for row, at in zip(rows, ats, strict=True)]:
+        if hashes != [sha256(_hashed_text(row, at).encode()).hexdigest()
+                      for row, at in zip(rows, ats, strict=True)]:
             return False
         if self.ring is not None:
             kids, seals = [row[_KEY_ID] for row in rows], [row[_SEAL] for row in rows]
@@ -359,16 +360,31 @@ BATCH = 2000
 
 def _stored_rows(session: Session) -> Iterator[list[Any]]:
     """Every stored event as a row of ``EVENT_COLUMNS`` (the time undecoded), in insertion (id)
-    order, in lists of ``BATCH``: one query, streamed (a server-side cursor on PostgreSQL), so
-    the rows read are one consistent snapshot."""
+    order, in lists of ``BATCH``: one query, streamed, so the rows read are one consistent
+    snapshot.
+
+    On PostgreSQL through a server-side cursor; on SQLite, whose driver streams the rows of a
+    query itself, through the driver's cursor on the session's connection (the rows need no
+    conversion, and this is a third of the time a verify takes).
+    """
     table = AuditEvent.__table__
     query = select(*(type_coerce(table.c[name], String) if name == "at" else table.c[name]
                      for name in EVENT_COLUMNS)).order_by(table.c.id)
-    result = session.execute(query.execution_options(yield_per=BATCH))
+    connection = session.connection()
+    if connection.dialect.name == "sqlite":
+        cursor = connection.connection.driver_connection.cursor()
+        try:
+            cursor.execute(str(query.compile(dialect=connection.dialect)))
+            while rows := cursor.fetchmany(BATCH):
+                yield rows
+        finally:
+            cursor.close()
+        return
+    result = connection.execute(query.execution_options(yield_per=BATCH))
     try:
         yield from result.partitions()
     finally:
-        result.close()  # a server-side cursor on PostgreSQL when the reader stops early
+        result.close()  # the server-side cursor, when the reader stops early
 
 
 def _event(row: Any, at: str) -> dict[str, Any]:
@@ -415,11 +431,13 @@ def verify(session: Session, ring: Keyring | None = None, *,
     ring = ring if ring is not None else ring_of(session)
     head = session.get(ChainHead, 1)
     head_dict = None if head is None else {"seq": head.seq, "hash": head.hash}
-    chain, report = _Chain(ring), None
+    chain, report, sqlite_time = _Chain(ring), None, _SQLITE_TIME.fullmatch
     # Read in insertion (id) order: a row whose seq does not follow was moved.
     with closing(_stored_rows(session)) as batches:
         for rows in batches:
-            ats = [stored_iso(row[_AT]) for row in rows]
+            # stored_iso, its usual case written out
+            ats = [f"{at[:10]}T{at[11:]}Z" if type(at) is str and sqlite_time(at)
+                   else stored_iso(at) for at in map(itemgetter(_AT), rows)]
             if observe is not None:
                 for row, at in zip(rows, ats, strict=True):
                     if wants is None or wants(row[_ACTION], row[_OBJECT_TYPE]):

@@ -174,7 +174,8 @@ _int = st.one_of(st.none(), st.integers(-2**40, 2**40))
 
 
 @settings(max_examples=300, deadline=None)
-@given(seq=st.one_of(st.integers(0, 2**40), st.booleans(), st.floats(allow_nan=False),
+@given(seq=st.one_of(st.integers(0, 2**40), st.booleans(),
+                     st.floats(allow_nan=False, allow_infinity=False),
                      st.text(max_size=5)),
        actor_id=st.one_of(_int, st.booleans(), st.text(max_size=3)),
        study_id=st.one_of(_int, st.floats(allow_nan=False, allow_infinity=False)),
