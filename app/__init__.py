@@ -52,8 +52,18 @@ def software_version() -> str:
         return "0+unknown"
 
 
-def create_app(test_config: dict[str, Any] | None = None) -> Flask:
-    """Build the Flask application: defaults, instance config, PLUMBLINE_* environment."""
+def create_app(test_config: dict[str, Any] | None = None, *, web: bool = True) -> Flask:
+    """Build the Flask application: defaults, instance config, PLUMBLINE_* environment.
+
+    Parameters
+    ----------
+    test_config
+        Configuration taking the place of the instance config and the environment.
+    web
+        Register the pages and the API. Commands that only need the configuration and the
+        database pass False, and so do without the analysis and chart libraries the pages
+        import.
+    """
     from flask import Flask
 
     app = Flask(
@@ -101,7 +111,8 @@ def create_app(test_config: dict[str, Any] | None = None) -> Flask:
 
     db.init_app(app)
 
-    from app.web import register
+    if web:
+        from app.web import register
 
-    register(app)
+        register(app)
     return app

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -17,26 +18,65 @@ if TYPE_CHECKING:
 
 
 def _app():
-    return create_app()
+    """The application for a command that needs its configuration and database, not its pages
+    (which would import the analysis and chart libraries)."""
+    return create_app(web=False)
 
 
 @contextmanager
-def _application() -> Iterator[Flask]:
+def _application(*, web: bool = False) -> Iterator[Flask]:
     """The application for one command; its database engines are disposed when it ends.
 
     An engine left to the garbage collector closes its pooled connections late, which on
     PostgreSQL shows as a ResourceWarning when a command runs in-process (tests, scripts).
+    ``web`` registers the pages too (``plumbline serve``).
     """
     from app.store.db import database
 
-    app = _app()
+    app = create_app() if web else _app()
     try:
         yield app
     finally:
         database(app).dispose()
 
 
-@click.group(help="Plumbline: designed-experiment models, residual checks and sign-off.")
+# Commands whose module imports the analysis libraries (pandas, scipy, statsmodels) are imported
+# when they run or show their own help, so that the others (`plumbline audit verify`,
+# `plumbline --help`) start without them. The help text is what `plumbline --help` lists until
+# then; tests/test_cli.py holds it to the command's own.
+LAZY_COMMANDS = {
+    "check": ("app.cli_check", "check_command",
+              "Fit a model to FILE (csv or xlsx) and report every residual check."),
+}
+
+
+class _Commands(click.Group):
+    """The top-level group, with :data:`LAZY_COMMANDS` imported on first use."""
+
+    def list_commands(self, ctx: click.Context) -> list[str]:
+        return sorted({*super().list_commands(ctx), *LAZY_COMMANDS})
+
+    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
+        if cmd_name in LAZY_COMMANDS and cmd_name not in self.commands:
+            module, name, _help = LAZY_COMMANDS[cmd_name]
+            self.add_command(getattr(importlib.import_module(module), name), cmd_name)
+        return super().get_command(ctx, cmd_name)
+
+    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        """List every command; one not imported yet by its help in :data:`LAZY_COMMANDS`."""
+        stand_ins = {name: click.Command(name, help=text)
+                     for name, (_module, _attr, text) in LAZY_COMMANDS.items()
+                     if name not in self.commands}
+        self.commands.update(stand_ins)
+        try:
+            super().format_commands(ctx, formatter)
+        finally:
+            for name in stand_ins:
+                self.commands.pop(name, None)
+
+
+@click.group(cls=_Commands,
+             help="Plumbline: designed-experiment models, residual checks and sign-off.")
 def main() -> None:
     pass
 
@@ -234,7 +274,7 @@ def demo_load(if_empty: bool) -> None:
 def serve(host: str, port: int, threads: int) -> None:
     import waitress
 
-    with _application() as app:
+    with _application(web=True) as app:
         app.debug = False
         click.echo(f"Plumbline on http://{host}:{port}/")
         waitress.serve(app, host=host, port=port, threads=threads, ident="plumbline")
@@ -279,12 +319,8 @@ def restore_command(file: Path, yes: bool) -> None:
         sys.exit(1)
 
 
-# ---- analysis without a database ----------------------------------------------------------
+# ---- the audit trail (`check`, analysis without a database, is in LAZY_COMMANDS) -----------
 
-from app.cli_check import check_command  # noqa: E402  (registered after the groups above)
-
-main.add_command(check_command, "check")
-
-from app.cli_audit import audit_group  # noqa: E402
+from app.cli_audit import audit_group  # noqa: E402  (registered after the groups above)
 
 main.add_command(audit_group, "audit")

@@ -42,18 +42,16 @@ def verify(package_file: Path | None, anchor_file: Path | None) -> None:
     from sqlalchemy import select
 
     from app.cli import _app
-    from app.store import audit
     from app.store.anchor import check_anchors
     from app.store.db import database
     from app.store.models import AuditEvent
-    from app.workflow.replay import disagreements
+    from app.workflow.replay import verified_replay
 
     db = database(_app())
     anchors = None
     try:
         with db.session(write=False) as s:
-            report = audit.verify(s)
-            found = disagreements(s)
+            report, found = verified_replay(s)
             if anchor_file is not None:
                 chain = dict(s.execute(select(AuditEvent.seq, AuditEvent.hash)).all())
                 with anchor_file.open(encoding="utf-8", errors="replace") as lines:

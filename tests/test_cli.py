@@ -208,3 +208,49 @@ def test_audit_verify_anchor_finds_a_removed_tail(cli_env, tmp_path):
     both = runner.invoke(main, ["audit", "verify", "--anchor", str(anchor_file), "--package",
                                 str(anchor_file)])
     assert both.exit_code == 2
+
+
+HEAVY = ("pandas", "scipy", "statsmodels", "altair")
+
+
+def test_help_and_audit_verify_start_without_the_analysis_libraries(cli_env):
+    """`plumbline --help` and `plumbline audit verify` import no analysis or chart library
+    (the start-up of the command was most of its time and memory)."""
+    import os
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    runner, _url = cli_env
+    added = runner.invoke(main, ["users", "add", "vera", "--name", "Vera Verify", "--roles",
+                                 "auditor", "--password-stdin"], input="a long enough phrase\n")
+    assert added.exit_code == 0, added.output
+    root = Path(__file__).resolve().parents[1]
+    code = (
+        "import sys\n"
+        "from click.testing import CliRunner\n"
+        "from app.cli import main\n"
+        "for args in (['--help'], ['audit', 'verify']):\n"
+        "    result = CliRunner().invoke(main, args)\n"
+        "    assert result.exit_code == 0, result.output\n"
+        "    print(result.output)\n"
+        f"print('heavy:', sorted({{m.split('.')[0] for m in sys.modules}} & {set(HEAVY)!r}))\n"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         cwd=root, env={**os.environ, "PYTHONPATH": str(root)}, check=True)
+    assert "chain intact: " in out.stdout and "agree with the trail" in out.stdout
+    assert "heavy: []" in out.stdout, out.stdout
+
+
+def test_a_command_imported_on_use_is_listed_with_its_own_help():
+    import click
+    from click.testing import CliRunner
+
+    from app.cli import LAZY_COMMANDS
+
+    listing = CliRunner().invoke(main, ["--help"]).output
+    ctx = click.Context(main)
+    for name, (_module, _attr, text) in LAZY_COMMANDS.items():
+        command = main.get_command(ctx, name)
+        assert command.help == text
+        assert f"  {name} " in listing and command.get_short_help_str(40)[:30] in listing

@@ -6,12 +6,21 @@ Imports numpy, scipy, statsmodels and pandas only, never flask or sqlalchemy
 
 from __future__ import annotations
 
-from .engine import analyse
-from .predict import predict
-from .results import FitResult
-from .spec import AnalysisError, Factor, FitSpec, Thresholds
-from .summary import summary_text
-from .version import software_version
+import importlib
+from typing import Any
 
-__all__ = ["AnalysisError", "Factor", "FitResult", "FitSpec", "Thresholds", "analyse",
-           "predict", "software_version", "summary_text"]
+# Loaded on first use (PEP 562), so that a light module of the package (runstore, spec) can be
+# imported without the fitting engine and scipy: `plumbline audit verify` reads per-run blocks.
+_EXPORTS = {"analyse": ".engine", "predict": ".predict", "FitResult": ".results",
+            "AnalysisError": ".spec", "Factor": ".spec", "FitSpec": ".spec",
+            "Thresholds": ".spec", "summary_text": ".summary", "software_version": ".version"}
+
+__all__ = sorted(_EXPORTS)
+
+
+def __getattr__(name: str) -> Any:
+    if name not in _EXPORTS:
+        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+    value = getattr(importlib.import_module(_EXPORTS[name], __name__), name)
+    globals()[name] = value
+    return value

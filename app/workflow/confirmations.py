@@ -31,6 +31,7 @@ from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import ConfirmationRun, SetpointProposal, User
 from app.workflow import Conflict, WorkflowError, in_id_range, teams
+from app.workflow.digests import confirmation_record_sha256 as record_sha256
 from app.workflow.fits import results_of as fit_results_of
 from app.workflow.reviews import VALID, require_role
 from app.workflow.setpoint_signoff import confirmation_outcome, state_label, tolerance_of
@@ -229,15 +230,6 @@ def record_refusal(session: Session, actor: User, proposal_id: int, filename: st
                  object_id=proposal_id, study_id=getattr(found, "study_id", None),
                  new={"attempted": "record confirmation runs", "filename": filename[:255],
                       "field": exc.field, "why": exc.message})
-
-
-def record_sha256(run: ConfirmationRun) -> str:
-    """SHA-256 over what a confirmation run records: its proposal, file name, the file's
-    SHA-256 and the results (observations and verdicts); sealed on the row, kept in its event."""
-    return hashlib.sha256(canonical_json({
-        "setpoint_id": run.setpoint_id, "filename": run.filename,
-        "original_sha256": run.original_sha256, "results_json": run.results_json,
-    }).encode()).hexdigest()
 
 
 def results_of(run: ConfirmationRun) -> dict[str, Any]:

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import csv
-import hashlib
 import io
 import json
 from collections.abc import Iterator
@@ -12,7 +11,7 @@ from typing import Any, NamedTuple
 import numpy as np
 import pandas as pd
 from sqlalchemy import bindparam, select
-from sqlalchemy.orm import Session, object_session
+from sqlalchemy.orm import Session
 
 from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse, runstore
 from app.analysis.boxcox import LAMBDA_RANGE
@@ -22,6 +21,12 @@ from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import DataVersion, Fit, FitRuns, Signature, User
 from app.workflow import NotFound, WorkflowError, csvsafe, in_id_range, teams
+from app.workflow.digests import fit_runs_problem as runs_problem
+from app.workflow.digests import fit_runs_row as _runs_row
+from app.workflow.digests import (  # noqa: F401  (their home is app.workflow.digests)
+    fit_snapshot_document as snapshot_document,
+)
+from app.workflow.digests import fit_snapshot_sha256 as snapshot_sha256
 from app.workflow.uploads import design_table
 
 
@@ -76,40 +81,6 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
         raise WorkflowError(str(exc), field="spec") from None
 
 
-def snapshot_document(fit: Fit) -> dict[str, Any]:
-    """What a fit's SHA-256 covers: the data it used, the inputs, the results, the software."""
-    return {
-        "data_version_id": fit.data_version_id,
-        "data_canonical_sha256": fit.data_version.canonical_sha256,
-        "spec": json.loads(fit.spec_json),
-        "results": json.loads(fit.results_json),
-        "thresholds": json.loads(fit.thresholds_json),
-        "software_version": fit.software_version,
-    }
-
-
-def snapshot_sha256(fit: Fit) -> str:
-    """SHA-256 of the canonical snapshot document, recomputed from the stored columns.
-
-    Pages check a snapshot once per signature shown; parsing and re-serialising the results
-    each time is the costly part, so the canonical hash is remembered per digest of the raw
-    stored values. Any change to a stored column changes that digest and forces a recompute.
-    """
-    raw = hashlib.sha256("\x1f".join((
-        str(fit.data_version_id), fit.data_version.canonical_sha256, fit.spec_json,
-        fit.results_json, fit.thresholds_json, fit.software_version)).encode()).hexdigest()
-    known = _SNAPSHOT_HASHES.get(raw)
-    if known is None:
-        known = hashlib.sha256(canonical_json(snapshot_document(fit)).encode()).hexdigest()
-        if len(_SNAPSHOT_HASHES) >= 1024:
-            _SNAPSHOT_HASHES.clear()
-        _SNAPSHOT_HASHES[raw] = known
-    return known
-
-
-_SNAPSHOT_HASHES: dict[str, str] = {}
-
-
 def snapshot_intact(fit: Fit) -> bool:
     """True when the stored snapshot still hashes to the value recorded at creation, and the
     per-run block it names (when it names one) still hashes to the value the snapshot holds."""
@@ -133,25 +104,6 @@ def run_analysis(version: DataVersion, spec: FitSpec) -> Analysed:
 
 # Decoded per-run tables, by (fit id, block hash): a block never changes once stored.
 _RUNS = ByteCache(96 * MB)
-
-
-def _runs_row(fit: Fit) -> FitRuns | None:
-    session = object_session(fit)
-    return None if session is None else session.get(FitRuns, fit.id)
-
-
-def runs_problem(fit: Fit) -> str | None:
-    """Why the fit's stored per-run block does not match its snapshot, or None when it does
-    (fits stored with their runs inside the document have no block and nothing to match)."""
-    summary = results_of(fit).get("runs")
-    if not runstore.is_summary(summary):
-        return None
-    row = _runs_row(fit)
-    if row is None:
-        return "its per-run table is missing (deleted)"
-    if runstore.sha256(row.data) != summary["sha256"] or row.sha256 != summary["sha256"]:
-        return "its per-run table does not hash to the SHA-256 its snapshot holds (altered)"
-    return None
 
 
 def runs_of(fit: Fit) -> runstore.RunColumns:

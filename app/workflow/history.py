@@ -122,7 +122,7 @@ def integrity(session: Session) -> dict[str, Any]:
     against the tables (:mod:`app.workflow.replay`)."""
     from app.workflow import confirmations, replay, setpoints
 
-    chain = audit.verify(session)
+    chain, disagreements = replay.verified_replay(session)  # one reading of the trail
     versions = [{"version": v, "original_ok": sha256_bytes(v.original_bytes) == v.original_sha256,
                  "canonical_ok": sha256_bytes(v.canonical_csv) == v.canonical_sha256}
                 for v in session.scalars(select(DataVersion).order_by(DataVersion.id))]
@@ -147,7 +147,6 @@ def integrity(session: Session) -> dict[str, Any]:
                 "run": run, "proposal": proposal,
                 "verdict": confirmations.results_of(run).get("verdict"),
                 "seal": keys.seal_state(session, "confirmation", digest, run.key_id, run.seal)})
-    disagreements = replay.disagreements(session)
     ok = (chain.ok and all(v["original_ok"] and v["canonical_ok"] for v in versions)
           and all(f["intact"] for f in fit_rows) and all(p["intact"] for p in setpoint_rows)
           and all(s["check"].status != "invalid" for s in signature_rows)

@@ -32,6 +32,9 @@ from app.store.audit import canonical_json
 from app.store.keys import sealing_ring
 from app.store.models import Fit, SetpointProposal, Signature, User
 from app.workflow import Conflict, NotFound, WorkflowError, in_id_range, teams
+from app.workflow.digests import fits_of as fits_of
+from app.workflow.digests import setpoint_snapshot_document as snapshot_document
+from app.workflow.digests import setpoint_snapshot_sha256 as snapshot_sha256
 from app.workflow.fits import results_of, search_document
 from app.workflow.reviews import APPROVE, check_signature
 from app.workflow.setpoint_signoff import MEANINGS as RELEASE_MEANINGS
@@ -181,26 +184,6 @@ def _finite(value: Any) -> Any:
 
 
 # ---- the proposal's snapshot -----------------------------------------------------------------
-
-def snapshot_document(proposal: SetpointProposal, fits: list[Fit]) -> dict[str, Any]:
-    """What a proposal's SHA-256 covers: inputs, result, and the fits' snapshot hashes."""
-    return {"study_id": proposal.study_id,
-            "fits": [{"id": f.id, "response": f.response, "snapshot_sha256": f.snapshot_sha256}
-                     for f in fits],
-            "goals": json.loads(proposal.goals_json), "bounds": json.loads(proposal.bounds_json),
-            "fixed": json.loads(proposal.fixed_json), "result": json.loads(proposal.result_json)}
-
-
-def fits_of(session: Session, proposal: SetpointProposal) -> list[Fit]:
-    ids = json.loads(proposal.fit_ids_json)
-    found = {f.id: f for f in session.scalars(select(Fit).where(Fit.id.in_(ids)))}
-    return [found[i] for i in ids if i in found]
-
-
-def snapshot_sha256(session: Session, proposal: SetpointProposal) -> str:
-    doc = snapshot_document(proposal, fits_of(session, proposal))
-    return hashlib.sha256(canonical_json(doc).encode()).hexdigest()
-
 
 def proposal_intact(session: Session, proposal: SetpointProposal) -> bool:
     return snapshot_sha256(session, proposal) == proposal.snapshot_sha256

@@ -11,7 +11,7 @@ HERE = Path(__file__).resolve().parent
 
 def main() -> int:
     status = 0
-    for script in ("bench_analysis.py", "bench_load.py", "bench_scale.py"):
+    for script in ("bench_analysis.py", "bench_load.py", "bench_scale.py", "bench_verify.py"):
         print(f"== {script}", flush=True)
         status |= subprocess.run([sys.executable, str(HERE / script)], check=False).returncode
     return status
