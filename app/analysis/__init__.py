@@ -11,7 +11,7 @@ from typing import Any
 
 # Loaded on first use (PEP 562), so that a light module of the package (runstore, spec) can be
 # imported without the fitting engine and scipy: `plumbline audit verify` reads per-run blocks.
-_EXPORTS = {"analyse": ".engine", "predict": ".predict", "FitResult": ".results",
+_EXPORTS = {"analyse": ".engine", "predict": ".prediction", "FitResult": ".results",
             "AnalysisError": ".spec", "Factor": ".spec", "FitSpec": ".spec",
             "Thresholds": ".spec", "summary_text": ".summary", "software_version": ".version"}
 

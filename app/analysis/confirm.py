@@ -34,7 +34,7 @@ from typing import Any
 import numpy as np
 
 from . import transforms
-from .predict import _model_doc, predict
+from .prediction import _model_doc, predict
 from .spec import AnalysisError
 
 __all__ = ["ConfirmationRefused", "judge_confirmation", "rule_sentence"]

@@ -12,7 +12,7 @@ from numpy.testing import assert_allclose
 from sqlalchemy import select, text
 
 from app.analysis.optimize import CAUTION
-from app.analysis.predict import predict
+from app.analysis.prediction import predict
 from app.store.models import AuditEvent, ConfirmationRun, Fit, SetpointProposal, Signature
 from app.workflow import (
     Conflict,

@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 
 from .. import transforms
-from ..predict import predict
+from ..prediction import predict
 from .canonical import RIDGE_RATIO, SetpointError, Surface, canonical_analysis, classify
 from .check import desirability_check, goal_met_set, optimise_response
 from .design_space import design_space
