@@ -54,33 +54,17 @@ def mac(key: bytes, kind: str, digest: str) -> str:
 
 
 def macs(key: bytes, kind: str, digests: Iterable[str]) -> list[str]:
-    """:func:`mac` of each of ``digests``, under one key: HMAC-SHA-256 (RFC 2104) from the
-    padded key's SHA-256 states, computed once, for a verify that checks every event's seal
-    (tests/store/test_verify_batches.py holds it to :func:`mac`)."""
+    """:func:`mac` of each of ``digests`` under one key, for a verify that checks every event's
+    seal: the standard library's HMAC keyed once and copied per message."""
     if kind not in KINDS:
         raise ValueError(f"unknown seal kind {kind!r}")
-    inner, outer = _pads(key, kind)
+    keyed = _keyed(key, kind)
     out = []
     for digest in digests:
-        one = inner.copy()
+        one = keyed.copy()
         one.update(digest.encode())
-        two = outer.copy()
-        two.update(one.digest())
-        out.append(two.hexdigest())
+        out.append(one.hexdigest())
     return out
-
-
-@lru_cache(maxsize=32)
-def _pads(key: bytes, kind: str) -> tuple[Any, Any]:
-    """SHA-256 having taken HMAC's inner pad and the message's fixed start for ``kind``; and
-    having taken its outer pad."""
-    block = hashlib.sha256().block_size
-    if len(key) > block:
-        key = hashlib.sha256(key).digest()
-    key = key.ljust(block, b"\0")
-    inner = hashlib.sha256(bytes(b ^ 0x36 for b in key))
-    inner.update(f"plumbline/{kind}\x00".encode())
-    return inner, hashlib.sha256(bytes(b ^ 0x5C for b in key))
 
 
 @lru_cache(maxsize=32)
