@@ -9,9 +9,6 @@ import warnings
 import zipfile
 from xml.parsers import expat
 
-from openpyxl import load_workbook
-from openpyxl.utils import get_column_letter
-
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, UploadTooLarge, format_size
 from .limits import MAX_CELL_CHARS, MAX_XLSX_STRING_CHARS
 from .raw import RawTable, clean_cell, split_header, trim_table
@@ -238,6 +235,8 @@ def _is_formula(value: object) -> bool:
 def _read_grid(data: bytes, sheet: str | None, name: str, *, data_only: bool,
                max_cells: int) -> tuple[list[list[object]], str, tuple[str, ...]]:
     """Return the raw values of one sheet from A1 on, the sheet read and all sheet names."""
+    from openpyxl import load_workbook  # here: a CSV upload or check need not load it
+
     with warnings.catch_warnings():
         # openpyxl warns about workbook features it drops (data validation, default styles);
         # none of them matter for reading values.
@@ -294,6 +293,8 @@ def _formula_problems(data: bytes, sheet: str, name: str, values: list[list[str 
             if (cell is None and k < len(source) and _is_formula(source[k])
                     and (k >= len(cached) or cached[k] is None)):
                 found.append((i, j))
+    from openpyxl.utils import get_column_letter
+
     problems = []
     for i, j in found[:CELLS_LISTED_PER_COLUMN]:
         ref = f"{get_column_letter(left + j + 1)}{top + i + 1}"

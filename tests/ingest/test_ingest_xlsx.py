@@ -7,7 +7,6 @@ import zipfile
 import openpyxl
 import pytest
 
-import app.ingest.xlsx_reader as xlsx_reader
 from app.ingest import IngestError, UploadTooLarge, read_upload, suggest_roles, validate
 
 
@@ -142,7 +141,9 @@ def openpyxl_must_not_open(monkeypatch):
     """Fail the test if the workbook reaches openpyxl: the guard must act before opening."""
     def refuse(*args, **kwargs):
         raise AssertionError("load_workbook was called on a workbook the guard should refuse")
-    monkeypatch.setattr(xlsx_reader, "load_workbook", refuse)
+    import openpyxl  # xlsx_reader imports it when it reads a workbook
+
+    monkeypatch.setattr(openpyxl, "load_workbook", refuse)
 
 
 def bomb_bytes(declared_bytes, *, extra_members=()):
