@@ -7,6 +7,7 @@ are only ever used to look columns up; nothing is handed to a formula parser, so
 
 from __future__ import annotations
 
+import gc
 import json
 import sys
 from pathlib import Path
@@ -162,7 +163,13 @@ def check_command(file: Path, response: str, factors: str | None, run_order: str
                   thresholds: str | None, sheet: str | None, goal: str | None,
                   as_json: bool) -> None:
     """Fit a model to FILE (csv or xlsx) and report every residual check."""
+    import app.analysis.engine  # noqa: F401  (loaded before the freeze below)
     from app.ingest import IngestError, read_upload, suggest_roles, validate
+
+    # A one-shot command: what the imports built lives until exit, so the cyclic collector need
+    # not walk it again each time reading a large file triggers a collection (about 0.4 s of
+    # 2.5 s at 100,000 runs).
+    gc.freeze()
 
     if model and terms:
         raise click.UsageError("Give --model or --terms, not both")

@@ -23,11 +23,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import optimize, stats
+from scipy import optimize, special
 
 LAMBDA_RANGE = (-3.0, 3.0)
 GRID_SIZE = 31
-CHI2_95_1DF = float(stats.chi2.ppf(0.95, 1))
+CHI2_95_1DF = float(special.chdtri(1, 0.05))  # chi-square 95 % point, 1 df
 # A residual RMS below this fraction of the transformed response's RMS spread is rounding:
 # the model then fits that transform exactly and the likelihood has no maximum.
 EXACT_FIT_RTOL = 1e-11

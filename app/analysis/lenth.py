@@ -17,7 +17,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 # Lenth (1989): the 1.5 makes 1.5 median|c| consistent for sigma of normal effects
 # (median |Z| = 0.6745 ≈ 1 / 1.5), 2.5 s0 trims the likely-active effects, and m/3 is the df of
@@ -56,9 +56,9 @@ def lenth(effects: np.ndarray, level: float = 0.95, negligible: float = 0.0) -> 
     trimmed = c[c < TRIM_MULTIPLE * s0]
     pse = PSE_FACTOR * float(np.median(trimmed)) if len(trimmed) else 0.0
     df = m * DF_PER_EFFECT
-    me = float(stats.t.ppf(0.5 + level / 2.0, df)) * pse
+    me = float(special.stdtrit(df, 0.5 + level / 2.0)) * pse
     gamma = (1.0 + level ** (1.0 / m)) / 2.0
-    sme = float(stats.t.ppf(gamma, df)) * pse
+    sme = float(special.stdtrit(df, gamma)) * pse
     return LenthResult(pse=pse, me=me, sme=sme, df=df, s0=s0, m=m)
 
 
@@ -67,7 +67,7 @@ def half_normal_points(names: list[str], effects: np.ndarray,
     """|effect| sorted ascending with half-normal quantiles Phi^-1(0.5 + 0.5 (i - 0.5) / m)."""
     order = np.argsort(np.abs(effects), kind="stable")
     m = len(effects)
-    quantiles = stats.norm.ppf(0.5 + 0.5 * (np.arange(1, m + 1) - 0.5) / m)
+    quantiles = special.ndtri(0.5 + 0.5 * (np.arange(1, m + 1) - 0.5) / m)
     points = []
     for j, qv in zip(order, quantiles, strict=True):
         point = {"term": names[j], "abs_effect": float(abs(effects[j])), "quantile": float(qv)}

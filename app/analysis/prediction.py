@@ -9,7 +9,7 @@ from __future__ import annotations
 from typing import Any
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from . import transforms
 from .spec import AnalysisError
@@ -74,7 +74,7 @@ def predict(result: Any, settings: dict[str, float], level: float = 0.95, m: int
         ci = pi = (None, None)
         se_fit = None
     else:
-        t = float(stats.t.ppf(0.5 + level / 2.0, df))
+        t = float(special.stdtrit(df, 0.5 + level / 2.0))
         lev = float(x @ v @ x)
         se_fit = float(s * np.sqrt(lev))
         ci = (fit - t * se_fit, fit + t * se_fit)

@@ -24,11 +24,18 @@ if TYPE_CHECKING:
 WRITE_METHODS = frozenset({"POST", "PUT", "PATCH", "DELETE"})
 
 
+POOL_SIZE = 16
+
+
 def make_engine(url: str, *, write: bool, busy_timeout_ms: int = 15000) -> Engine:
     """Create an engine; for SQLite set the pragmas on every new connection."""
     if not url.startswith("sqlite"):
         return create_engine(url, pool_pre_ping=True)
-    engine = create_engine(url, connect_args={"timeout": busy_timeout_ms / 1000})
+    # As many pooled connections as the server has threads (waitress: 8), and some: a
+    # connection opened past the pool is closed again after its request, and opening one
+    # (file, WAL, pragmas) costs more than a page served from the page cache.
+    engine = create_engine(url, connect_args={"timeout": busy_timeout_ms / 1000},
+                           pool_size=POOL_SIZE, max_overflow=POOL_SIZE)
 
     @event.listens_for(engine, "connect")
     def _pragmas(dbapi_conn, _record):

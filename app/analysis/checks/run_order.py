@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import special, stats
+from scipy import special
 
 from ..calibration import null_p_values
 from ..durbin_watson import durbin_watson_test
@@ -103,7 +103,7 @@ def runs_test(x: np.ndarray, cutoff: float | None = None,
         high = float(probs[r >= n_runs].sum())
         p = min(1.0, 2.0 * min(low, high))
     else:
-        p = float(2.0 * stats.norm.sf(abs(z)))
+        p = float(2.0 * special.ndtr(-abs(z)))
     out.update(z=float(z), exact=bool(use_exact), expected=float(mu))
     return StatisticResult(float(n_runs), p, (), method, out)
 

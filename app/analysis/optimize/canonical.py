@@ -12,7 +12,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import stats
+from scipy import special
 
 from .. import transforms
 from ..spec import AnalysisError
@@ -110,7 +110,7 @@ class Surface:
                           cols])
         z = rows @ np.concatenate([[self.intercept], np.zeros(self.n_block), self.coef])
         lev = np.einsum("ij,jk,ik->i", rows, self.xtx_inv, rows)
-        t = float(stats.t.ppf(0.5 + level / 2.0, self.df_resid))
+        t = float(special.stdtrit(self.df_resid, 0.5 + level / 2.0))
         half_ci = t * self.s * np.sqrt(lev)
         half_pi = t * self.s * np.sqrt(1.0 + lev)
         out = {"predicted": transforms.inverse(z, self.transform, self.lam)}
