@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import datetime as dt
 import io
-import re
 import warnings
 import zipfile
 from xml.parsers import expat
@@ -17,8 +16,6 @@ from .raw import RawTable, clean_cell, split_header, trim_table
 # (styles, relationships) compress extremely well and are harmless.
 _RATIO_FLOOR_BYTES = 1_000_000
 _MAX_MEMBERS = 10_000
-# Opening and closing tags of a shared string (si) or an inline string (is), any prefix.
-_STRING_TAG = re.compile(rb"<(/?)(?:[A-Za-z_][\w.-]*:)?(?:si|is)>")
 
 
 def check_archive(data: bytes, name: str, *, max_uncompressed: int, max_ratio: float) -> None:
@@ -112,71 +109,15 @@ def _string_lengths_ok(stream, limit: int) -> None:
         return  # malformed XML: openpyxl reports the workbook as unreadable
 
 
-def _new_tag(buffer: bytes, seen: int, *, last: bool) -> re.Match | None:
-    """The first (or last) shared- or inline-string tag in ``buffer`` ending after ``seen``."""
-    if not last:
-        match = _STRING_TAG.search(buffer)
-        while match is not None and match.end() <= seen:
-            match = _STRING_TAG.search(buffer, match.end())
-        return match
-    end = len(buffer)
-    while (at := max(buffer.rfind(b"is>", 0, end), buffer.rfind(b"si>", 0, end))) >= 0:
-        if at + 3 <= seen:
-            return None
-        start = buffer.rfind(b"<", 0, at)
-        match = _STRING_TAG.fullmatch(buffer, start, at + 3) if start >= 0 else None
-        if match is not None:
-            return match
-        end = at + 2
-    return None
-
-
-def _may_hold_long_text(stream, limit: int) -> bool:
-    """Cheap byte-level pass over one XML part: could any string in it pass ``limit``?
-
-    A text node of more than ``limit`` characters is a run of more than ``limit`` bytes with no
-    ``<``, and a shared (``<si>``) or inline (``<is>``) string of more than ``limit`` characters
-    spans more than ``limit`` bytes between its tags; markup and entities only lengthen those,
-    so a False here is certain. Also True for a document type declaration. The part is read in
-    pieces no longer than ``limit``, so only what is open where a piece ends can grow too long,
-    and each piece needs a few searches, never a step per cell.
-    """
-    size = max(1, min(1 << 14, limit))
-    position = text_from = 0
-    opened: int | None = None  # where the string being read began
-    carry = b""  # the previous piece's last bytes, so a tag cut in two is still found
-    while chunk := stream.read(size):
-        buffer, base = carry + chunk, position - len(carry)
-        if b"<!DOCTYPE" in buffer:
-            return True
-        if (first := chunk.find(b"<")) >= 0:
-            if position + first - text_from > limit:
-                return True
-            text_from = position + chunk.rfind(b"<") + 1
-        tag = _new_tag(buffer, len(carry), last=False)
-        if tag is not None and tag.group(1) and opened is not None:
-            if base + tag.start() - opened > limit:
-                return True
-            opened = None
-        tag = _new_tag(buffer, len(carry), last=True)
-        if tag is not None:
-            opened = None if tag.group(1) else (
-                base + tag.end() if opened is None else opened)
-        position += len(chunk)
-        if position - text_from > limit or (opened is not None and position - opened > limit):
-            return True
-        carry = chunk[-32:]
-    return False
-
-
 def check_strings(data: bytes, name: str, *, limit: int = MAX_XLSX_STRING_CHARS) -> None:
     """Refuse a workbook holding a string too long for any cell, before openpyxl builds it.
 
     openpyxl reads the whole shared-string table into memory, and a cell's text in full, so a
     small file of one highly compressible string could make it build hundreds of megabytes.
-    The shared strings and every worksheet are streamed in 64 kB pieces instead: a byte-level
-    pass (:func:`_may_hold_long_text`) clears almost every part, and a part it cannot clear is
-    read again through expat, keeping only the length of the string being read.
+    Every part is streamed through expat in 64 kB pieces instead, keeping only the length
+    of the string being read. Every part, not only the usual names: openpyxl finds the shared
+    strings and the sheets through the workbook's content types and relationships, which may
+    name any part (:func:`check_archive` has already bounded their total size).
 
     Raises
     ------
@@ -187,15 +128,10 @@ def check_strings(data: bytes, name: str, *, limit: int = MAX_XLSX_STRING_CHARS)
     """
     with zipfile.ZipFile(io.BytesIO(data)) as archive:
         for member in archive.namelist():
-            if member != "xl/sharedStrings.xml" and not (
-                    member.startswith("xl/worksheets/") and member.endswith(".xml")):
-                continue
+            # Any name: a non-XML part (an image) stops expat at its first bytes.
             try:
                 with archive.open(member) as stream:
-                    suspect = _may_hold_long_text(stream, limit)
-                if suspect:
-                    with archive.open(member) as stream:
-                        _string_lengths_ok(stream, limit)
+                    _string_lengths_ok(stream, limit)
             except _TooLong:
                 raise UploadTooLarge.single(
                     f"'{name}' part '{member}' holds a text of more than {limit:,} characters, "

@@ -4,7 +4,7 @@ import io
 import random
 import re
 import string
-import time
+import tracemalloc
 import zipfile
 
 import pytest
@@ -173,10 +173,47 @@ def test_small_workbook_expanding_to_a_huge_string_is_refused_early(openpyxl_mus
     assert len(data) < 3_000_000
     sizes = {i.filename: i.file_size for i in zipfile.ZipFile(io.BytesIO(data)).infolist()}
     assert sizes["xl/sharedStrings.xml"] > 149_000_000
-    started = time.perf_counter()
+    tracemalloc.start()
+    try:
+        with pytest.raises(UploadTooLarge, match="more than a spreadsheet cell can hold"):
+            read_upload(data, "w.xlsx")
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert peak < 20_000_000  # stopped within the first pieces, never holding the string
+
+
+def _long_shared_string(opening: bytes = b"<si>", part: str = "xl/sharedStrings.xml") -> bytes:
+    """A workbook whose one shared string is longer than any cell, in rich-text runs none of
+    which is long, opened with ``opening`` and stored in ``part`` (content types and the
+    workbook's relationship follow the name)."""
+    base = workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]})
+    data = _with_shared_string(base, b"r" * 1_000, MAX_XLSX_STRING_CHARS // 1_000 + 1, runs=True)
+    source = zipfile.ZipFile(io.BytesIO(data))
+    buffer = io.BytesIO()
+    with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
+        for info in source.infolist():
+            content = source.read(info.filename)
+            if info.filename == "xl/sharedStrings.xml":
+                content = content.replace(b"<si>", opening, 1)
+            content = content.replace(b"/xl/sharedStrings.xml", b"/" + part.encode())
+            content = content.replace(b"sharedStrings.xml", part.rpartition("/")[2].encode())
+            name = part if info.filename == "xl/sharedStrings.xml" else info.filename
+            target.writestr(name, content)
+    return buffer.getvalue()
+
+
+@pytest.mark.parametrize("opening", [b"<si >", b'<si xml:space="preserve">', b"<si><si>"])
+def test_a_long_shared_string_is_refused_however_its_tag_is_written(
+        openpyxl_must_not_open, opening):  # noqa: F811
     with pytest.raises(UploadTooLarge, match="more than a spreadsheet cell can hold"):
-        read_upload(data, "w.xlsx")
-    assert time.perf_counter() - started < 1.0  # stopped at the first 64 kB, not at the end
+        read_upload(_long_shared_string(opening), "w.xlsx")
+
+
+def test_a_long_shared_string_is_refused_whatever_its_part_is_called(
+        openpyxl_must_not_open):  # noqa: F811
+    with pytest.raises(UploadTooLarge, match="part 'xl/strs.xml' holds a text of more"):
+        read_upload(_long_shared_string(part="xl/strs.xml"), "w.xlsx")
 
 
 def test_document_type_in_shared_strings_is_refused():
