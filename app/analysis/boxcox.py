@@ -216,6 +216,8 @@ def boxcox_profile(y: np.ndarray, q: np.ndarray, grid_size: int = GRID_SIZE) -> 
         near, far = _bracket(grid, values, lam_hat, bound, cut)
         if ll(near) < cut:  # the grid's value and a fresh one disagree in the last digit
             near = lam_hat
+        if far != bound and ll(far) >= cut:  # the same, at the other end of the bracket
+            far = bound
         return float(optimize.brentq(lambda v: ll(v) - cut, near, far, xtol=1e-8)), False
 
     (ci_lo, open_lo), (ci_hi, open_hi) = ci_end(LAMBDA_RANGE[0]), ci_end(LAMBDA_RANGE[1])

@@ -131,6 +131,10 @@ def _fast_grid(text: str, delimiter: str, max_cells: int) -> pd.DataFrame | None
     be over ``max_cells`` is left to the row-by-row count, so that each of those cases keeps
     its own result and message.
     """
+    # Every cell ends at a delimiter or a line end: an upper bound, known before parsing, so a
+    # file of bare delimiters is never expanded past the limit here (the exact count stops it).
+    if text.count(delimiter) + text.count("\n") + 1 > max_cells:
+        return None
     try:
         grid = pd.read_csv(io.StringIO(text), sep=delimiter, header=None, dtype=object,
                            na_filter=False, keep_default_na=False, skip_blank_lines=False,

@@ -73,12 +73,6 @@ def _distinct_numbers(texts: np.ndarray, decimal: str) -> np.ndarray:
     return out
 
 
-def parse_numbers(cells: list[str | None], decimal: str = ".") -> list[float | None]:
-    """:func:`parse_number` over a column (None stays None), through :func:`number_values`."""
-    values = number_values(np.asarray(cells, dtype=object), decimal)
-    return [None if v != v else v for v in values.tolist()]
-
-
 def looks_numeric(text: str) -> bool:
     """True when the text reads as a number with either decimal mark."""
     return parse_number(text, ".") is not None or parse_number(text, ",") is not None
@@ -233,7 +227,6 @@ def split_header(table: list[list[str | None]] | pd.DataFrame, where: str) -> pd
         raise IngestError.single(f"{where} holds no cells; it is empty.")
     header = [None if v is None or v != v else v for v in grid.iloc[0].tolist()]
     body = grid.iloc[1:]
-    check_header_lengths(header)
     _require_header(header, where)
     keep = []
     problems = []

@@ -31,7 +31,7 @@ from sqlalchemy import event
 
 from app.store.audit import GENESIS_HASH, PENDING_HEAD, canonical_json
 from app.store.base import utcnow
-from app.store.keys import Keyring, KeySource, key_id
+from app.store.keys import Keyring, KeySource, key_id, same_seal
 
 if TYPE_CHECKING:
     from flask import Flask
@@ -181,7 +181,7 @@ def check_anchors(lines: Iterable[str], ring: Keyring | bytes,
         if key is None:
             report.other_keys[line_kid] = report.other_keys.get(line_kid, 0) + 1
             continue
-        if not hmac.compare_digest(mac, _mac(key, seq, head_hash, at, line_kid)):
+        if not same_seal(mac, _mac(key, seq, head_hash, at, line_kid)):
             report.bad_lines.append(f"anchor line {number} (head #{seq}) has an invalid MAC "
                                     "(altered)")
             continue

@@ -13,7 +13,6 @@ SQLite write transactions already begin IMMEDIATE.
 from __future__ import annotations
 
 import hashlib
-import hmac
 import json
 import re
 from collections.abc import Callable, Iterable, Iterator
@@ -27,7 +26,7 @@ from sqlalchemy import String, func, select, type_coerce
 from sqlalchemy.orm import Session
 
 from app.store.base import utcnow
-from app.store.keys import Keyring, macs, ring_of, sealing_ring
+from app.store.keys import Keyring, macs, ring_of, same_seal, sealing_ring
 from app.store.models import AuditEvent, ChainHead
 
 GENESIS_HASH = "0" * 64
@@ -316,7 +315,7 @@ class _Chain:
                 return False
             mine = [i for i, k in enumerate(kids) if k == kid]
             made = macs(key, "event", (hashes[i] for i in mine))
-            if not all(hmac.compare_digest(seals[i], seal)
+            if not all(same_seal(seals[i], seal)
                        for i, seal in zip(mine, made, strict=True)):
                 return False
         return True

@@ -31,11 +31,12 @@ def make_engine(url: str, *, write: bool, busy_timeout_ms: int = 15000) -> Engin
     """Create an engine; for SQLite set the pragmas on every new connection."""
     if not url.startswith("sqlite"):
         return create_engine(url, pool_pre_ping=True)
-    # As many pooled connections as the server has threads (waitress: 8), and some: a
+    # Reads: as many pooled connections as the server has threads (waitress: 8), and some: a
     # connection opened past the pool is closed again after its request, and opening one
-    # (file, WAL, pragmas) costs more than a page served from the page cache.
-    engine = create_engine(url, connect_args={"timeout": busy_timeout_ms / 1000},
-                           pool_size=POOL_SIZE, max_overflow=POOL_SIZE)
+    # (file, WAL, pragmas) costs more than a page served from the page cache. Writes take
+    # turns (BEGIN IMMEDIATE), so their engine keeps the default pool.
+    pool = {} if write else {"pool_size": POOL_SIZE, "max_overflow": POOL_SIZE}
+    engine = create_engine(url, connect_args={"timeout": busy_timeout_ms / 1000}, **pool)
 
     @event.listens_for(engine, "connect")
     def _pragmas(dbapi_conn, _record):

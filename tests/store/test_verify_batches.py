@@ -107,6 +107,7 @@ def test_a_pair_reordered_across_batches_is_named_alike(db, small_batches):
     "UPDATE audit_events SET seal = NULL, key_id = NULL WHERE seq = 8",
     "UPDATE audit_events SET seal = CASE WHEN substr(seal, 1, 1) = '0' THEN '1' ELSE '0' END "
     "|| substr(seal, 2) WHERE seq = 8",
+    "UPDATE audit_events SET seal = 'é' || substr(seal, 2) WHERE seq = 8",  # not hex, not ASCII
     "UPDATE audit_events SET key_id = 'feedbeef' WHERE seq = 8",
 ])
 def test_a_seal_problem_in_a_later_batch_is_named_alike(db, small_batches, change):
