@@ -80,7 +80,6 @@ class Trail:
     signatures: dict[int, _Tracked] = field(default_factory=dict)
     versions: dict[int, _Tracked] = field(default_factory=dict)
     confirmations: dict[int, _Tracked] = field(default_factory=dict)
-    events: int = 0  # events fed
 
     @staticmethod
     def reads(action: str, kind: str) -> bool:
@@ -89,7 +88,6 @@ class Trail:
         return kind in SIGNED_TYPES or action in OTHER_ACTIONS
 
     def feed(self, ev: dict[str, Any]) -> None:
-        self.events += 1
         action, kind, seq = ev["action"], ev["object_type"], ev["seq"]
         if not self.reads(action, kind):
             return  # spare decoding its JSON
