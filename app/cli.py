@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import importlib
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -40,43 +39,7 @@ def _application(*, web: bool = False) -> Iterator[Flask]:
         database(app).dispose()
 
 
-# Commands whose module imports the analysis libraries (pandas, scipy, statsmodels) are imported
-# when they run or show their own help, so that the others (`plumbline audit verify`,
-# `plumbline --help`) start without them. The help text is what `plumbline --help` lists until
-# then; tests/test_cli.py holds it to the command's own.
-LAZY_COMMANDS = {
-    "check": ("app.cli_check", "check_command",
-              "Fit a model to FILE (csv or xlsx) and report every residual check."),
-}
-
-
-class _Commands(click.Group):
-    """The top-level group, with :data:`LAZY_COMMANDS` imported on first use."""
-
-    def list_commands(self, ctx: click.Context) -> list[str]:
-        return sorted({*super().list_commands(ctx), *LAZY_COMMANDS})
-
-    def get_command(self, ctx: click.Context, cmd_name: str) -> click.Command | None:
-        if cmd_name in LAZY_COMMANDS and cmd_name not in self.commands:
-            module, name, _help = LAZY_COMMANDS[cmd_name]
-            self.add_command(getattr(importlib.import_module(module), name), cmd_name)
-        return super().get_command(ctx, cmd_name)
-
-    def format_commands(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
-        """List every command; one not imported yet by its help in :data:`LAZY_COMMANDS`."""
-        stand_ins = {name: click.Command(name, help=text)
-                     for name, (_module, _attr, text) in LAZY_COMMANDS.items()
-                     if name not in self.commands}
-        self.commands.update(stand_ins)
-        try:
-            super().format_commands(ctx, formatter)
-        finally:
-            for name in stand_ins:
-                self.commands.pop(name, None)
-
-
-@click.group(cls=_Commands,
-             help="Plumbline: designed-experiment models, residual checks and sign-off.")
+@click.group(help="Plumbline: designed-experiment models, residual checks and sign-off.")
 def main() -> None:
     pass
 
@@ -319,8 +282,11 @@ def restore_command(file: Path, yes: bool) -> None:
         sys.exit(1)
 
 
-# ---- the audit trail (`check`, analysis without a database, is in LAZY_COMMANDS) -----------
+# ---- analysis without a database, and the audit trail --------------------------------------
+# (cli_check imports only the light spec module; the analysis loads when `check` runs)
 
 from app.cli_audit import audit_group  # noqa: E402  (registered after the groups above)
+from app.cli_check import check_command  # noqa: E402
 
+main.add_command(check_command, "check")
 main.add_command(audit_group, "audit")

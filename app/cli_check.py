@@ -14,8 +14,16 @@ from pathlib import Path
 
 import click
 
-from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse, summary_text
-from app.analysis.spec import NAMED_MODELS, TRANSFORMS
+# Only the light spec module here: the engine and its libraries load when the command runs, so
+# `plumbline --help` and `plumbline audit verify` start without them (tests/test_cli.py).
+from app.analysis.spec import (
+    NAMED_MODELS,
+    TRANSFORMS,
+    AnalysisError,
+    Factor,
+    FitSpec,
+    Thresholds,
+)
 
 
 def _names(text: str | None) -> list[str]:
@@ -182,6 +190,7 @@ def _check(file: Path, response: str, factors: str | None, run_order: str | None
            coded: bool, levels: str | None, exclude: tuple[str, ...], transform: str,
            thresholds: str | None, sheet: str | None, goal: str | None,
            as_json: bool) -> None:
+    from app.analysis import analyse, summary_text
     from app.ingest import IngestError, read_upload, suggest_roles, validate
 
     if model and terms:

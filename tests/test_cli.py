@@ -242,20 +242,6 @@ def test_help_and_audit_verify_start_without_the_analysis_libraries(cli_env):
     assert "heavy: []" in out.stdout, out.stdout
 
 
-def test_a_command_imported_on_use_is_listed_with_its_own_help():
-    import click
-    from click.testing import CliRunner
-
-    from app.cli import LAZY_COMMANDS
-
-    listing = CliRunner().invoke(main, ["--help"]).output
-    ctx = click.Context(main)
-    for name, (_module, _attr, text) in LAZY_COMMANDS.items():
-        command = main.get_command(ctx, name)
-        assert command.help == text
-        assert f"  {name} " in listing and command.get_short_help_str(40)[:30] in listing
-
-
 def test_check_runs_without_scipy_stats_statsmodels_or_openpyxl(tmp_path):
     """`plumbline check` on a CSV loads neither scipy.stats nor statsmodels nor openpyxl: the
     distribution points come from scipy.special (at 100,000 runs scipy.stats alone was a sixth

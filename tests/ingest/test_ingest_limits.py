@@ -189,16 +189,18 @@ def _long_shared_string(opening: bytes = b"<si>", part: str = "xl/sharedStrings.
     workbook's relationship follow the name)."""
     base = workbook_bytes({"Runs": [["Run", "Note"], [1, "x"]]})
     data = _with_shared_string(base, b"r" * 1_000, MAX_XLSX_STRING_CHARS // 1_000 + 1, runs=True)
+    usual = "xl/sharedStrings.xml"
     source = zipfile.ZipFile(io.BytesIO(data))
     buffer = io.BytesIO()
     with zipfile.ZipFile(buffer, "w", zipfile.ZIP_DEFLATED) as target:
         for info in source.infolist():
             content = source.read(info.filename)
-            if info.filename == "xl/sharedStrings.xml":
+            if info.filename == usual:
                 content = content.replace(b"<si>", opening, 1)
-            content = content.replace(b"/xl/sharedStrings.xml", b"/" + part.encode())
-            content = content.replace(b"sharedStrings.xml", part.rpartition("/")[2].encode())
-            name = part if info.filename == "xl/sharedStrings.xml" else info.filename
+            content = content.replace(b"/" + usual.encode(), b"/" + part.encode())  # content types
+            content = content.replace(usual.rpartition("/")[2].encode(),  # the relationship
+                                      part.rpartition("/")[2].encode())
+            name = part if info.filename == usual else info.filename
             target.writestr(name, content)
     return buffer.getvalue()
 
