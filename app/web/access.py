@@ -166,7 +166,8 @@ def check_team() -> None:
         return
     if request.method not in WRITE_METHODS:
         for kind, object_id in named:
-            teams.LOOKUPS[kind](get_session(), g.user, object_id)
+            if not teams.may_read(get_session(), g.user, kind, object_id):
+                teams.LOOKUPS[kind](get_session(), g.user, object_id)  # its own 404
         return
     # A write: not the request's session, which would take the write lock now.
     db = database()

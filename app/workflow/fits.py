@@ -176,8 +176,10 @@ def get_fit(session: Session, fit_id: int) -> Fit:
 
 _FITS, _VERSIONS, _SIGNATURES = Fit.__table__, DataVersion.__table__, Signature.__table__
 _BLOCKS = FitRuns.__table__
-_FIT_BLOCK = select(_BLOCKS).where(_BLOCKS.c.fit_id == bindparam("fit_id"))
-_FIT_ROW = select(_FITS).where(_FITS.c.id == bindparam("fit_id"))
+# The fit's row with its per-run block beside it (None where a fit has none), in one statement.
+_FIT_ROW = (select(_FITS, _BLOCKS.c.sha256, _BLOCKS.c.data)
+            .select_from(_FITS.outerjoin(_BLOCKS, _BLOCKS.c.fit_id == _FITS.c.id))
+            .where(_FITS.c.id == bindparam("fit_id")))
 _STUDY_VERSIONS = (select(_VERSIONS.c.id, _VERSIONS.c.version, _VERSIONS.c.canonical_sha256)
                    .where(_VERSIONS.c.study_id == bindparam("study_id"))
                    .order_by(_VERSIONS.c.id))
@@ -197,8 +199,7 @@ def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
         return None
     versions = session.execute(_STUDY_VERSIONS, {"study_id": fit.study_id}).all()
     signatures = session.execute(_FIT_SIGNATURES, {"fit_id": fit_id}).all()
-    block = session.execute(_FIT_BLOCK, {"fit_id": fit_id}).all()
-    return [tuple(fit), *map(tuple, block), *map(tuple, versions), *map(tuple, signatures)]
+    return [tuple(fit), *map(tuple, versions), *map(tuple, signatures)]
 
 
 def results_of(fit: Fit) -> dict[str, Any]:

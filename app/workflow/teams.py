@@ -27,7 +27,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from sqlalchemy import exists, or_, select
+from sqlalchemy import bindparam, exists, or_, select
 from sqlalchemy.orm import Session
 
 from app.store import audit
@@ -160,6 +160,36 @@ def proposal_for(session: Session, user: User | None, proposal_id: int) -> Setpo
 # The lookup for each id a route may carry in its address (app.web.access checks them all).
 LOOKUPS = {"study_id": study_for, "fit_id": fit_for, "version_id": version_for,
            "proposal_id": proposal_for}
+
+
+def _reader_query(model) -> Any:
+    """One statement for an id in an address: its study's owner and whether a given user is
+    on that study's team (no row when the id names nothing)."""
+    table, studies = model.__table__, Study.__table__
+    study_id = table.c.id if model is Study else table.c.study_id
+    source = table if model is Study else table.join(studies, studies.c.id == study_id)
+    members = StudyMember.__table__
+    on_team = exists().where(members.c.study_id == study_id,
+                             members.c.user_id == bindparam("user_id"))
+    return (select(studies.c.owner_id, on_team).select_from(source)
+            .where(table.c.id == bindparam("object_id")))
+
+
+_READERS = {kind: _reader_query(model) for kind, model in (
+    ("study_id", Study), ("fit_id", Fit), ("version_id", DataVersion),
+    ("proposal_id", SetpointProposal))}
+
+
+def may_read(session: Session, user: User | None, kind: str, object_id: int) -> bool:
+    """The rule of the lookups above for an id in an address, in one statement and without
+    loading objects (pages ask it on every request): False when the row is missing or
+    ``user`` may not read its study. The lookups stay the way to load the row."""
+    if user is None or not in_id_range(object_id):
+        return False
+    row = session.execute(_READERS[kind], {"object_id": object_id, "user_id": user.id}).first()
+    if row is None:
+        return False
+    return reads_everything(user) or row[0] == user.id or bool(row[1])
 
 
 def study_id_of(session: Session, kind: str, object_id: int) -> int | None:

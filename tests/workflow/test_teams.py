@@ -78,6 +78,30 @@ def test_lookups_hide_an_unreadable_study_like_a_missing_one(db, people):
             assert lookup(s, mia, object_id).id == object_id
 
 
+def test_the_one_statement_read_check_agrees_with_the_lookups(db, people):
+    """teams.may_read (asked on every page request) gives the lookups' answer for every user,
+    kind of id, readable, unreadable and missing row."""
+    version_id = h.add_version(db, people)
+    fit_id = h.make_fit(db, version_id, model="linear")
+    with db.session() as s:
+        everyone = [h.user(s, n) for n in ("erin", "mia", "nina", "abel", "otto", "root")]
+        seen = set()
+        for kind, object_id in (("study_id", people), ("version_id", version_id),
+                                ("fit_id", fit_id), ("study_id", 999_999),
+                                ("fit_id", 999_999), ("version_id", 0),
+                                ("proposal_id", 999_999)):
+            for user in everyone:
+                try:
+                    teams.LOOKUPS[kind](s, user, object_id)
+                    readable = True
+                except NotFound:
+                    readable = False
+                assert teams.may_read(s, user, kind, object_id) is readable, (kind, user.username)
+                seen.add(readable)
+            assert not teams.may_read(s, None, kind, object_id)
+        assert seen == {True, False}
+
+
 def test_lists_show_only_readable_studies(db, people):
     h.make_study(db, title="Another of erin's")
     with db.transaction() as s:
