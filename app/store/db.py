@@ -114,9 +114,11 @@ def database(app: Flask | None = None) -> Database:
 
 
 def get_session() -> Session:
-    """The request's session, opened lazily: write engine for state-changing methods."""
+    """The request's session, opened lazily: write engine for state-changing methods, except
+    a POST whose view only answers a question (``g.reads_only``, set by app.web.access)."""
     if "db_session" not in g:
-        write = has_request_context() and request.method in WRITE_METHODS
+        write = (has_request_context() and request.method in WRITE_METHODS
+                 and not g.get("reads_only", False))
         g.db_session = database().session(write=write)
     return g.db_session
 

@@ -34,6 +34,25 @@ def allow(*roles: str) -> Callable[[F], F]:
     return mark
 
 
+READS_ONLY_ATTR = "_plumbline_reads_only"
+
+
+def reads_only(view: F) -> F:
+    """Mark a POST view that changes nothing (a question with a body, e.g. predictions): a
+    read-scope API token may call it, and its team check is a read's (a refusal is a 404, not
+    an audited refused write). The CSRF check for browser sessions still applies."""
+    setattr(view, READS_ONLY_ATTR, True)
+    return view
+
+
+def _writes() -> bool:
+    """Does this request ask to change something?"""
+    if request.method not in WRITE_METHODS:
+        return False
+    view = current_app.view_functions.get(request.endpoint or "")
+    return not getattr(view, READS_ONLY_ATTR, False)
+
+
 def allowed_roles(endpoint: str | None) -> frozenset[str] | None:
     if endpoint is None:
         return None
@@ -122,13 +141,14 @@ def enforce_access():
         return None  # routing will answer 404/405
     if request.endpoint == "static":
         return None
+    g.reads_only = request.method in WRITE_METHODS and not _writes()
     _load_user()
     if roles is None:
         # A route without a declaration is refused for everyone (and fails the route tests).
         _deny(403, "This page has no access rule and is refused.")
     if is_api() and PUBLIC not in roles and g.user is None:
         _deny(401, NOT_SIGNED_IN)
-    if g.token_scope == accounts.READ and request.method not in accounts.READ_METHODS:
+    if g.token_scope == accounts.READ and _writes():
         _deny(403, f"This API token has the scope '{accounts.READ}': it may only read (GET). "
                    f"A {request.method} needs a token with the scope '{accounts.READ_WRITE}'.")
     if request.method in WRITE_METHODS and not g.via_token:
@@ -164,7 +184,7 @@ def check_team() -> None:
     named = [(kind, args[kind]) for kind in teams.LOOKUPS if kind in args]
     if not named:
         return
-    if request.method not in WRITE_METHODS:
+    if not _writes():
         for kind, object_id in named:
             if not teams.may_read(get_session(), g.user, kind, object_id):
                 teams.LOOKUPS[kind](get_session(), g.user, object_id)  # its own 404

@@ -23,6 +23,16 @@ def _upload_demo(page) -> None:
     page.wait_for_selector("h1:has-text('Data version 1')")
 
 
+def fit_demo_quadratic(page) -> None:
+    """Upload the demo, fit a quadratic to Hardness and land on the fit page."""
+    _upload_demo(page)
+    page.click("text=Fit a model")
+    page.select_option("select[name=response]", "Hardness")
+    page.select_option("select[name=model]", "quadratic")
+    page.click("button:has-text('Fit the model')")
+    page.wait_for_selector("h1:has-text('Fit 1')")
+
+
 def _shot(locator, name: str) -> None:
     """A screenshot of one part of the page (the full page is too tall to read)."""
     SCREENSHOTS.mkdir(exist_ok=True)

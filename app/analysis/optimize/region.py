@@ -183,6 +183,14 @@ class Region:
             return np.sqrt(np.sum(x**2, axis=1)) <= self.radius + TOL
         return np.all(np.abs(x) <= 1.0 + TOL, axis=1)
 
+    def tested(self, coded: np.ndarray) -> np.ndarray:
+        """Row-wise: does each coded point lie where the runs spanned, i.e. in the design region
+        or in the cube [-1, 1] of the low and high levels? For a rotatable design with three or
+        more factors the cube's corners (distance sqrt(k)) were run yet lie beyond the axial
+        sphere; a prediction there is no extrapolation, though the search keeps to the sphere."""
+        x = np.atleast_2d(np.asarray(coded, dtype=float))
+        return self.in_design_region(x) | np.all(np.abs(x) <= 1.0 + TOL, axis=1)
+
     def inside(self, coded) -> bool:
         """True when one coded point (array, or dict by factor name) is in the design region,
         within the bounds and at the fixed values."""

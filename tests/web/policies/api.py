@@ -14,4 +14,5 @@ POLICY = {
     "api.get_fit": "signed-in",
     "api_runs.page": "signed-in",
     "api_runs.csv": "signed-in",
+    "api_predictions.create": "signed-in",
 }

@@ -8,4 +8,6 @@ POLICY = {
     "fits.results_json": "signed-in",
     "fits.record_json": "signed-in",
     "fits.compare": "signed-in",
+    "profiler.page": "signed-in",
+    "profiler.numbers": "signed-in",
 }
