@@ -8,12 +8,13 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import Blueprint, current_app, g, jsonify, url_for
+from flask import Blueprint, current_app, g, jsonify, request, url_for
 
-from app.web.access import allow
+from app.store.db import get_session
+from app.web.access import SIGNED_IN, allow
 from app.web.common import me, read_session, tx
 from app.web.openapi import document, json_body, ref, schema
-from app.workflow import fits, reviews, signing
+from app.workflow import fits, queue, reviews, signing
 
 bp = Blueprint("api_reviews", __name__, url_prefix="/api/v1")
 
@@ -60,10 +61,64 @@ schema("Signature", {
 })
 
 
+schema("ReviewQueue", {
+    "type": "object", "required": ["state", "fits"],
+    "properties": {
+        "state": {"type": "string", "enum": list(queue.REVIEW_STATES)},
+        "fits": {"type": "array", "items": {
+            "type": "object",
+            "required": ["id", "study_id", "study", "response", "state", "submitted_at",
+                         "submitted_by", "waiting_seconds", "may_sign", "why_not", "url"],
+            "properties": {
+                "id": {"type": "integer"}, "study_id": {"type": "integer"},
+                "study": {"type": "string"}, "response": {"type": "string"},
+                "state": {"type": "string"},
+                "submitted_at": {"type": ["string", "null"], "format": "date-time"},
+                "submitted_by": {"type": ["string", "null"],
+                                 "description": "User name of the submitter"},
+                "waiting_seconds": {"type": "number",
+                                    "description": "Since submission (creation when never "
+                                                   "submitted), by the server's clock"},
+                "may_sign": {"type": "boolean",
+                             "description": "Whether the caller may sign it now"},
+                "why_not": {"type": ["string", "null"],
+                            "description": "The signing rule that stops the caller"},
+                "url": {"type": "string"}}}},
+    },
+})
+STATE_QUERY = {"name": "state", "in": "query", "required": False,
+               "schema": {"type": "string", "enum": list(queue.REVIEW_STATES),
+                          "default": "submitted"},
+               "description": "Fits in this state (submitted: the review queue)"}
+
+
+@bp.route("/reviews")
+@allow(SIGNED_IN)
+@document("GET", "/reviews", "Fits awaiting review (or in another state), oldest first",
+          tags=("Sign-off",), parameters=(STATE_QUERY,),
+          responses={200: ("Fits the caller may read, with how long each has waited and "
+                           "whether the caller may sign it", "ReviewQueue"),
+                     400: ("An unknown state", ref("Error"))})
+def queue_of_fits():
+    state = request.args.get("state", "submitted")
+    items = queue.fits_in_state(get_session(), g.user, state)
+    return jsonify({"state": state, "fits": [{
+        "id": i["fit"].id, "study_id": i["study"].id, "study": i["study"].title,
+        "response": i["fit"].response, "state": i["fit"].state,
+        "submitted_at": _when(i["fit"].submitted_at),
+        "submitted_by": i["fit"].submitted_by.username if i["fit"].submitted_by else None,
+        "waiting_seconds": round(i["waiting_seconds"], 3), "may_sign": i["may_sign"],
+        "why_not": i["why_not"], "url": url_for("reviews.review", fit_id=i["fit"].id)}
+        for i in items]})
+
+
+def _when(when) -> str | None:
+    return None if when is None else when.strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
 def _state(fit) -> dict[str, Any]:
-    when = fit.submitted_at
     return {"id": fit.id, "state": fit.state, "row_version": fit.row_version,
-            "submitted_at": None if when is None else when.strftime("%Y-%m-%dT%H:%M:%S.%fZ")}
+            "submitted_at": _when(fit.submitted_at)}
 
 
 @bp.route("/fits/<int:fit_id>/submit", methods=["POST"])

@@ -11,7 +11,7 @@ from app.store.models import DataVersion, Fit, Study
 from app.web import pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import float_field, me, team_step, tx
-from app.workflow import WorkflowError, studies, teams
+from app.workflow import WorkflowError, queue, studies, teams
 
 bp = Blueprint("studies", __name__, url_prefix="/studies")
 
@@ -25,8 +25,17 @@ def may_act(study: Study) -> bool:
 @bp.route("/")
 @allow(SIGNED_IN)
 def index():
-    return render_template("studies/index.html",
-                           studies=teams.readable_studies(get_session(), g.user))
+    """The landing page: what waits for the viewer first, then the studies they may read."""
+    session, user = get_session(), g.user
+    signer = user.has_role("approver")
+    mine = [i for i in queue.fits_in_state(session, user, "submitted")
+            if user.id in (i["fit"].created_by_id, i["fit"].submitted_by_id)]
+    return render_template(
+        "studies/index.html", studies=teams.readable_studies(session, user),
+        to_sign=queue.fits_in_state(session, user, "submitted") if signer else [],
+        to_release=queue.proposals_awaiting_release(session, user) if signer else [],
+        returned=queue.returned_to(session, user) if user.has_role("engineer") else [],
+        mine=mine)
 
 
 @bp.route("/new", methods=["GET", "POST"])

@@ -11,4 +11,5 @@ POLICY = {
     "reviews.withdraw": {"approver"},
     "api_reviews.submit": {"engineer"},
     "api_reviews.sign": {"approver"},
+    "api_reviews.queue_of_fits": "signed-in",
 }
