@@ -19,6 +19,8 @@ _NUMERIC = "float64"
 
 def column_dtype(role: ColumnRole) -> str:
     """The pandas dtype a column of this role has in :attr:`DesignTable.frame`."""
+    if role.role == "factor" and role.kind == "categorical":
+        return "object"
     if role.role in ("factor", "response"):
         return _NUMERIC
     if role.role == "run_order":
@@ -62,7 +64,8 @@ class DesignTable:
     Attributes
     ----------
     frame : pandas.DataFrame
-        Typed columns in upload order, ignored columns dropped: factors and responses float64,
+        Typed columns in upload order, ignored columns dropped: factors and responses float64
+        (a categorical factor: str),
         run order int64, block str, covariates float64 (numeric) or str (categorical), label
         str or None. Index = data row number 1..n, named ``row``.
     roles : dict of str to ColumnRole
