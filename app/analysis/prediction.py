@@ -98,14 +98,23 @@ def _coded_setting(factor: dict, value: Any) -> float | str:
 def model_row(model: dict, coded: dict[str, float | str]) -> np.ndarray:
     """The model-matrix row at coded settings (level names for categorical factors), blocks
     averaged out (their sum-to-zero columns at 0), built by the same code as the fit's."""
+    values = {f["name"]: np.array([float(f["levels"].index(coded[f["name"]]) + 1)
+                                   if f.get("levels") else float(coded[f["name"]])])
+              for f in model["factors"]}
+    return model_rows(model, values)[0]
+
+
+def model_rows(model: dict, values: dict[str, np.ndarray]) -> np.ndarray:
+    """Model-matrix rows for arrays of coded settings (level numbers 1..L for a categorical
+    factor), blocks averaged out."""
     factors = model["factors"]
     index = {f["name"]: i for i, f in enumerate(factors)}
     n_levels = {i: len(f["levels"]) for i, f in enumerate(factors) if f.get("levels")}
-    values = [float(f["levels"].index(coded[f["name"]]) + 1) if i in n_levels
-              else float(coded[f["name"]]) for i, f in enumerate(factors)]
+    coded = np.column_stack([np.asarray(values[f["name"]], dtype=float).ravel()
+                             for f in factors])
     terms = [Term(tuple((index[n], int(p)) for n, p in t["powers"])) for t in model["terms"]]
-    blocks = np.zeros((1, len(model.get("block_columns", []))))
-    return model_matrix(np.array([values]), terms, blocks, n_levels)[0]
+    blocks = np.zeros((coded.shape[0], len(model.get("block_columns", []))))
+    return model_matrix(coded, terms, blocks, n_levels)
 
 
 def _back(z: float | None, transform: str, lam: float | None) -> float | None:

@@ -192,3 +192,13 @@ def test_spec_round_trip_keeps_levels_and_continuous_factors_unchanged():
     assert FitSpec.from_dict(spec.to_dict()) == spec
     assert "levels" not in TEMP.to_dict()
     assert SUPPLIER.to_dict()["levels"] == list(LEVELS)
+
+
+def test_setpoint_search_refuses_categorical_factors_clearly():
+    from app.analysis.optimize import SetpointError, propose, single_goal
+
+    doc = analyse(_frame(), _spec()).to_dict()
+    with pytest.raises(SetpointError, match="categorical factors is not available yet"):
+        single_goal(doc, "maximize")
+    with pytest.raises(SetpointError, match="categorical factors is not available yet"):
+        propose({"y": doc}, {"y": {"goal": "maximize"}})
