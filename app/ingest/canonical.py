@@ -10,6 +10,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from app.analysis.coding import levels_in_order
+from app.analysis.spec import Factor
+
 from .errors import IngestError, Problem
 from .roles import ColumnRole
 
@@ -99,6 +102,15 @@ class DesignTable:
                 and a.equals(b))
 
     __hash__ = None  # a DataFrame field makes the table unhashable
+
+    def analysis_factors(self) -> tuple[Factor, ...]:
+        """The factors as the analysis takes them, in upload order: declared low and high, or
+        a categorical factor's levels in the order they first appear in the table."""
+        return tuple(
+            Factor(name, self.roles[name].low, self.roles[name].high, self.roles[name].units,
+                   levels=levels_in_order(self.frame[name])
+                   if self.roles[name].categorical_factor else None)
+            for name in self.factors)
 
     @property
     def n_runs(self) -> int:

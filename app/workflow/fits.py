@@ -13,9 +13,8 @@ import pandas as pd
 from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
-from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse, runstore
+from app.analysis import AnalysisError, FitSpec, Thresholds, analyse, runstore
 from app.analysis.boxcox import LAMBDA_RANGE
-from app.analysis.coding import levels_in_order
 from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.audit import canonical_json
@@ -43,14 +42,8 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
     if response not in responses:
         raise WorkflowError(f"'{response}' is not a response of this data version "
                             f"(responses: {', '.join(responses)}).", field="response")
-    # Factors in the upload's column order (the roles JSON is stored with sorted keys); a
-    # categorical factor's levels in the order they first appear in the table.
-    table = design_table(version)
-    factors = tuple(Factor(name=n, low=roles[n].get("low"), high=roles[n].get("high"),
-                           units=roles[n].get("units"),
-                           levels=levels_in_order(table.frame[n])
-                           if roles[n].get("kind") == "categorical" else None)
-                    for n in table.factors)
+    # Factors in the upload's column order (the roles JSON is stored with sorted keys).
+    factors = design_table(version).analysis_factors()
     pick = lambda role: next((n for n, r in roles.items() if r["role"] == role), None)  # noqa: E731
     covariates = tuple((n, r.get("kind") or "numeric") for n, r in roles.items()
                        if r["role"] == "covariate")

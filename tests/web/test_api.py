@@ -650,6 +650,8 @@ def test_upload_and_fit_with_a_categorical_factor(client, db, users, actions):
     assert page.status_code == 200 and "Machine[M2]" in page.get_data(as_text=True)
     charts = client.get(f"/fits/{fit_id}/charts.json")
     assert charts.status_code == 200
+    builder = client.get(f"/data/{version['id']}/fit").get_data(as_text=True)
+    assert "Speed^2" in builder and "Machine^2" not in builder
 
 
 def test_categorical_factor_with_low_and_high_is_refused_naming_the_field(client, db, users):
