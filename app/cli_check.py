@@ -20,7 +20,6 @@ from app.analysis.spec import (
     NAMED_MODELS,
     TRANSFORMS,
     AnalysisError,
-    Factor,
     FitSpec,
     Thresholds,
 )
@@ -121,6 +120,8 @@ def build_roles(raw, suggested: dict, *, response: str, factors: list[str], run_
         if name in levels:
             lo, hi = levels[name]
             roles[name] = ColumnRole("factor", units=units, low=lo, high=hi)
+        elif suggested[name].categorical_factor:
+            roles[name] = suggested[name]  # a text column of few names: its levels are names
         elif coded:
             roles[name] = ColumnRole("factor", units=units)
         else:
@@ -209,8 +210,7 @@ def _check(file: Path, response: str, factors: str | None, run_order: str | None
         table = validate(raw, roles)
         spec = FitSpec(
             response=response,
-            factors=tuple(Factor(f, table.roles[f].low, table.roles[f].high, table.roles[f].units)
-                          for f in table.factors),
+            factors=table.analysis_factors(),
             run_order=table.run_order, block=table.block,
             covariates=tuple((c, table.roles[c].kind or "numeric") for c in table.covariates),
             label=table.label, model=None if terms else (model or "linear"),

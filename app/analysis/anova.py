@@ -63,6 +63,16 @@ def group_ss(ls: LeastSquares, columns: list[int]) -> float:
     return float(b @ np.linalg.solve(v, b))
 
 
+def term_p_value(ls: LeastSquares, columns: list[int]) -> float:
+    """p of the term's F test (its adjusted SS over its df, against the residual mean square);
+    for one column it is the coefficient's two-sided t-test p (F = t²). NaN without residual
+    information."""
+    if ls.df_resid <= 0 or ls.exact_fit or not ls.sse > 0:
+        return float("nan")
+    f = group_ss(ls, columns) / len(columns) / (ls.sse / ls.df_resid)
+    return float(special.fdtrc(len(columns), ls.df_resid, f))
+
+
 def pure_error(y: np.ndarray, groups: np.ndarray) -> tuple[float, int]:
     """Within-group SS and df over runs sharing the same settings (and block)."""
     counts = np.bincount(groups)

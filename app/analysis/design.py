@@ -90,8 +90,14 @@ def _near(a: np.ndarray | float, b: float) -> np.ndarray | bool:
     return np.abs(np.asarray(a) - b) < 1e-4
 
 
-def describe_design(coded: np.ndarray, blocks: np.ndarray | None = None) -> DesignInfo:
+def describe_design(coded: np.ndarray, blocks: np.ndarray | None = None,
+                    categorical: tuple[int, ...] = ()) -> DesignInfo:
     """Classify the design from its coded settings.
+
+    ``categorical`` lists the columns that hold a categorical factor's level numbers: such a
+    design is ``general`` (the named kinds are built from numeric levels); its runs count as
+    centre runs when every continuous factor is at its centre, and the level joins the
+    settings that define replicates.
 
     Verified against hand-built 2^k, 2^(k-p), CCD (α = 1.682, 1, inscribed), Box–Behnken and
     random designs in tests/analysis/test_design.py.
@@ -101,6 +107,16 @@ def describe_design(coded: np.ndarray, blocks: np.ndarray | None = None) -> Desi
     counts = np.bincount(groups)
     pure_error_df = int(np.sum(counts - 1))
     n_blocks = 1 if blocks is None else len({str(b) for b in blocks})
+    if categorical:
+        continuous = np.delete(coded, list(categorical), axis=1)
+        n_centre = (int((~(np.abs(continuous) > 1e-4).any(axis=1)).sum())
+                    if continuous.shape[1] else 0)
+        return DesignInfo(
+            kind="general", n_runs=n, n_factors=k, n_cube=0, n_axial=0, n_centre=n_centre,
+            n_other=n - n_centre, two_level=False, ccd_type=None, alpha=None, rotatable=None,
+            resolution=None, distinct_settings=int(len(counts)),
+            replicated_settings=int(np.sum(counts > 1)), pure_error_df=pure_error_df,
+            blocks=n_blocks)
     absval = np.abs(coded)
     nonzero = absval > 1e-4
     centre = ~nonzero.any(axis=1)

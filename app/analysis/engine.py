@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 
 from . import transforms
-from .anova import SS_METHOD, anova_table, centre_runs
+from .anova import SS_METHOD, anova_table, centre_runs, term_p_value
 from .boxcox import boxcox_profile
 from .calibration import ASYMPTOTIC_ABOVE, null_draws, seed_for
 from .checks import CheckContext, battery_summary, run_checks
@@ -51,8 +51,23 @@ def _included_mask(frame: pd.DataFrame, spec: FitSpec) -> tuple[np.ndarray, list
     return included, reasons
 
 
-def _column_names(terms: list[Term], block_names: list[str], names: tuple[str, ...]) -> list[str]:
-    return ["Intercept"] + block_names + [t.name(names) for t in terms]
+def _column_names(terms: list[Term], block_names: list[str], names: tuple[str, ...],
+                  levels: dict[int, tuple[str, ...]]) -> list[str]:
+    return ["Intercept"] + block_names + [c for t in terms for c in t.column_names(names, levels)]
+
+
+def _term_columns(terms: list[Term], names: tuple[str, ...], first: int,
+                  n_levels: dict[int, int]) -> list[tuple[str, list[int]]]:
+    """(term name, its model-column indices) for each term; columns start at ``first``.
+
+    A term is one column, times L - 1 for each categorical factor in it; the ANOVA tests all
+    of a term's columns together (one row, df = its column count)."""
+    out, j = [], first
+    for t in terms:
+        width = int(np.prod([n_levels[i] - 1 for i in t.factors if i in n_levels]))
+        out.append((t.name(names), list(range(j, j + width))))
+        j += width
+    return out
 
 
 def _aliasing_error(x: np.ndarray, labels: list[str], r: np.ndarray) -> None:
@@ -69,8 +84,8 @@ def _aliasing_error(x: np.ndarray, labels: list[str], r: np.ndarray) -> None:
             "drop one of them")
 
 
-def _fit_terms(coded, y, terms, bcols):
-    x = model_matrix(coded, terms, bcols)
+def _fit_terms(coded, y, terms, bcols, n_levels):
+    x = model_matrix(coded, terms, bcols, n_levels)
     return x, least_squares(x, y, check_rank=False)
 
 
@@ -88,6 +103,8 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     for name, _ in spec.covariates:
         _require(frame, name, "covariate")
     names = tuple(f.name for f in spec.factors)
+    levels = {i: f.levels for i, f in enumerate(spec.factors) if f.categorical}
+    n_levels = {i: len(lv) for i, lv in levels.items()}
     included, reasons = _included_mask(frame, spec)
     if not included.any():
         raise AnalysisError("Every run is excluded; nothing is left to fit")
@@ -98,15 +115,16 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     y_raw = y_raw_all[included]
     coded = coded_all[included]
     blocks = frame[spec.block].astype(str).to_numpy()[included] if spec.block else None
-    design = describe_design(coded, blocks)
+    design = describe_design(coded, blocks, categorical=tuple(levels))
 
-    terms = resolve_terms(spec.model, spec.terms, names, spec.hierarchy)
+    terms = resolve_terms(spec.model, spec.terms, names, spec.hierarchy,
+                          categorical=frozenset(levels))
     if spec.terms is None and spec.model == "full" and not design.two_level:
         raise AnalysisError("The full model (every interaction) is for two-level designs; "
                             "choose linear, interaction or quadratic, or list terms")
     bcols, block_names, _ = block_columns(blocks) if blocks is not None else (None, [], [])
-    x = model_matrix(coded, terms, bcols)
-    labels = _column_names(terms, block_names, names)
+    x = model_matrix(coded, terms, bcols, n_levels)
+    labels = _column_names(terms, block_names, names, levels)
     if x.shape[0] < x.shape[1]:
         raise AnalysisError(f"{x.shape[0]} runs are fewer than the {x.shape[1]} model terms "
                             f"({', '.join(labels)}) need")
@@ -126,13 +144,14 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     steps: list[dict] = []
     if spec.reduce_alpha is not None:
         def p_values(current: list[Term]) -> dict[Term, float]:
-            xx, ls_c = _fit_terms(coded, y, current, bcols)
-            table = coefficient_table(ls_c, xx)
-            return {t: float(table.p_value[1 + n_block + i]) for i, t in enumerate(current)}
+            _, ls_c = _fit_terms(coded, y, current, bcols, n_levels)
+            groups = _term_columns(current, names, 1 + n_block, n_levels)
+            return {t: term_p_value(ls_c, cols) for t, (_, cols) in zip(current, groups,
+                                                                          strict=True)}
         terms, raw_steps = backward_reduce(terms, p_values, spec.reduce_alpha, spec.hierarchy)
         steps = [{"term": s["term"].name(names), "p_value": s["p_value"]} for s in raw_steps]
-        x = model_matrix(coded, terms, bcols)
-        labels = _column_names(terms, block_names, names)
+        x = model_matrix(coded, terms, bcols, n_levels)
+        labels = _column_names(terms, block_names, names, levels)
         qr = scaled_qr(x)
 
     ls = least_squares(x, y, check_rank=False, qr=qr)
@@ -140,7 +159,7 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     table = coefficient_table(ls, x)
     fit_stats = fit_statistics(ls, y, res.leverage)
     groups = setting_groups(coded, blocks)
-    term_cols = [(labels[1 + n_block + i], [1 + n_block + i]) for i in range(len(terms))]
+    term_cols = _term_columns(terms, names, 1 + n_block, n_levels)
     anova = anova_table(ls, x, y, term_cols, list(range(1, 1 + n_block)), groups,
                         centre=centre_runs(design, coded))
 
@@ -158,7 +177,7 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
         rows=rows, ls=ls, resid=res, coded=coded, factor_names=names, design=design,
         groups=groups, thresholds=spec.thresholds, run_order=run_order, covariates=covariates,
         has_square_terms=any(not t.is_two_level_product() for t in terms),
-        model_factor_set=frozenset(i for t in terms for i in t.factors),
+        model_factor_set=frozenset(i for t in terms for i in t.factors), levels=levels,
         null=_null_draws(ls, x, spec),
     )
     checks = run_checks(ctx)
@@ -176,12 +195,11 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
                    [float(c) for c in ls.coef[1 + n_block:]], spec.factors)
 
     runs = _run_table(frame, spec, rows_all, included, reasons, y_raw_all, coded_all, x, ls, res,
-                      terms, bcols, lam)
+                      terms, bcols, lam, n_levels)
     transform_doc = {"name": spec.transform, "lambda": lam,
                      "label": transforms.transform_label(spec.transform, lam)}
     model_doc = {
-        "terms": [{"name": labels[1 + n_block + i], "powers": [[names[f], p] for f, p in t.powers]}
-                  for i, t in enumerate(terms)],
+        "terms": [_term_doc(t, names, levels) for t in terms],
         "columns": labels, "coefficients": ls.coef.tolist(), "xtx_inv": ls.xtx_inv.tolist(),
         "s": ls.s, "df_resid": ls.df_resid, "transform": spec.transform, "lambda": lam,
         "factors": [f.to_dict() for f in spec.factors], "block_columns": block_names,
@@ -189,12 +207,19 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     suggestions = collect_suggestions(checks, boxcox, lenth_doc, spec.transform)
     return FitResult(
         software_version=software_version(), spec=spec, response=spec.response, design=design,
-        terms=tuple(labels[1 + n_block:]), coefficients=coefficients, anova=tuple(anova),
+        terms=tuple(t.name(names) for t in terms), coefficients=coefficients, anova=tuple(anova),
         anova_method=SS_METHOD, fit=fit_stats, runs=runs, checks=tuple(checks),
         effects=tuple(effects), lenth=lenth_doc, half_normal=tuple(half_normal), equation=eq,
         transform=transform_doc, boxcox=boxcox, suggestions=tuple(suggestions), model=model_doc,
         reduction=tuple(steps), calibration=calibration,
     )
+
+
+def _term_doc(term: Term, names: tuple[str, ...], levels: dict[int, tuple[str, ...]]) -> dict:
+    doc = {"name": term.name(names), "powers": [[names[f], p] for f, p in term.powers]}
+    if any(i in levels for i in term.factors):
+        doc["columns"] = term.column_names(names, levels)
+    return doc
 
 
 def _null_draws(ls, x: np.ndarray, spec: FitSpec):
@@ -226,7 +251,7 @@ def _boxcox(y_raw: np.ndarray, x: np.ndarray, q: np.ndarray) -> dict:
 
 
 def _run_table(frame, spec, rows_all, included, reasons, y_raw_all, coded_all, x_in, ls, res,
-               terms, bcols, lam) -> RunTable:
+               terms, bcols, lam, n_levels) -> RunTable:
     n_all = len(rows_all)
     full = lambda: np.full(n_all, np.nan)  # noqa: E731
     fitted, resid = full(), full()
@@ -246,7 +271,7 @@ def _run_table(frame, spec, rows_all, included, reasons, y_raw_all, coded_all, x
     out_idx = np.flatnonzero(~included)
     if len(out_idx):
         zero_blocks = None if bcols is None else np.zeros((len(out_idx), bcols.shape[1]))
-        x_out = model_matrix(coded_all[out_idx], terms, zero_blocks)
+        x_out = model_matrix(coded_all[out_idx], terms, zero_blocks, n_levels)
         fitted[out_idx] = x_out @ ls.coef
         resid[out_idx] = y_model[out_idx] - fitted[out_idx]
     run_order = None

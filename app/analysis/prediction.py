@@ -13,6 +13,7 @@ from scipy import special
 
 from . import transforms
 from .spec import AnalysisError
+from .terms import Term, model_matrix
 
 
 def _model_doc(result: Any) -> dict:
@@ -26,7 +27,8 @@ def _model_doc(result: Any) -> dict:
 
 
 def predict(result: Any, settings: dict[str, float], level: float = 0.95, m: int = 1) -> dict:
-    """Predicted response at ``settings`` (actual units, one value per factor).
+    """Predicted response at ``settings`` (actual units, one value per factor; a level name
+    for a categorical factor).
 
     Computes x'b on the model scale, the confidence interval x'b ± t s sqrt(x'Vx) and the
     prediction interval x'b ± t s sqrt(1/m + x'Vx) with V = (X'X)^-1 and n - p df, averaging
@@ -47,24 +49,8 @@ def predict(result: Any, settings: dict[str, float], level: float = 0.95, m: int
     missing = [f["name"] for f in factors if f["name"] not in settings]
     if missing:
         raise AnalysisError(f"Settings need a value for factor(s): {', '.join(missing)}")
-    coded = {}
-    for f in factors:
-        try:
-            v = float(settings[f["name"]])
-        except (TypeError, ValueError) as err:
-            raise AnalysisError(f"Setting for '{f['name']}' is not a number") from err
-        if f.get("low") is None:
-            coded[f["name"]] = v
-        else:
-            centre = (f["low"] + f["high"]) / 2.0
-            coded[f["name"]] = (v - centre) / ((f["high"] - f["low"]) / 2.0)
-    row = [1.0] + [0.0] * len(model.get("block_columns", []))
-    for term in model["terms"]:
-        val = 1.0
-        for name, power in term["powers"]:
-            val *= coded[name] ** power
-        row.append(val)
-    x = np.array(row)
+    coded = {f["name"]: _coded_setting(f, settings[f["name"]]) for f in factors}
+    x = model_row(model, coded)
     b = np.asarray(model["coefficients"], dtype=float)
     v = np.asarray(model["xtx_inv"], dtype=float)
     fit = float(x @ b)
@@ -88,6 +74,47 @@ def predict(result: Any, settings: dict[str, float], level: float = 0.95, m: int
     out["ci"] = _back_interval(ci, transform, lam)
     out["pi"] = _back_interval(pi, transform, lam)
     return out
+
+
+def _coded_setting(factor: dict, value: Any) -> float | str:
+    """A setting in coded units; a categorical factor's setting is one of its level names
+    (returned as the name)."""
+    name = factor["name"]
+    if factor.get("levels") is not None:
+        if str(value) not in factor["levels"]:
+            raise AnalysisError(f"Setting for '{name}' must be one of its levels "
+                                f"({', '.join(factor['levels'])}), not {value!r}")
+        return str(value)
+    try:
+        v = float(value)
+    except (TypeError, ValueError) as err:
+        raise AnalysisError(f"Setting for '{name}' is not a number") from err
+    if factor.get("low") is None:
+        return v
+    centre = (factor["low"] + factor["high"]) / 2.0
+    return (v - centre) / ((factor["high"] - factor["low"]) / 2.0)
+
+
+def model_row(model: dict, coded: dict[str, float | str]) -> np.ndarray:
+    """The model-matrix row at coded settings (level names for categorical factors), blocks
+    averaged out (their sum-to-zero columns at 0), built by the same code as the fit's."""
+    values = {f["name"]: np.array([float(f["levels"].index(coded[f["name"]]) + 1)
+                                   if f.get("levels") else float(coded[f["name"]])])
+              for f in model["factors"]}
+    return model_rows(model, values)[0]
+
+
+def model_rows(model: dict, values: dict[str, np.ndarray]) -> np.ndarray:
+    """Model-matrix rows for arrays of coded settings (level numbers 1..L for a categorical
+    factor), blocks averaged out."""
+    factors = model["factors"]
+    index = {f["name"]: i for i, f in enumerate(factors)}
+    n_levels = {i: len(f["levels"]) for i, f in enumerate(factors) if f.get("levels")}
+    coded = np.column_stack([np.asarray(values[f["name"]], dtype=float).ravel()
+                             for f in factors])
+    terms = [Term(tuple((index[n], int(p)) for n, p in t["powers"])) for t in model["terms"]]
+    blocks = np.zeros((coded.shape[0], len(model.get("block_columns", []))))
+    return model_matrix(coded, terms, blocks, n_levels)
 
 
 def _back(z: float | None, transform: str, lam: float | None) -> float | None:

@@ -20,36 +20,65 @@ class Factor:
     """A factor column and its declared levels in actual units.
 
     ``low``/``high`` of ``None`` mean the column already holds coded values (cube points at ±1).
+    ``levels`` makes the factor categorical: its level names, in the order they first appear in
+    the data (the last one takes -1 in every sum-to-zero column); low and high do not apply.
     """
 
     name: str
     low: float | None = None
     high: float | None = None
     units: str | None = None
+    levels: tuple[str, ...] | None = None
 
     def __post_init__(self) -> None:
         if not isinstance(self.name, str) or not self.name:
             raise AnalysisError("Every factor needs a non-empty name")
+        if self.levels is not None:
+            self._check_levels()
         if (self.low is None) != (self.high is None):
             raise AnalysisError(f"Factor '{self.name}': give both low and high, or neither")
         if self.low is not None and not float(self.low) < float(self.high):
             raise AnalysisError(f"Factor '{self.name}': low must be less than high")
 
+    def _check_levels(self) -> None:
+        levels = self.levels
+        if not isinstance(levels, tuple) or not all(isinstance(v, str) for v in levels):
+            raise AnalysisError(f"Factor '{self.name}': levels must be a tuple of names")
+        if len(set(levels)) != len(levels):
+            raise AnalysisError(f"Factor '{self.name}': level names must be distinct")
+        if len(levels) < 2:
+            raise AnalysisError(f"Factor '{self.name}': a categorical factor needs at least two "
+                                "levels")
+        if self.low is not None or self.high is not None:
+            raise AnalysisError(f"Factor '{self.name}': a categorical factor has levels, not "
+                                "low and high")
+
     @property
     def coded(self) -> bool:
-        return self.low is None
+        return self.low is None and self.levels is None
+
+    @property
+    def categorical(self) -> bool:
+        return self.levels is not None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "low": self.low, "high": self.high, "units": self.units}
+        out = {"name": self.name, "low": self.low, "high": self.high, "units": self.units}
+        # only categorical factors carry the key, so stored specs of continuous ones (and the
+        # seeds derived from them) are unchanged
+        if self.levels is not None:
+            out["levels"] = list(self.levels)
+        return out
 
     @classmethod
     def from_dict(cls, d: dict[str, Any]) -> Factor:
         low, high = d.get("low"), d.get("high")
+        levels = d.get("levels")
         return cls(
             name=d["name"],
             low=None if low is None else float(low),
             high=None if high is None else float(high),
             units=d.get("units"),
+            levels=None if levels is None else tuple(str(v) for v in levels),
         )
 
 

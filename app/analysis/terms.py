@@ -9,11 +9,13 @@ name, or a term text mean a different term.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from itertools import combinations
 
 import numpy as np
 
+from .coding import effect_columns
 from .spec import AnalysisError
 
 # Term names join factors with ':' and powers with '^', so factor names may not contain them.
@@ -62,11 +64,32 @@ class Term:
                 out.append(Term(tuple(rest)))
         return out
 
-    def column(self, coded: np.ndarray) -> np.ndarray:
-        col = np.ones(coded.shape[0])
+    def columns(self, coded: np.ndarray, n_levels: Mapping[int, int] | None = None) -> np.ndarray:
+        """The term's model columns: one for continuous factors; a categorical factor (index
+        in ``n_levels``, its coded column holding level numbers) multiplies in its L - 1
+        sum-to-zero columns, so A:B of two categorical factors has (L_A - 1)(L_B - 1)."""
+        n_levels = n_levels or {}
+        cols = np.ones((coded.shape[0], 1))
         for i, p in self.powers:
-            col = col * coded[:, i] ** p
-        return col
+            if i in n_levels:
+                effect = effect_columns(coded[:, i], n_levels[i])
+                cols = (cols[:, :, None] * effect[:, None, :]).reshape(coded.shape[0], -1)
+            else:
+                cols = cols * coded[:, i:i + 1] ** p
+        return cols
+
+    def column_names(self, factor_names: tuple[str, ...],
+                     levels: Mapping[int, tuple[str, ...]] | None = None) -> list[str]:
+        """Names of :meth:`columns` in the same order: ``Supplier[B]``, ``Supplier[B]:Temp``."""
+        levels = levels or {}
+        names = [""]
+        for i, p in self.powers:
+            if i in levels:
+                parts = [f"{factor_names[i]}[{lv}]" for lv in levels[i][:-1]]
+            else:
+                parts = [factor_names[i] if p == 1 else f"{factor_names[i]}^{p}"]
+            names = [f"{a}:{b}" if a else b for a in names for b in parts]
+        return names
 
 
 def sort_key(term: Term) -> tuple:
@@ -75,11 +98,12 @@ def sort_key(term: Term) -> tuple:
     return (term.degree if not pure_power else term.degree + 0.5, term.powers)
 
 
-def named_model(model: str, k: int) -> list[Term]:
+def named_model(model: str, k: int, categorical: frozenset[int] = frozenset()) -> list[Term]:
     """The terms of a named model for ``k`` factors.
 
     ``linear``: main effects; ``interaction``: plus two-factor interactions; ``quadratic``: plus
-    squares; ``full``: every interaction up to the k-factor one (two-level designs).
+    squares of the continuous factors (a categorical factor's main effect already fits each of
+    its levels); ``full``: every interaction up to the k-factor one (two-level designs).
     """
     mains = [Term(((i, 1),)) for i in range(k)]
     twos = [Term(((i, 1), (j, 1))) for i, j in combinations(range(k), 2)]
@@ -88,7 +112,7 @@ def named_model(model: str, k: int) -> list[Term]:
     if model == "interaction":
         return mains + twos
     if model == "quadratic":
-        return mains + twos + [Term(((i, 2),)) for i in range(k)]
+        return mains + twos + [Term(((i, 2),)) for i in range(k) if i not in categorical]
     if model == "full":
         out = []
         for order in range(1, k + 1):
@@ -174,13 +198,25 @@ def resolve_terms(
     terms: tuple[str, ...] | None,
     factor_names: tuple[str, ...],
     hierarchy: bool,
+    categorical: frozenset[int] = frozenset(),
 ) -> list[Term]:
-    """Turn a named model or explicit term list into ordered, de-duplicated terms."""
+    """Turn a named model or explicit term list into ordered, de-duplicated terms.
+
+    ``categorical`` holds the indices of categorical factors, which may enter a term only to
+    the first power.
+    """
     check_factor_names(factor_names)
     if terms is not None:
         parsed = [parse_term(t, factor_names) for t in terms]
     else:
-        parsed = named_model(model or "linear", len(factor_names))
+        parsed = named_model(model or "linear", len(factor_names), categorical)
+    for term, text in zip(parsed, terms or (), strict=False):
+        powered = [factor_names[i] for i, p in term.powers if i in categorical and p > 1]
+        if powered:
+            raise AnalysisError(
+                f"Term '{text.strip()}': '{powered[0]}' is a categorical factor, so it has no "
+                "square or higher power (its levels are names with no spacing); its main "
+                "effect already fits every level separately")
     unique = sorted(set(parsed), key=sort_key)
     return with_hierarchy(unique) if hierarchy else unique
 
@@ -199,18 +235,17 @@ def block_columns(blocks: np.ndarray) -> tuple[np.ndarray, list[str], list[str]]
     levels = sorted({str(b) for b in blocks})
     if len(levels) < 2:
         return np.zeros((len(blocks), 0)), [], levels
-    codes = np.array([levels.index(str(b)) for b in blocks])
-    cols = np.zeros((len(blocks), len(levels) - 1))
-    for j in range(len(levels) - 1):
-        cols[codes == j, j] = 1.0
-    cols[codes == len(levels) - 1, :] = -1.0
+    numbers = np.searchsorted(levels, np.asarray(blocks, dtype=str)) + 1
+    cols = effect_columns(numbers, len(levels))
     return cols, [f"Block[{lv}]" for lv in levels[:-1]], levels
 
 
-def model_matrix(coded: np.ndarray, terms: list[Term], block_cols: np.ndarray | None = None):
-    """Intercept, block columns, then one column per term, in coded units."""
+def model_matrix(coded: np.ndarray, terms: list[Term], block_cols: np.ndarray | None = None,
+                 n_levels: Mapping[int, int] | None = None):
+    """Intercept, block columns, then each term's columns, in coded units (``n_levels``: the
+    number of levels of each categorical factor, by factor index)."""
     pieces = [np.ones((coded.shape[0], 1))]
     if block_cols is not None and block_cols.shape[1]:
         pieces.append(block_cols)
-    pieces.extend(t.column(coded)[:, None] for t in terms)
+    pieces.extend(t.columns(coded, n_levels) for t in terms)
     return np.hstack(pieces)

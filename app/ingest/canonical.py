@@ -10,6 +10,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
+from app.analysis.coding import levels_in_order
+from app.analysis.spec import Factor
+
 from .errors import IngestError, Problem
 from .roles import ColumnRole
 
@@ -19,6 +22,8 @@ _NUMERIC = "float64"
 
 def column_dtype(role: ColumnRole) -> str:
     """The pandas dtype a column of this role has in :attr:`DesignTable.frame`."""
+    if role.role == "factor" and role.kind == "categorical":
+        return "object"
     if role.role in ("factor", "response"):
         return _NUMERIC
     if role.role == "run_order":
@@ -62,7 +67,8 @@ class DesignTable:
     Attributes
     ----------
     frame : pandas.DataFrame
-        Typed columns in upload order, ignored columns dropped: factors and responses float64,
+        Typed columns in upload order, ignored columns dropped: factors and responses float64
+        (a categorical factor: str),
         run order int64, block str, covariates float64 (numeric) or str (categorical), label
         str or None. Index = data row number 1..n, named ``row``.
     roles : dict of str to ColumnRole
@@ -96,6 +102,15 @@ class DesignTable:
                 and a.equals(b))
 
     __hash__ = None  # a DataFrame field makes the table unhashable
+
+    def analysis_factors(self) -> tuple[Factor, ...]:
+        """The factors as the analysis takes them, in upload order: declared low and high, or
+        a categorical factor's levels in the order they first appear in the table."""
+        return tuple(
+            Factor(name, self.roles[name].low, self.roles[name].high, self.roles[name].units,
+                   levels=levels_in_order(self.frame[name])
+                   if self.roles[name].categorical_factor else None)
+            for name in self.factors)
 
     @property
     def n_runs(self) -> int:

@@ -43,7 +43,9 @@ class ColumnRole:
         Factors only: declared low and high levels in actual units, the ones coded -1 and +1.
         Both None means the column already holds coded values.
     kind : {"numeric", "categorical"} or None
-        Covariates only.
+        Covariates: numeric or categorical. Factors: "categorical" for a factor whose levels
+        are names (supplier, operator, machine); None (or "numeric") for a continuous factor,
+        so the stored roles of continuous factors are what they always were.
     """
 
     role: str
@@ -58,7 +60,17 @@ class ColumnRole:
                 f"Role '{self.role}' is not known; use one of {', '.join(ROLES)}.")
         if self.kind is not None and self.kind not in COVARIATE_KINDS:
             raise IngestError.single(
-                f"Covariate kind '{self.kind}' is not known; use numeric or categorical.")
+                f"{'Factor' if self.role == 'factor' else 'Covariate'} kind '{self.kind}' is not "
+                "known; use numeric or categorical.")
+        if self.categorical_factor and (self.low is not None or self.high is not None):
+            raise IngestError.single(
+                "A categorical factor has named levels, not low and high numbers; leave low "
+                "and high out.")
+
+    @property
+    def categorical_factor(self) -> bool:
+        """True for a factor whose levels are names."""
+        return self.role == "factor" and self.kind == "categorical"
 
     def to_dict(self) -> dict:
         """Return all fields as a JSON-able dict."""
@@ -142,8 +154,10 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
     distinct values (and no more than half as many as there are rows) are factors with levels
     from :func:`suggest_levels`; numeric columns whose header names a recorded condition
     (humidity, operator, lot ...) are numeric covariates; other numeric columns are responses;
-    text columns repeating values are categorical covariates, and a text column with a value
-    per row is the label. Units written in brackets after the header name are carried over.
+    a text column with no gaps and at most five distinct values (no more than half as many as
+    rows) is a categorical factor, unless its header names a recorded condition; other text
+    columns repeating values are categorical covariates, and a text column with a value per row
+    is the label. Units written in brackets after the header name are carried over.
     """
     roles: dict[str, ColumnRole] = {}
     taken: set[str] = set()
@@ -172,6 +186,12 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
                 roles[column] = ColumnRole("factor", units=units, low=low, high=high)
             else:
                 roles[column] = ColumnRole("response", units=units)
+        elif (filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n
+              and not words & _COVARIATE_WORDS):
+            # Few names, none missing, each level used about twice or more: the shape of a
+            # factor set on purpose (supplier A/B/C, machine 1/2). A header naming a recorded
+            # condition (operator, lot ...) keeps it a covariate: noted, not designed.
+            roles[column] = ColumnRole("factor", units=units, kind="categorical")
         elif distinct < filled:
             roles[column] = ColumnRole("covariate", units=units, kind="categorical")
         else:

@@ -72,6 +72,25 @@ def _text_column(raw: RawTable, column: str, role: str, problems: list[Problem],
     return values
 
 
+def _distinct_count(values: np.ndarray) -> int:
+    return len({v for v in pd.unique(values) if v is not None})
+
+
+def _categorical_factor(raw: RawTable, column: str, problems: list[Problem]) -> np.ndarray:
+    """A factor whose levels are names: text with no gaps and at least two distinct levels.
+
+    Cells are kept as the text uploaded (no number parsing), so "A", "B" and "1", "2" alike are
+    level names; the analysis orders levels by first appearance in the file.
+    """
+    values = _text_column(raw, column, "factor", problems, required=True)
+    present = [v for v in pd.unique(values) if v is not None and not pd.isna(v)]
+    if len(present) == 1:
+        problems.append(Problem(
+            f"Factor '{column}' (categorical) has one level only ('{present[0]}'); a categorical "
+            "factor needs at least two levels. Mark it 'ignore'.", column=column))
+    return values
+
+
 def _listed(rows: list[int], values: np.ndarray) -> str:
     return ", ".join(f"row {r} has {_fmt(float(v))}"
                      for r, v in zip(rows[:CELLS_LISTED_PER_COLUMN],
@@ -166,11 +185,13 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
 
     Columns without a role are treated as ignored. Every problem found is reported together,
     the first five per column listed by row. The rules: factors and responses are numbers with
-    no gaps (with several responses, every one needs a value in every row); a factor is not
+    no gaps (with several responses, every one needs a value in every row), except that a
+    categorical factor is text with no gaps and at least two levels; a factor is not
     constant, its declared low < high, and its name has no ':' or '^' and is not
     'Intercept' (term names would be ambiguous); run order is whole, positive and unique; block,
     categorical covariates and numeric covariates have no gaps; the run count reaches the
-    main-effects model (1 + factors + blocks - 1). Verified by the bad-input tests in
+    main-effects model (1 + factors + blocks - 1, a categorical factor counting
+    its levels - 1). Verified by the bad-input tests in
     ``tests/ingest``.
 
     Raises
@@ -189,7 +210,9 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
     for name, role in full.items():
         if role.role == "ignore":
             continue
-        if role.role == "factor":
+        if role.categorical_factor:
+            values = _categorical_factor(raw, name, problems)
+        elif role.role == "factor":
             values = _numeric_column(raw, name, "factor", problems)
             if len(values) and not np.isnan(values).any() and (values == values[0]).all():
                 problems.append(Problem(
@@ -211,9 +234,11 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
                                   required=role.role == "block")
         columns[name] = values
     n = raw.n_rows
-    factors = sum(1 for r in full.values() if r.role == "factor")
+    # a categorical factor with L levels takes L - 1 columns of the main-effects model
+    factors = sum(_distinct_count(columns[c]) - 1 if r.categorical_factor else 1
+                  for c, r in full.items() if r.role == "factor")
     block = next((c for c, r in full.items() if r.role == "block"), None)
-    blocks = len({v for v in pd.unique(columns[block]) if v is not None}) if block else 1
+    blocks = _distinct_count(columns[block]) if block else 1
     needed = 1 + factors + max(blocks - 1, 0)
     if n < needed:
         extra = f" and {blocks - 1} for blocks" if blocks > 1 else ""

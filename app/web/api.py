@@ -57,10 +57,13 @@ schema("ColumnRole", {
     "properties": {
         "role": {"type": "string", "enum": list(ROLE_NAMES)},
         "units": {"type": ["string", "null"]},
-        "low": {**NULLABLE_NUMBER, "description": "Factors: the level coded -1"},
-        "high": {**NULLABLE_NUMBER, "description": "Factors: the level coded +1"},
+        "low": {**NULLABLE_NUMBER, "description": "Continuous factors: the level coded -1"},
+        "high": {**NULLABLE_NUMBER, "description": "Continuous factors: the level coded +1"},
         "kind": {"type": ["string", "null"], "enum": ["numeric", "categorical", None],
-                 "description": "Covariates only"},
+                 "description": "Covariates: numeric or categorical. Factors: categorical for "
+                                "a factor whose levels are names (kept as text in order of "
+                                "first appearance; no low or high); left out or null for a "
+                                "continuous factor"},
     },
 })
 ROLES_SCHEMA = {"type": "object", "additionalProperties": ref("ColumnRole"),

@@ -13,6 +13,7 @@ none). static/js/charts.js listens to each view's ``pick`` and sets ``highlight_
 
 from __future__ import annotations
 
+import itertools
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -21,6 +22,7 @@ import numpy as np
 from scipy import stats
 
 from app.analysis import runstore, transforms
+from app.analysis.prediction import model_rows
 from app.analysis.runstore import RunColumns
 
 # Our own palette: ink-blue points, a burnt-orange highlight, red and amber limit lines.
@@ -194,19 +196,34 @@ def residuals_vs_fitted(results: dict, cols: RunColumns | None = None) -> Chart:
                  ("Run", "Run order", "Fitted", "Residual"), rows)
 
 
-def _level_rows(cols: RunColumns, factor: str) -> list[dict]:
-    """The included runs' chart rows, each with its setting of ``factor`` as ``level``."""
+def level_names(results: dict, factor: str) -> list[str] | None:
+    """A categorical factor's level names in their order (None for a continuous factor)."""
+    for f in results.get("model", {}).get("factors", []):
+        if f["name"] == factor and f.get("levels") is not None:
+            return list(f["levels"])
+    return None
+
+
+def _level_rows(cols: RunColumns, factor: str, names: list[str] | None = None) -> list[dict]:
+    """The included runs' chart rows, each with its setting of ``factor`` as ``level`` (its
+    level name for a categorical factor, whose stored setting is the level number) and
+    ``level_order`` to sort by."""
     idx = included_runs(cols)
     data = _base_rows(cols, idx)
     for d, level in zip(data, cols.actual[factor][idx].tolist(), strict=True):
-        d["level"] = level
+        d["level_order"] = level
+        d["level"] = names[int(level) - 1] if names else level
     return data
 
 
 def residuals_vs_factor(results: dict, factor: str, cols: RunColumns | None = None) -> Chart:
-    data = _level_rows(columns_of(results, cols), factor)
-    pts = _points(alt.X("level:Q", title=factor, scale=alt.Scale(zero=False)),
-                  alt.Y("residual:Q", title="Residual"), alt.Tooltip("level:Q", title=factor))
+    names = level_names(results, factor)
+    data = _level_rows(columns_of(results, cols), factor, names)
+    # a categorical factor's levels sit on a nominal axis, in their own order
+    x = (alt.X("level:N", title=factor, sort=names) if names
+         else alt.X("level:Q", title=factor, scale=alt.Scale(zero=False)))
+    pts = _points(x, alt.Y("residual:Q", title="Residual"),
+                  alt.Tooltip("level:N" if names else "level:Q", title=factor))
     spec = _finish([_rules([{"at": 0}], REFERENCE, dash=(1, 0)), pts], data,
                    f"Residuals against {factor}")
     rows = [(d["label"], d["run_order"], d["level"], _r(d["residual"])) for d in data]
@@ -262,26 +279,27 @@ def run_order(results: dict, cols: RunColumns | None = None) -> Chart | None:
 
 def spread_by_level(results: dict, factor: str, cols: RunColumns | None = None) -> Chart:
     """Residuals at each level of a factor with each level's ±1 SD bar."""
-    data = _level_rows(columns_of(results, cols), factor)
+    names = level_names(results, factor)
+    data = _level_rows(columns_of(results, cols), factor, names)
     by_level: dict[Any, list[float]] = {}
-    for d in data:
+    for d in sorted(data, key=lambda d: d["level_order"]):
         by_level.setdefault(d["level"], []).append(d["residual"])
     spread = [{"level": lv, "sd": float(np.std(v, ddof=1)) if len(v) > 1 else None,
                "lo": float(np.mean(v) - np.std(v, ddof=1)) if len(v) > 1 else None,
                "hi": float(np.mean(v) + np.std(v, ddof=1)) if len(v) > 1 else None,
-               "n": len(v)} for lv, v in sorted(by_level.items())]
+               "n": len(v)} for lv, v in by_level.items()]
     bars = alt.Chart(alt.Data(values=[s for s in spread if s["sd"] is not None])).mark_rule(
         color="#9fb6cc", strokeWidth=8, opacity=0.7).encode(
-        x=alt.X("level:O"), y="lo:Q", y2="hi:Q",
+        x=alt.X("level:O", sort=names), y="lo:Q", y2="hi:Q",
         tooltip=[alt.Tooltip("level:O", title=factor), alt.Tooltip("sd:Q", format=".3g",
                                                                    title="SD"),
                  alt.Tooltip("n:Q", title="Runs")])
-    pts = _points(alt.X("level:O", title=factor), alt.Y("residual:Q", title="Residual"),
+    pts = _points(alt.X("level:O", title=factor, sort=names), alt.Y("residual:Q", title="Residual"),
                   alt.Tooltip("level:O", title=factor))
     spec = _finish([bars, pts], data, f"Spread of residuals by {factor} level")
     sd_at = {s["level"]: s["sd"] for s in spread}
     rows = [(d["label"], d["run_order"], d["level"], _r(d["residual"]), _r(sd_at[d["level"]]))
-            for d in sorted(data, key=lambda d: (d["level"], d["row"]))]
+            for d in sorted(data, key=lambda d: (d["level_order"], d["row"]))]
     return Chart(f"spread_by_level:{factor}", f"Spread by {factor} level", spec,
                  ("Run", "Run order", factor, "Residual", "Residual SD at this level"), rows,
                  "Bars show mean ± 1 SD at each level.")
@@ -388,26 +406,35 @@ def boxcox_profile(results: dict) -> Chart | None:
 def predict_grid(model: dict, settings: dict[str, np.ndarray]) -> np.ndarray:
     """Predicted response (back-transformed) at many settings at once, from the stored model.
 
-    The same computation as ``app.analysis.predict`` (x'b in coded units, blocks averaged out,
-    then the inverse transform), on arrays; tests/web/test_charts.py checks it against predict.
+    The model rows come from ``app.analysis.prediction.model_rows`` (x'b in coded units, blocks
+    averaged out), then the inverse transform; a categorical factor not given a level name is
+    averaged over its levels (the mean of its sum-to-zero columns over the levels is zero, as
+    for blocks). tests/web/test_charts.py checks it against predict.
     """
-    coded = {}
+    coded, choices = {}, []
     for f in model["factors"]:
-        v = np.asarray(settings[f["name"]], dtype=float)
+        v = settings[f["name"]]
+        if f.get("levels") is not None:
+            given = isinstance(v, str)
+            choices.append((f["name"], [f["levels"].index(v) + 1] if given
+                            else range(1, len(f["levels"]) + 1)))
+            continue
+        v = np.asarray(v, dtype=float)
         if f.get("low") is None:
             coded[f["name"]] = v
         else:
             centre, half = (f["low"] + f["high"]) / 2.0, (f["high"] - f["low"]) / 2.0
             coded[f["name"]] = (v - centre) / half
-    shape = np.broadcast(*coded.values()).shape
+    shape = np.broadcast(*coded.values()).shape if coded else ()
     b = np.asarray(model["coefficients"], dtype=float)
-    z = np.full(shape, b[0])
-    offset = 1 + len(model.get("block_columns", []))
-    for j, term in enumerate(model["terms"]):
-        col = np.ones(shape)
-        for name, power in term["powers"]:
-            col = col * coded[name] ** power
-        z = z + b[offset + j] * col
+    combos = list(itertools.product(*(levels for _, levels in choices)))
+    z = np.zeros(int(np.prod(shape)))
+    for combo in combos:
+        values = {n: np.broadcast_to(v, shape) for n, v in coded.items()}
+        values.update({n: np.full(shape, float(level))
+                       for (n, _), level in zip(choices, combo, strict=True)})
+        z += model_rows(model, values) @ b
+    z = (z / len(combos)).reshape(shape)
     with np.errstate(all="ignore"):
         out = transforms.inverse(z, model.get("transform", "none"), model.get("lambda"))
     return np.asarray(out, dtype=float)
@@ -415,7 +442,8 @@ def predict_grid(model: dict, settings: dict[str, np.ndarray]) -> np.ndarray:
 
 def contour(results: dict, x_factor: str, y_factor: str,
             cols: RunColumns | None = None) -> Chart:
-    """Fitted response over two factors (others at their centre) with the design points."""
+    """Fitted response over two continuous factors (others at their centre, categorical ones
+    averaged over their levels) with the design points."""
     model = results["model"]
     factors = {f["name"]: f for f in model["factors"]}
     cols = columns_of(results, cols)
@@ -481,6 +509,8 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
 
     cols = columns_of(results, cols)
     factor_names = [f["name"] for f in results["factors"]]
+    # the surface is drawn over two continuous factors (categorical ones are averaged over)
+    continuous = [f for f in factor_names if level_names(results, f) is None]
     out: list[Chart | None] = []
     used = int(cols.included.sum())
     if used > BIN_ABOVE:
@@ -494,8 +524,10 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
                 for name, values in (covariates or {}).items()]
         out += [cooks_distance(results, cols), leverage(results, cols)]
     out += [half_normal(results), boxcox_profile(results)]
-    if len(factor_names) >= 2:
-        x, y = pair if pair else (factor_names[0], factor_names[1])
+    if pair and not set(pair) <= set(continuous):
+        pair = None
+    if len(continuous) >= 2:
+        x, y = pair if pair else (continuous[0], continuous[1])
         out.append(contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
                    else binned_contour(results, x, y, cols))
     return [c for c in out if c is not None]

@@ -36,7 +36,17 @@ from app.workflow.csvsafe import safe_csv
 
 bp = Blueprint("data", __name__)
 
-ROLE_CHOICES = ("factor", "response", "run_order", "block", "covariate", "label", "ignore")
+ROLE_CHOICES = ("factor", "factor_categorical", "response", "run_order", "block", "covariate",
+                "label", "ignore")
+# What the role list shows for a choice whose name is not its words.
+ROLE_WORDS = {"factor_categorical": "factor (categorical)"}
+
+
+def role_choice(role: ColumnRole | None) -> str | None:
+    """The preview's role choice for a column role (a categorical factor has its own)."""
+    if role is None:
+        return None
+    return "factor_categorical" if role.categorical_factor else role.role
 # The preview shows this many rows and a summary of every column, never the whole table.
 PREVIEW_ROWS = 20
 
@@ -99,12 +109,13 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
     head = raw.frame.head(PREVIEW_ROWS)
     suggested = suggest_roles(raw)
     roles = suggested if roles is None else roles
-    summary = [(summarize_column(raw, c), suggested[c].role) for c in raw.frame.columns]
+    summary = [(summarize_column(raw, c), role_choice(suggested[c])) for c in raw.frame.columns]
     return render_template(
         "data/preview.html", study=study, staged=staged, raw=raw, roles=roles,
         columns=list(raw.frame.columns), rows=head.itertuples(), n_rows=len(raw.frame),
         n_shown=len(head), summary=summary,
-        role_choices=ROLE_CHOICES, problems=problems, needs_reason=_has_versions(study.id),
+        role_choices=ROLE_CHOICES, role_words=ROLE_WORDS, role_choice=role_choice,
+        problems=problems, needs_reason=_has_versions(study.id),
         reason=request.form.get("reason", "")), status
 
 
@@ -139,7 +150,12 @@ def roles_from_form(form, columns: list[str]) -> dict[str, ColumnRole]:
                 except ValueError:
                     problems.append(f"Column '{name}': declared {key} level '{text}' is not a "
                                     "number.")
-        roles[name] = ColumnRole(role=role, units=(form.get(f"units_{i}") or "").strip() or None,
+        units = (form.get(f"units_{i}") or "").strip() or None
+        if role == "factor_categorical":
+            # levels are the column's own names; low and high do not apply
+            roles[name] = ColumnRole(role="factor", units=units, kind="categorical")
+            continue
+        roles[name] = ColumnRole(role=role, units=units,
                                  low=levels.get("low"), high=levels.get("high"),
                                  kind=(form.get(f"kind_{i}") or "numeric")
                                  if role == "covariate" else None)

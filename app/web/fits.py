@@ -57,10 +57,12 @@ def chart_id(name: str) -> str:
 bp.add_app_template_filter(chart_id, "chart_id")
 
 
-def candidate_terms(factor_names: list[str], two_level: bool) -> list[dict[str, Any]]:
-    """Terms the picker offers, each with the parents hierarchy needs."""
+def candidate_terms(factor_names: list[str], two_level: bool,
+                    categorical: frozenset[int] = frozenset()) -> list[dict[str, Any]]:
+    """Terms the picker offers, each with the parents hierarchy needs (no square of a
+    categorical factor)."""
     k = len(factor_names)
-    terms = set(named_model("quadratic", k))
+    terms = set(named_model("quadratic", k, categorical))
     if two_level and 3 <= k <= 5:
         terms |= set(named_model("full", k))
     names = tuple(factor_names)
@@ -81,9 +83,12 @@ def _builder_context(version, form: dict[str, Any]) -> dict[str, Any]:
     factor_names = list(table.factors)  # the upload's column order, not the sorted roles JSON
     # Two levels plus perhaps a centre: higher interactions are worth offering.
     two_level = all(len(set(table.frame[n])) <= 3 for n in factor_names)
+    categorical = frozenset(i for i, n in enumerate(factor_names)
+                            if table.roles[n].categorical_factor)
+    two_level = two_level and not categorical
     return {"version": version, "study": version.study, "roles": roles, "table": table,
             "responses": list(table.responses),
-            "factors": factor_names, "terms": candidate_terms(factor_names, two_level),
+            "factors": factor_names, "terms": candidate_terms(factor_names, two_level, categorical),
             "models": [(m, MODEL_LABELS[m]) for m in NAMED_MODELS],
             "transforms": [(t, TRANSFORM_LABELS[t]) for t in TRANSFORMS],
             "lambda_range": LAMBDA_RANGE, "form": form,

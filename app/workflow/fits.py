@@ -13,7 +13,7 @@ import pandas as pd
 from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
-from app.analysis import AnalysisError, Factor, FitSpec, Thresholds, analyse, runstore
+from app.analysis import AnalysisError, FitSpec, Thresholds, analyse, runstore
 from app.analysis.boxcox import LAMBDA_RANGE
 from app.caches import MB, ByteCache
 from app.store import audit
@@ -43,8 +43,7 @@ def build_spec(version: DataVersion, *, response: str, model: str | None = "line
         raise WorkflowError(f"'{response}' is not a response of this data version "
                             f"(responses: {', '.join(responses)}).", field="response")
     # Factors in the upload's column order (the roles JSON is stored with sorted keys).
-    factors = tuple(Factor(name=n, low=roles[n].get("low"), high=roles[n].get("high"),
-                           units=roles[n].get("units")) for n in design_table(version).factors)
+    factors = design_table(version).analysis_factors()
     pick = lambda role: next((n for n, r in roles.items() if r["role"] == role), None)  # noqa: E731
     covariates = tuple((n, r.get("kind") or "numeric") for n, r in roles.items()
                        if r["role"] == "covariate")

@@ -612,3 +612,55 @@ def test_registry_refuses_a_second_view_for_one_operation():
     with pytest.raises(ValueError, match="relative to /api/v1"):
         openapi.document("GET", "/api/v1/fits", "prefixed", responses={200: ("x", None)})
     assert sum(op.path == "/fits/{fit_id}" for op in openapi.OPERATIONS) == 1
+
+
+# ---- categorical factors --------------------------------------------------------------------
+
+GLOSS = (b"Machine,Speed,Gloss\n"
+         b"M2,10,81.5\nM1,20,84.0\nM3,10,80.2\nM2,20,86.9\nM1,10,79.1\nM3,20,83.3\n"
+         b"M2,15,84.4\nM1,15,81.8\nM3,15,82.0\n")
+GLOSS_ROLES = json.dumps({"Machine": {"role": "factor", "kind": "categorical"},
+                          "Speed": {"role": "factor", "low": 10, "high": 20},
+                          "Gloss": {"role": "response"}})
+
+
+def test_upload_and_fit_with_a_categorical_factor(client, db, users, actions):
+    auth = bearer(service_token(db, "erin"))
+    study_id = client.post(f"{API_PREFIX}/studies", json={"title": "Gloss"},
+                           headers=auth).get_json()["id"]
+    sent = upload(client, auth, study_id, data=GLOSS, roles=GLOSS_ROLES, filename="gloss.csv")
+    assert sent.status_code == 201, sent.get_json()
+    version = sent.get_json()
+    assert version["roles"]["Machine"] == {"role": "factor", "kind": "categorical",
+                                           "units": None, "low": None, "high": None}
+    fitted = client.post(f"{API_PREFIX}/data/{version['id']}/fits", headers=auth,
+                         json={"response": "Gloss", "model": "interaction"})
+    assert fitted.status_code == 201, fitted.get_json()
+    body = client.get(f"{API_PREFIX}/fits/{fitted.get_json()['id']}", headers=auth).get_json()
+    rows = {r["source"]: r for r in body["results"]["anova"]}
+    assert rows["Machine"]["df"] == 2 and rows["Machine:Speed"]["df"] == 2
+    assert "Machine[M2]:Speed" in [c["term"] for c in body["results"]["coefficients"]]
+    assert body["spec"]["factors"][0]["levels"] == ["M2", "M1", "M3"]
+    errors = list(schema_validator(client, auth, "Fit").iter_errors(body))
+    assert not errors, errors[0].message
+    # the pages and charts of the fit draw without error
+    actions.login("erin")
+    fit_id = fitted.get_json()["id"]
+    page = client.get(f"/fits/{fit_id}")
+    assert page.status_code == 200 and "Machine[M2]" in page.get_data(as_text=True)
+    charts = client.get(f"/fits/{fit_id}/charts.json")
+    assert charts.status_code == 200
+    builder = client.get(f"/data/{version['id']}/fit").get_data(as_text=True)
+    assert "Speed^2" in builder and "Machine^2" not in builder
+
+
+def test_categorical_factor_with_low_and_high_is_refused_naming_the_field(client, db, users):
+    auth = bearer(service_token(db, "erin"))
+    study_id = client.post(f"{API_PREFIX}/studies", json={"title": "Gloss"},
+                           headers=auth).get_json()["id"]
+    roles = json.loads(GLOSS_ROLES)
+    roles["Machine"].update(low=1, high=3)
+    sent = upload(client, auth, study_id, data=GLOSS, roles=json.dumps(roles),
+                  filename="gloss.csv")
+    assert sent.status_code == 400
+    assert "categorical factor has named levels" in json.dumps(sent.get_json())

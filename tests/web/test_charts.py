@@ -209,3 +209,48 @@ def test_leverage_chart_draws_the_outlier_limit_on_the_studentized_scale(rsm):
     ats = sorted(v["at"] for layer in chart.spec["layer"] if "data" in layer
                  for v in layer["data"]["values"])
     assert -limit in ats and limit in ats
+
+
+@pytest.fixture(scope="module")
+def categorical():
+    """Two continuous factors and a categorical one with three levels (file order M2, M1, M3)."""
+    import pandas as pd
+
+    rng = np.random.default_rng(3)
+    machine = ["M2", "M1", "M3"] * 8
+    a = np.tile([-1.0, 1.0, -1.0, 1.0, 0.0, 0.0, 1.0, -1.0], 3)
+    b = np.repeat([-1.0, 1.0, 0.0], 8)
+    shift = np.array([{"M2": 1.0, "M1": -0.5, "M3": -0.5}[m] for m in machine])
+    y = 10 + 2 * a - b + shift + rng.normal(scale=0.3, size=24)
+    frame = pd.DataFrame({"Machine": np.array(machine, dtype=object), "A": a, "B": b, "y": y},
+                         index=pd.RangeIndex(1, 25, name="row"))
+    spec = FitSpec(response="y", factors=(Factor("Machine", levels=("M2", "M1", "M3")),
+                                          Factor("A"), Factor("B")), model="interaction")
+    return analyse(frame, spec).to_dict()
+
+
+def test_categorical_factor_charts_use_level_names_on_a_nominal_axis(categorical, validator):
+    built = {c.name: c for c in charts.all_charts(categorical)}
+    for chart in built.values():
+        errors = sorted(validator.iter_errors(chart.spec), key=str)
+        assert not errors, f"{chart.name}: {errors[0].message}"
+    factor_chart = built["residuals_vs_factor:Machine"]
+    x = next(layer["encoding"]["x"] for layer in factor_chart.spec["layer"]
+             if "x" in layer.get("encoding", {}) and layer["encoding"]["x"].get("field") == "level")
+    assert x["type"] == "nominal" and x["sort"] == ["M2", "M1", "M3"]
+    assert {r["level"] for r in _rows(factor_chart.spec)} == {"M2", "M1", "M3"}
+    assert [row[2] for row in built["spread_by_level:Machine"].rows][:1] == ["M2"]
+    # the surface is over the two continuous factors
+    assert built["contour"].title == "Fitted y over A and B"
+
+
+def test_predict_grid_averages_a_categorical_factor_over_its_levels(categorical):
+    model = categorical["model"]
+    grid = charts.predict_grid(model, {"Machine": 0.0, "A": np.array([0.5]),
+                                       "B": np.array([-0.25])})
+    each = [predict(categorical, {"Machine": m, "A": 0.5, "B": -0.25})["predicted"]
+            for m in ("M2", "M1", "M3")]
+    assert_allclose(grid[0], np.mean(each), rtol=1e-12)
+    one = charts.predict_grid(model, {"Machine": "M1", "A": np.array([0.5]),
+                                      "B": np.array([-0.25])})
+    assert_allclose(one[0], each[1], rtol=1e-12)

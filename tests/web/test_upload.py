@@ -306,3 +306,24 @@ def test_attachment_header_is_ascii_under_any_name(app, name, fallback, full):
     assert params["filename"] == (full or fallback)
     assert header.startswith(f"attachment; filename={fallback}")
     assert ("filename*=UTF-8''" in header) == (full is not None)
+
+
+CATEGORICAL = (b"Resin,Temp,Strength\n"
+               b"Birch,150,61.5\nAlder,170,64.0\nBirch,170,66.2\n"
+               b"Cedar,150,70.9\nAlder,150,60.1\nCedar,170,72.3\n")
+
+
+def test_preview_offers_and_stores_a_categorical_factor(client, actions, db, study_id):
+    response = _upload(actions, study_id, CATEGORICAL, "resin.csv")
+    html = client.get(response.headers["Location"]).get_data(as_text=True)
+    # the suggester picks the categorical factor for the text column with few names
+    assert '<option value="factor_categorical" selected>factor (categorical)</option>' in html
+    stored = actions.post(response.headers["Location"], _confirm_form(html))
+    assert stored.status_code == 302
+    with db.session() as s:
+        v = s.scalar(select(DataVersion))
+        import json
+
+        assert json.loads(v.roles_json)["Resin"] == {
+            "role": "factor", "kind": "categorical", "units": None, "low": None, "high": None}
+        assert b"\n1,Birch,150.0,61.5\n" in v.canonical_csv

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -70,6 +71,8 @@ class CheckContext:
     has_square_terms: bool
     model_factor_set: frozenset[int]  # factors appearing in the model
     null: NullDraws | None = None    # simulated M z draws; None above the asymptotic run count
+    # categorical factors by index: their level names (their coded column holds level numbers)
+    levels: Mapping[int, tuple[str, ...]] = field(default_factory=dict)
 
     @property
     def usable(self) -> np.ndarray:

@@ -83,7 +83,9 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
                               "so a curve along it is the centre-point contrast that the "
                               "curvature check already tests; which factor's square causes it "
                               "cannot be separated without axial runs")
-    z = level_indicators(x)
+    categorical = j in ctx.levels
+    # a categorical factor's level numbers have no spacing: only its level indicators apply
+    z = level_indicators(x, max_levels=len(ctx.levels[j])) if categorical else level_indicators(x)
     if z is None:
         xs = x / max(float(np.abs(x).max()), 1e-300)
         z = np.column_stack([xs**2, xs**3])
@@ -94,8 +96,12 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
         na = f"not applicable: the model already fits every level of '{name}' separately"
     return _f_result(cid, FACTOR_Q, FACTOR_M, chart, ctx, added_columns_test(ctx, z),
                      f"No curve or step in the residuals across '{name}'.",
-                     f"Residuals change systematically across '{name}': the model misses a curve "
-                     f"along it; try adding {name}^2 (a square term needs three or more levels).",
+                     (f"Residuals differ between the levels of '{name}': the model misses a "
+                      f"difference between its levels; add '{name}' or its interactions."
+                      if categorical else
+                      f"Residuals change systematically across '{name}': the model misses a "
+                      f"curve along it; try adding {name}^2 (a square term needs three or more "
+                      "levels)."),
                      {"levels": n_levels}, na_reason=na)
 
 

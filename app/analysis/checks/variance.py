@@ -184,7 +184,10 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
     if reason:
         return not_applicable(cid, FACTOR_QUESTION, FACTOR_METHOD, chart, reason)
     usable_runs = ctx.usable
-    labels = spread_groups(ctx.coded[:, j], usable_runs)
+    level_names = ctx.levels.get(j)
+    # a categorical factor's groups are its levels, never bins or sides of a centre
+    labels = (ctx.coded[:, j].astype(np.int64) - 1 if level_names is not None
+              else spread_groups(ctx.coded[:, j], usable_runs))
     counts = np.bincount(labels[usable_runs], minlength=labels.max() + 1)
     usable = usable_runs & (counts[labels] >= MIN_RUNS_PER_LEVEL)
     kept_levels = int(np.sum(counts >= MIN_RUNS_PER_LEVEL))
@@ -211,7 +214,9 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
     sds = {}
     for g in np.unique(lab):
         vals = ctx.coded[usable, j][lab == g]
-        sds[f"{float(np.median(vals)):.6g}"] = float(np.std(r[lab == g], ddof=1))
+        key = (level_names[int(vals[0]) - 1] if level_names is not None
+               else f"{float(np.median(vals)):.6g}")
+        sds[key] = float(np.std(r[lab == g], ddof=1))
     details.update({"df": list(bf.df), "bartlett": bt.statistic, "bartlett_p": bt.pvalue,
                     "bartlett_df": bt.df[0],
                     "levels_used": kept_levels, "sd_by_level_studentized": sds,

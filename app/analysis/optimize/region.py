@@ -358,6 +358,12 @@ def load_fits(results_by_response: dict[str, dict]) -> Fits:
             raise SetpointError(f"Fit given for '{response}' models '{result['response']}'",
                                 field="fits")
         these = result["model"].get("factors") or []
+        categorical = [f["name"] for f in these if f.get("levels") is not None]
+        if categorical:
+            raise SetpointError(
+                "Setpoint search with categorical factors is not available yet: the fit for "
+                f"'{response}' has categorical factor(s) {', '.join(categorical)}; use the "
+                "prediction at each level instead", field="factors")
         if factors is None:
             first_name, factors = response, these
         elif len(these) != len(factors) or not all(
