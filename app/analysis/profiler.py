@@ -57,12 +57,26 @@ def scale_note(result: dict) -> str | None:
             f"mean, of the response at those settings and the intervals are not symmetric.")
 
 
+CATEGORICAL_REGION = ("With categorical factors the design region is the cube of the "
+                      "continuous factors' low and high levels, at every level.")
+
+
+def _categorical(factors: list[dict]) -> list[dict]:
+    return [f for f in factors if f.get("levels") is not None]
+
+
 def _region(result: dict) -> Region:
+    """The design region of the continuous factors (the setpoint search's rule); with
+    categorical factors in the model, their cube at every level."""
+    factors = result["model"]["factors"]
+    if _categorical(factors):
+        continuous = [f for f in factors if f.get("levels") is None]
+        return build_region(continuous, "cube", None, why=CATEGORICAL_REGION)
     fits = load_fits({result.get("response") or "response": result})
     return build_region(fits.factors, fits.kind, fits.radius, why=fits.why)
 
 
-def _settings(raw: Any, factors: list[dict], where: str) -> dict[str, float]:
+def _settings(raw: Any, factors: list[dict], where: str) -> dict[str, float | str]:
     if not isinstance(raw, dict):
         raise PredictionError(f"{where} must be an object of factor name to value.", field=where)
     names = [f["name"] for f in factors]
@@ -70,12 +84,20 @@ def _settings(raw: Any, factors: list[dict], where: str) -> dict[str, float]:
     if unknown:
         raise PredictionError(f"{where}: '{unknown[0]}' is not a factor of this fit (factors: "
                               f"{', '.join(names)}).", field=f"{where}.{unknown[0]}")
-    out = {}
+    out: dict[str, float | str] = {}
     for name in names:
         if name not in raw:
             raise PredictionError(f"{where} needs a value for the factor '{name}'.",
                                   field=f"{where}.{name}")
         value = raw[name]
+        levels = next(f.get("levels") for f in factors if f["name"] == name)
+        if levels is not None:
+            if str(value) not in levels:
+                raise PredictionError(f"{where}: the value for '{name}' must be one of its "
+                                      f"levels ({', '.join(levels)}), not {value!r}.",
+                                      field=f"{where}.{name}")
+            out[name] = str(value)
+            continue
         try:
             number = float(value) if not isinstance(value, bool) else math.nan
         except (TypeError, ValueError):
@@ -87,7 +109,8 @@ def _settings(raw: Any, factors: list[dict], where: str) -> dict[str, float]:
     return out
 
 
-def _point(result: dict, region: Region, settings: dict[str, float], level: float) -> dict:
+def _point(result: dict, region: Region, settings: dict[str, float | str],
+           level: float) -> dict:
     p = predict(result, settings, level=level)
     coded = np.array([p["coded"][n] for n in region.names])
     return {"settings": settings, "predicted": p["predicted"], "ci": p["ci"], "pi": p["pi"],
@@ -133,8 +156,9 @@ def profile(result: dict, settings: dict | None = None, level: float = 0.95,
     level = _level(level)
     factors = result["model"]["factors"]
     region = _region(result)
-    if settings is None:
-        settings = {f.name: float(f.to_actual(0.0)) for f in region.factors}
+    if settings is None:  # the design centre, at each categorical factor's first level
+        settings = {**{f["name"]: f["levels"][0] for f in _categorical(factors)},
+                    **{f.name: float(f.to_actual(0.0)) for f in region.factors}}
     at = _settings(settings, factors, "settings")
     centre = _point(result, region, at, level)
     traces = []
@@ -150,6 +174,12 @@ def profile(result: dict, settings: dict | None = None, level: float = 0.95,
         traces.append({"factor": f.name, "units": f.units,
                        "low": float(f.to_actual(lo)), "high": float(f.to_actual(hi)),
                        "at": at[f.name], "points": rows})
+    # A categorical factor has no line to trace: the prediction at each of its levels.
+    levels = [{"factor": f["name"], "at": at[f["name"]], "points": [
+        {"value": name, **{k: p[k] for k in ("predicted", "ci", "inside_design_region")}}
+        for name in f["levels"]
+        for p in [_point(result, region, {**at, f["name"]: name}, level)]]}
+        for f in _categorical(factors)]
     return {"response": result.get("response"), "level": level, "scale": scale_note(result),
             "region": {"shape": region.kind, "radius": region.radius, "why": region.why},
-            "point": centre, "traces": traces}
+            "point": centre, "traces": traces, "levels": levels}

@@ -17,8 +17,9 @@ from app.workflow import fits, predictions
 bp = Blueprint("api_predictions", __name__, url_prefix="/api/v1")
 
 SETTING = {"type": "object", "minProperties": 1,
-           "additionalProperties": {"type": "number"},
-           "description": "Factor name to its value in natural units, one for every factor"}
+           "additionalProperties": {"type": ["number", "string"]},
+           "description": "Factor name to its value in natural units (a level name for a "
+                          "categorical factor), one for every factor"}
 INTERVAL = {"type": "array", "items": {"type": ["number", "null"]}, "minItems": 2, "maxItems": 2}
 schema("PredictionRequest", {
     "type": "object", "additionalProperties": False, "required": ["settings"],

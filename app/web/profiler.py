@@ -62,15 +62,18 @@ def chart(answer: dict[str, Any]) -> dict[str, Any]:
     return spec
 
 
-def _asked(fit) -> dict[str, str] | None:
+def _asked(fit) -> dict[str, float | str] | None:
     """Settings in the query string; a factor not named stays at the design centre (None when
     none is named)."""
     factors = fits.results_of(fit)["model"]["factors"]
     if not any(f["name"] in request.args for f in factors):
         return None
-    given = {}
+    given: dict[str, float | str] = {}
     for f in factors:
         name, text = f["name"], request.args.get(f["name"], "")
+        if f.get("levels") is not None:  # a level name, checked by the analysis
+            given[name] = text or f["levels"][0]
+            continue
         if not text.strip():
             given[name] = 0.0 if f.get("low") is None else (f["low"] + f["high"]) / 2.0
             continue

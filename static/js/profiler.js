@@ -26,6 +26,15 @@
     cell("ci", fmt(p.ci[0]) + " to " + fmt(p.ci[1]));
     cell("pi", fmt(p.pi[0]) + " to " + fmt(p.pi[1]));
     cell("inside", p.inside_design_region ? "inside" : "outside: the model is extrapolating");
+    (body.levels || []).forEach(function (c) {
+      var table = document.querySelector('table[data-levels="' + CSS.escape(c.factor) + '"]');
+      if (!table) { return; }
+      table.querySelectorAll("tbody tr").forEach(function (tr, i) {
+        var q = c.points[i];
+        tr.children[1].textContent = fmt(q.predicted);
+        tr.children[2].textContent = fmt(q.ci[0]) + " to " + fmt(q.ci[1]);
+      });
+    });
     state.answered += 1;
     var answered = String(state.answered);
     form.dataset.answered = answered;
@@ -69,6 +78,9 @@
     box.addEventListener("input", function () {
       if (box.value !== "" && !isNaN(Number(box.value))) { slider.value = box.value; soon(); }
     });
+  });
+  form.querySelectorAll("select[data-level]").forEach(function (select) {
+    select.addEventListener("change", ask);
   });
   form.addEventListener("submit", function (event) { event.preventDefault(); ask(); });
 

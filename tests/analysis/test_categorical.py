@@ -202,3 +202,29 @@ def test_setpoint_search_refuses_categorical_factors_clearly():
         single_goal(doc, "maximize")
     with pytest.raises(SetpointError, match="categorical factors is not available yet"):
         propose({"y": doc}, {"y": {"goal": "maximize"}})
+
+
+def test_predictions_and_profiler_with_a_categorical_factor():
+    """predict_many takes level names (checked against statsmodels' get_prediction); the
+    profiler traces the continuous factor and lists every level of the categorical one."""
+    from app.analysis.profiler import PredictionError, predict_many, profile
+
+    frame = _frame()
+    doc = analyse(frame, _spec()).to_dict()
+    ref, _ = _statsmodels(frame)
+    got = predict_many(doc, [{"Supplier": "Cedar", "Temp": 155.0},
+                             {"Supplier": "Birch", "Temp": 190.0}])["predictions"]
+    expected = ref.get_prediction(pd.DataFrame({"Supplier": ["Cedar"], "xc": [-0.5]})
+                                  ).summary_frame(alpha=0.05)
+    assert_allclose(got[0]["predicted"], expected["mean"].iloc[0], rtol=1e-10)
+    assert [p["inside_design_region"] for p in got] == [True, False]
+    with pytest.raises(PredictionError, match="one of its levels") as bad:
+        predict_many(doc, [{"Supplier": "Oak", "Temp": 160.0}])
+    assert bad.value.field == "settings[0].Supplier"
+    shown = profile(doc, {"Supplier": "Alder", "Temp": 165.0}, points=5)
+    assert [t["factor"] for t in shown["traces"]] == ["Temp"]
+    (levels,) = shown["levels"]
+    assert [p["value"] for p in levels["points"]] == list(LEVELS)
+    at_alder = next(p for p in levels["points"] if p["value"] == "Alder")
+    assert_allclose(at_alder["predicted"], shown["point"]["predicted"], rtol=1e-12)
+    assert profile(doc)["point"]["settings"] == {"Supplier": "Birch", "Temp": 160.0}
