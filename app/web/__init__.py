@@ -60,6 +60,7 @@ def register(app: Flask) -> None:
         account,
         admin,
         api,
+        api_reports,
         api_reviews,
         api_runs,
         api_setpoints,
@@ -68,6 +69,7 @@ def register(app: Flask) -> None:
         data,
         fits,
         history,
+        reports,
         reviews,
         setpoints,
         studies,
@@ -82,7 +84,7 @@ def register(app: Flask) -> None:
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
-                   setpoints, api_setpoints, api_teams, api_runs):
+                   setpoints, api_setpoints, api_teams, api_runs, reports, api_reports):
         app.register_blueprint(module.bp)
     from app.analysis.rounding import round_to
 

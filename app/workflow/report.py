@@ -184,6 +184,6 @@ def study_reports(session: Session, study: Study, *,
     for proposal in session.scalars(select(SetpointProposal)
                                     .where(SetpointProposal.study_id == study.id)
                                     .order_by(SetpointProposal.id)):
-        out[f"setpoints/{proposal.id}/sheet.pdf"] = setpoint_sheet(
+        out[f"setpoints/{proposal.id}/report.pdf"] = setpoint_sheet(
             session, proposal, software_version=software_version)
     return out

@@ -8,4 +8,6 @@ POLICY = {
     "fits.results_json": "signed-in",
     "fits.record_json": "signed-in",
     "fits.compare": "signed-in",
+    "reports.fit_pdf": "signed-in",
+    "api_reports.fit_pdf": "signed-in",
 }
