@@ -10,12 +10,13 @@ import pytest
 
 from app.analysis.optimize import CAUTION
 from app.web.openapi import API_PREFIX
-from app.workflow import reviews
+from app.workflow import fits, reviews
 from app.workflow.package import verify_package
 from tests.conftest import Actions
 from tests.web.test_api import bearer, service_token
+from tests.web.test_fits_scale import big_version  # noqa: F401  (a fixture)
 from tests.workflow import helpers as h
-from tests.workflow.test_report import pages_text
+from tests.workflow.test_report import charts_of, keep, pages_text
 from tests.workflow.test_setpoints import GOALS, propose, release
 
 
@@ -109,3 +110,20 @@ def test_record_package_holds_the_reports_and_verifies(app, signed):
             zf.writestr(name, body)
     problems = verify_package(buffer.getvalue()).problems
     assert f"fits/{signed['fit']}/report.pdf does not match its SHA-256 in the manifest" in problems
+
+
+def test_report_of_a_large_fit_draws_the_binned_charts(app, db, big_version):  # noqa: F811
+    fit_id = h.make_fit(db, big_version, model="interaction", response="Yield",
+                        exclusions={7: "sensor dropout"})
+    response = _login(app, "erin").client.get(f"/fits/{fit_id}/report.pdf")
+    keep("large-fit.pdf", response.data)
+    pages = _pdf(response)
+    assert len(pages) <= 40
+    whole = " ".join(pages)
+    assert "sensor dropout" in whole
+    assert "bins" in whole  # the binned charts' notes, as on the page
+    with db.session() as s:
+        charts = charts_of(fits.get_fit(s, fit_id))
+    assert sum("bins" in c.spec.get("datasets", {}) for c in charts) >= 8
+    for chart in charts:
+        assert chart.title in whole, chart.title
