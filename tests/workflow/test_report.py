@@ -7,18 +7,21 @@ look at (``pdftoppm -r 60 -png file.pdf dir/p``).
 from __future__ import annotations
 
 import io
+import json
 import os
 import re
 from pathlib import Path
 
 import pytest
 from pypdf import PdfReader
+from sqlalchemy import text as sql
 
 from app.analysis.optimize import CAUTION
 from app.store import audit
 from app.web.charts import all_charts
 from app.workflow import fits, reviews, setpoints
 from app.workflow.report import fit_report, setpoint_sheet, url_fetcher, utc_text
+from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow import helpers as h
 from tests.workflow.test_setpoints import GOALS, propose, release
 
@@ -106,6 +109,18 @@ def test_fit_report_says_when_a_signature_no_longer_applies(db, signed_fit):
     h.add_version(db, study_id, reason="Two runs re-measured")
     whole = " ".join(pages_text(render_fit(db, fit_id)))
     assert "not applying data version 2 is newer than the signed version 1" in whole
+
+
+def test_fit_report_shows_a_snapshot_altered_behind_the_services_back(db, signed_fit):
+    _study, fit_id = signed_fit
+    with db.transaction() as s:
+        drop_signed_row_triggers(s)
+        s.execute(sql("UPDATE fits SET thresholds_json = :t WHERE id = :i"),
+                  {"t": json.dumps({"review": 0.2, "fail": 0.01}), "i": fit_id})
+    whole = " ".join(pages_text(render_fit(db, fit_id)))
+    assert "This snapshot no longer matches its recorded SHA-256." in whole
+    assert "does NOT match its recorded hash" in whole
+    assert "invalid" in whole and "valid the signed snapshot is unchanged" not in whole
 
 
 def test_draft_fit_report_says_it_is_not_signed(db, users):
