@@ -44,6 +44,7 @@ PDF = "application/pdf"
 # Rendering a chart costs far more than the rest of a page; the same spec gives the same SVG.
 _SVG_CACHE = ByteCache(32 * MB)
 STYLESHEET = STATIC / "css" / "report.css"
+REPORT_FONT = "DejaVu Sans"  # static/css/report.css sets the same; CI installs fonts-dejavu-core
 
 
 class ChartLike(Protocol):
@@ -69,7 +70,13 @@ def utc_text(moment: datetime | str | None) -> str:
 
 
 def chart_svg(spec: dict[str, Any]) -> str:
-    """The SVG of a Vega-Lite spec, kept by the spec's SHA-256."""
+    """The SVG of a Vega-Lite spec, kept by the spec's SHA-256.
+
+    Text is set in the report's own font: vl-convert measures labels with the font the spec
+    names and WeasyPrint draws them with the one fontconfig finds, so a generic "sans-serif"
+    could be measured narrow and drawn wide, and a legend title run off the chart's edge.
+    """
+    spec = {**spec, "config": {**spec.get("config", {}), "font": REPORT_FONT}}
     text = json.dumps(spec, sort_keys=True, default=str)
     key = ("svg", hashlib.sha256(text.encode()).hexdigest())
     found = _SVG_CACHE.get(key)
