@@ -61,6 +61,7 @@ def register(app: Flask) -> None:
         admin,
         api,
         api_predictions,
+        api_reports,
         api_reviews,
         api_runs,
         api_setpoints,
@@ -70,6 +71,7 @@ def register(app: Flask) -> None:
         fits,
         history,
         profiler,
+        reports,
         reviews,
         setpoints,
         studies,
@@ -85,7 +87,7 @@ def register(app: Flask) -> None:
     app.jinja_env.globals["csrf_token"] = csrf_token
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
                    setpoints, api_setpoints, api_teams, api_runs, api_predictions,
-                   profiler):
+                   profiler, reports, api_reports):
         app.register_blueprint(module.bp)
     from app.analysis.rounding import round_to
 

@@ -13,6 +13,7 @@ from app.store.db import get_session
 from app.store.models import Study
 from app.web.access import allow
 from app.web.common import attachment
+from app.web.reports import study_reports
 from app.workflow import fits, studies
 from app.workflow import history as trail
 from app.workflow.compare import reproduce as rerun
@@ -82,5 +83,6 @@ def reproduce(fit_id: int):
 def package(study_id: int):
     session = get_session()
     record = studies.get_study(session, study_id)
-    data = build_package(session, record, current_app.config.get("SOFTWARE_VERSION", ""))
+    data = build_package(session, record, current_app.config.get("SOFTWARE_VERSION", ""),
+                         reports=study_reports(session, record))
     return attachment(data, f"study-{study_id}-record-package.zip", "application/zip")

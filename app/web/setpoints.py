@@ -60,26 +60,7 @@ def setpoint_proposals(study_id: int) -> list:
 bp.add_app_template_global(setpoint_signoff.state_label, "setpoint_state_label")
 
 
-@bp.app_template_global("goal_words")
-def goal_words(goal: dict[str, Any]) -> str:
-    """A stored goal in a few words (proposals stored before the goals were renamed keep
-    ``low``/``high`` and ``in_range``)."""
-    kind = goal.get("goal")
-    lower = goal.get("lower", goal.get("low"))
-    upper = goal.get("upper", goal.get("high"))
-
-    def num(v):
-        return "—" if v is None else f"{v:.6g}"
-
-    if kind == "maximize":
-        return f"as high as possible (acceptable from {num(lower)}, fully from {num(upper)})"
-    if kind == "minimize":
-        return f"as low as possible (fully at {num(lower)}, acceptable up to {num(upper)})"
-    if kind == "target":
-        return (f"hit {num(goal.get('target'))} (acceptable {num(lower)} to {num(upper)})")
-    if kind in ("within", "in_range"):
-        return f"kept within {num(lower)} to {num(upper)}"
-    return str(kind)
+bp.add_app_template_global(setpoint_export.goal_words, "goal_words")
 
 
 # ---- proposing -------------------------------------------------------------------------------

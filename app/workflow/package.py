@@ -35,6 +35,7 @@ import math
 import re
 import unicodedata
 import zipfile
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -86,6 +87,8 @@ fits/<id>/runs.bin     the fit's per-run table (format plumbline-runs/1, describ
                        app/analysis/runstore.py), whose SHA-256 the snapshot names
 fits/<id>/fit.json     state and who made and submitted it
 fits/<id>/signatures.json  signer, printed name, UTC time, meaning, comment, signed hash
+fits/<id>/report.pdf   the fit report as printed when the package was made (checks with their
+                       charts, exclusions, signatures with their validity then, chain head)
 setpoints/<id>/snapshot.json  the exact document whose SHA-256 the release signature signed:
                        the fits (ids and snapshot hashes), goals, bounds, fixed factors, result
 setpoints/<id>/setpoint.json  state, who proposed it, the fits it uses, the settings with their
@@ -97,6 +100,7 @@ setpoints/<id>/confirmations/<run>/  confirmation.json (the rule, observed value
                        verdict, each run against the single-run PI) and original/ (the upload)
 setpoints/<id>/confirmations.csv  the confirmation verdicts for spreadsheets (text cells that
                        a spreadsheet would run as a formula begin with an apostrophe)
+setpoints/<id>/report.pdf  the setpoint sheet as printed when the package was made
 .../original/<name>    every upload byte for byte under its own name (its SHA-256 is the
                        recorded one): a CSV there is as uploaded, so open it in a text editor
                        and use the spreadsheet copies above in a spreadsheet
@@ -146,8 +150,11 @@ def _unsafe_path(name: str) -> bool:
             or any(unicodedata.category(c) == "Cc" for c in name))
 
 
-def build_package(session: Session, study: Study, software_version: str) -> bytes:
-    """The study's record package as ZIP bytes."""
+def build_package(session: Session, study: Study, software_version: str,
+                  reports: Mapping[str, bytes] | None = None) -> bytes:
+    """The study's record package as ZIP bytes; ``reports`` are the PDF reports to add, by
+    their path (:func:`app.workflow.report.study_reports`), hashed in the manifest like every
+    other file."""
     files: dict[str, bytes] = {"README.txt": README.encode()}
     files["study.json"] = _json_bytes({
         "id": study.id, "title": study.title, "purpose": study.purpose,
@@ -189,6 +196,7 @@ def build_package(session: Session, study: Study, software_version: str) -> byte
     files["audit/study_events.json"] = _json_bytes(
         [e["seq"] for e in events if e["study_id"] == study.id])
     files["audit/chain_head.json"] = _json_bytes(head)
+    files.update(reports or {})
     manifest = {"format": FORMAT, "format_version": FORMAT_VERSION, "study_id": study.id,
                 "created_at": utcnow().isoformat(), "software_version": software_version,
                 "chain_head": head, "setpoints": listed_setpoints,

@@ -46,6 +46,27 @@ def units_of(fits: list) -> dict[str, str | None]:
     return {f["name"]: f.get("units") for f in fit_results_of(fits[0])["model"]["factors"]}
 
 
+def goal_words(goal: dict[str, Any]) -> str:
+    """A stored goal in a few words (proposals stored before the goals were renamed keep
+    ``low``/``high`` and ``in_range``)."""
+    kind = goal.get("goal")
+    lower = goal.get("lower", goal.get("low"))
+    upper = goal.get("upper", goal.get("high"))
+
+    def num(v):
+        return "—" if v is None else f"{v:.6g}"
+
+    if kind == "maximize":
+        return f"as high as possible (acceptable from {num(lower)}, fully from {num(upper)})"
+    if kind == "minimize":
+        return f"as low as possible (fully at {num(lower)}, acceptable up to {num(upper)})"
+    if kind == "target":
+        return (f"hit {num(goal.get('target'))} (acceptable {num(lower)} to {num(upper)})")
+    if kind in ("within", "in_range"):
+        return f"kept within {num(lower)} to {num(upper)}"
+    return str(kind)
+
+
 def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
     """The setpoint sheet as one JSON-able document."""
     result = result_of(proposal)

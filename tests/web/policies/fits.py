@@ -10,4 +10,6 @@ POLICY = {
     "fits.compare": "signed-in",
     "profiler.page": "signed-in",
     "profiler.numbers": "signed-in",
+    "reports.fit_pdf": "signed-in",
+    "api_reports.fit_pdf": "signed-in",
 }

@@ -17,4 +17,6 @@ POLICY = {
     "api_setpoints.release": {"approver"},
     "api_setpoints.confirmations_upload": {"engineer"},
     "api_setpoints.export": "signed-in",
+    "reports.setpoint_pdf": "signed-in",
+    "api_reports.setpoint_pdf": "signed-in",
 }
