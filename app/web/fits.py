@@ -293,7 +293,7 @@ def _render_view(fit_id: int) -> str:
     query = {} if pair is None else {"x": pair[0], "y": pair[1]}
     context = dict(fit=fit, results=results, study=fit.study, version=fit.data_version,
                    charts=built, chart_names=names, pair=pair or (None, None),
-                   runs=run_table(fits.runs_of(fit)),
+                   runs=run_table(fits.runs_of(fit)), aliases=fits.aliases_of(fit, results),
                    charts_url=url_for("fits.charts_json", fit_id=fit.id, **query))
     return render_template(
         "fits/view.html", body=_snapshot_body(context), intact=fits.snapshot_intact(fit),

@@ -14,6 +14,7 @@ from sqlalchemy import bindparam, select
 from sqlalchemy.orm import Session
 
 from app.analysis import AnalysisError, FitSpec, Thresholds, analyse, runstore
+from app.analysis.aliases import alias_structure
 from app.analysis.boxcox import LAMBDA_RANGE
 from app.caches import MB, ByteCache
 from app.store import audit
@@ -199,6 +200,17 @@ def checked_rows(session: Session, fit_id: int) -> list[tuple] | None:
     versions = session.execute(_STUDY_VERSIONS, {"study_id": fit.study_id}).all()
     signatures = session.execute(_FIT_SIGNATURES, {"fit_id": fit_id}).all()
     return [tuple(fit), *map(tuple, versions), *map(tuple, signatures)]
+
+
+def aliases_of(fit: Fit, results: dict[str, Any]) -> dict[str, Any] | None:
+    """The alias structure of a regular two-level fraction (app.analysis.aliases), read from
+    the coded settings of every run (left-out runs included: they were planned), else None."""
+    if (results.get("design") or {}).get("kind") != "two_level_fractional_factorial":
+        return None
+    cols = runs_of(fit)
+    coded = np.column_stack([cols.coded[f] for f in cols.factors])
+    cube = coded[np.all(np.abs(np.abs(coded) - 1.0) < 1e-4, axis=1)]
+    return alias_structure(cube, cols.factors)
 
 
 def results_of(fit: Fit) -> dict[str, Any]:

@@ -257,3 +257,7 @@ def test_saturated_two_level_fit_shows_the_half_normal_plot(actions, db, users):
     # No residual degrees of freedom: the residual charts are not drawn, the checks say why.
     assert 'data-chart="normal_probability"' not in page
     assert "the model is saturated" in page
+    # A 2^(5-1) fraction: its generator and which effects share a column (each two-factor
+    # interaction with one three-factor interaction, e.g. AB = CDE; Box, Hunter & Hunter ch. 6).
+    assert 'id="aliases"' in page and "2^(5-1) fraction in 16 distinct runs, resolution 5" in page
+    assert re.search(r"<td>[^<:]+:[^<:]+</td><td>[^<:]+:[^<:]+:[^<:]+</td>", page)
