@@ -13,6 +13,7 @@ from sqlalchemy import update
 from app.store.base import utcnow
 from app.store.db import WRITE_METHODS, database, get_session
 from app.store.models import User, UserSession
+from app.web import freshness
 from app.workflow import NotFound, accounts, teams
 
 F = TypeVar("F", bound=Callable)
@@ -117,8 +118,9 @@ def _load_user() -> None:
         with db.session(write=False) as s:
             found = accounts.session_user(s, token, idle=idle, max_age=max_age, now=now)
     else:
-        # A read: the request's own read session, one connection for the whole request.
-        found = accounts.session_user(get_session(), token, idle=idle, max_age=max_age, now=now)
+        # A read: the request's own read session, one connection for the whole request; the
+        # user remembered from an earlier read while nothing stored has changed.
+        found = _read_session_user(token, idle=idle, max_age=max_age, now=now)
     if found is None:
         session.pop("sid", None)
         return
@@ -128,6 +130,23 @@ def _load_user() -> None:
         with db.transaction() as s:
             s.execute(update(UserSession).where(UserSession.id == row.id)
                       .values(last_seen_at=now))
+        freshness.touched(accounts.sha256_hex(token), now)
+
+
+def _read_session_user(token: str, *, idle: timedelta, max_age: timedelta, now):
+    """accounts.session_user for a read request, through app.web.freshness: the same limits
+    (revoked, inactive, idle, too old) judged on every request."""
+    key = accounts.sha256_hex(token)
+    recalled = freshness.recall_user(key)
+    if recalled is not None:
+        user, row = recalled
+        if (row.revoked_at is None and user.active and now - row.last_seen_at <= idle
+                and now - row.created_at <= max_age):
+            return user, row
+    found = accounts.session_user(get_session(), token, idle=idle, max_age=max_age, now=now)
+    if found is not None:
+        freshness.remember_user(key, *found)
+    return found
 
 
 def enforce_access():
@@ -186,7 +205,8 @@ def check_team() -> None:
         return
     if not _writes():
         for kind, object_id in named:
-            if not teams.may_read(get_session(), g.user, kind, object_id):
+            if not freshness.readable(g.user, kind, object_id, lambda k=kind, i=object_id:
+                                      teams.may_read(get_session(), g.user, k, i)):
                 teams.LOOKUPS[kind](get_session(), g.user, object_id)  # its own 404
         return
     # A write: not the request's session, which would take the write lock now.

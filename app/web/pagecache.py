@@ -19,12 +19,10 @@ import hashlib
 from collections.abc import Callable, Iterable
 
 from flask import current_app, g, request, session
-from sqlalchemy import select
 
 from app.caches import ByteCache
-from app.store.db import get_session
-from app.store.models import ChainHead
 from app.web.access import csrf_token
+from app.web.freshness import chain_position
 
 
 class PageCache(ByteCache):
@@ -44,18 +42,6 @@ def _cache() -> PageCache | None:
         cache = app.extensions.setdefault("plumbline.page_cache",
                                           PageCache(int(megabytes * 1024 * 1024)))
     return cache
-
-
-_HEAD = ChainHead.__table__
-_CHAIN_HEAD = select(_HEAD.c.seq, _HEAD.c.hash).where(_HEAD.c.id == 1)
-
-
-def chain_position() -> tuple[int, str]:
-    """The audit chain head (sequence number and hash): the number advances with every stored
-    change, and the hash changes too when events are rewritten behind the services' back (the
-    fit page's signature checks replay the fit's events)."""
-    row = get_session().execute(_CHAIN_HEAD).first()
-    return (0, "") if row is None else (row[0], row[1])
 
 
 def rows_digest(rows: Iterable[Iterable]) -> str:
