@@ -287,6 +287,8 @@ def restore_command(file: Path, yes: bool) -> None:
 
 from app.cli_audit import audit_group  # noqa: E402  (registered after the groups above)
 from app.cli_check import check_command  # noqa: E402
+from app.cli_plan import plan_command  # noqa: E402
 
 main.add_command(check_command, "check")
 main.add_command(audit_group, "audit")
+main.add_command(plan_command, "plan")

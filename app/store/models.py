@@ -169,6 +169,43 @@ class DataVersion(Base):
     created_by: Mapped[User] = relationship()
 
 
+class Plan(Base):
+    """A planned experiment: the request, the built design with its randomised run order (and
+    the seed that made it), its evaluation, and their SHA-256, sealed like a fit snapshot.
+    Never changed: triggers (migration 0009) refuse UPDATE and DELETE."""
+
+    __tablename__ = "plans"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    study_id: Mapped[int] = mapped_column(ForeignKey("studies.id"), index=True)
+    design: Mapped[str] = mapped_column(String(32))
+    request_json: Mapped[str] = mapped_column(Text)
+    plan_json: Mapped[str] = mapped_column(Text)
+    evaluation_json: Mapped[str] = mapped_column(Text)
+    sha256: Mapped[str] = mapped_column(String(64))
+    key_id: Mapped[str | None] = mapped_column(String(16))
+    seal: Mapped[str | None] = mapped_column(String(64))
+    created_by_id: Mapped[int] = mapped_column(ForeignKey("users.id"))
+    created_at: Mapped[datetime] = mapped_column(UTCDateTime, default=utcnow)
+
+    study: Mapped[Study] = relationship()
+    created_by: Mapped[User] = relationship()
+
+
+class PlanUpload(Base):
+    """A data version uploaded against a plan, with the tolerance its settings were compared
+    with (natural units per factor). Never changed (migration 0009)."""
+
+    __tablename__ = "plan_uploads"
+
+    data_version_id: Mapped[int] = mapped_column(ForeignKey("data_versions.id"),
+                                                 primary_key=True)
+    plan_id: Mapped[int] = mapped_column(ForeignKey("plans.id"), index=True)
+    tolerance_json: Mapped[str] = mapped_column(Text)
+
+    plan: Mapped[Plan] = relationship()
+
+
 FIT_STATES = ("draft", "submitted", "approved", "returned", "superseded", "withdrawn")
 
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import json
+
 from flask import Flask, g, jsonify, render_template, request
 from werkzeug.exceptions import HTTPException
 
@@ -60,6 +62,7 @@ def register(app: Flask) -> None:
         account,
         admin,
         api,
+        api_plans,
         api_predictions,
         api_reports,
         api_reviews,
@@ -70,6 +73,7 @@ def register(app: Flask) -> None:
         data,
         fits,
         history,
+        plans,
         profiler,
         reports,
         reviews,
@@ -85,9 +89,10 @@ def register(app: Flask) -> None:
     app.register_error_handler(HTTPException, _error)
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
+    app.jinja_env.filters["fromjson"] = json.loads
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
                    setpoints, api_setpoints, api_teams, api_runs, api_predictions,
-                   profiler, reports, api_reports):
+                   profiler, reports, api_reports, api_plans, plans):
         app.register_blueprint(module.bp)
     from app.analysis.rounding import round_to
 

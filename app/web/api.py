@@ -24,7 +24,7 @@ from app.web import api_runs
 from app.web.access import SIGNED_IN, allow
 from app.web.common import me, read_session, tx
 from app.web.openapi import build_document, check, document, json_body, ref, schema
-from app.workflow import WorkflowError, fits, reviews, studies, teams, uploads
+from app.workflow import WorkflowError, fits, plans, reviews, studies, teams, uploads
 
 bp = Blueprint("api", __name__, url_prefix="/api/v1")
 
@@ -69,12 +69,20 @@ schema("ColumnRole", {
 ROLES_SCHEMA = {"type": "object", "additionalProperties": ref("ColumnRole"),
                 "description": "Column name to its role; columns not named are ignored."}
 schema("DataUpload", {
-    "type": "object", "required": ["file", "roles"],
+    "type": "object", "required": ["file"],
     "properties": {
         "file": {"type": "string", "contentMediaType": "application/octet-stream",
                  "description": "The CSV or XLSX file"},
         "roles": {"type": "string", "contentMediaType": "application/json",
-                  "description": "JSON: " + ROLES_SCHEMA["description"]},
+                  "description": "JSON: " + ROLES_SCHEMA["description"] + " Required unless "
+                                 "plan_id is given (the roles then come from the plan)."},
+        "plan_id": {"type": "string", "pattern": "^[0-9]+$",
+                    "description": "The plan these runs were made from: each setting is "
+                                   "compared with the planned one"},
+        "tolerance": {"type": "string", "contentMediaType": "application/json",
+                      "description": "JSON: factor name to the deviation allowed from its "
+                                     "planned setting, in natural units (1 % of the factor's "
+                                     "range where not given)"},
         "sheet": {"type": "string", "description": "XLSX sheet (the first when omitted)"},
         "reason": {"type": "string",
                    "description": "Required when the study already has a data version"},
@@ -102,7 +110,12 @@ schema("DataVersion", {
     "type": "object", "required": list(DATA_PROPERTIES),
     "properties": {**DATA_PROPERTIES, "fits": {
         "type": "array", "items": ref("FitSummary"),
-        "description": "Fits made from this version (GET /data/{version_id} only)"}},
+        "description": "Fits made from this version (GET /data/{version_id} only)"},
+        "plan_deviations": {
+            "type": ["object", "null"],
+            "description": "For a version run from a plan: how rows were matched, the "
+                           "tolerance, every setting beyond it, missing planned runs and "
+                           "unplanned extra runs (GET /data/{version_id} and the upload)"}},
 })
 schema("StudyDetail", {"allOf": [ref("Study"), {
     "type": "object", "required": ["data_versions", "fits"],
@@ -324,7 +337,9 @@ def upload_data(study_id: int):
         studies.get_study(s, study_id)
     if file is None or not file.filename:
         raise WorkflowError("Field 'file' is required: the CSV or XLSX file.", field="file")
-    roles = _roles_field(form.get("roles"))
+    plan, tolerance = _plan_fields(form, study_id)
+    roles = (_roles_field(form.get("roles")) if plan is None or form.get("roles")
+             else lambda columns: plans.roles_from_plan(plan, columns))
     data = file.read()
     try:
         raw, table = uploads.parse_upload(data, file.filename, roles,
@@ -334,11 +349,41 @@ def upload_data(study_id: int):
     except IngestError as exc:
         return _refused_upload(exc, 400)
     with tx() as s:
-        version = uploads.add_data_version(s, me(s), studies.get_study(s, study_id), data=data,
-                                           filename=file.filename, raw=raw, table=table,
-                                           reason=form.get("reason"))
-        out = _data_version(version)
+        version = uploads.add_data_version(
+            s, me(s), studies.get_study(s, study_id), data=data, filename=file.filename,
+            raw=raw, table=table, reason=form.get("reason"),
+            plan=None if plan is None else plans.get_plan(s, plan.id), plan_tolerance=tolerance)
+        out = {**_data_version(version),
+               "plan_deviations": plans.deviations(s, version, table)}
     return _created(out, url_for("api.get_data", version_id=version.id))
+
+
+def _plan_fields(form, study_id: int):
+    """The upload's ``plan_id`` (a plan of this study) and ``tolerance`` (JSON: factor name to
+    natural units) fields; (None, None) without a plan."""
+    text = (form.get("plan_id") or "").strip()
+    if not text:
+        if form.get("tolerance"):
+            raise WorkflowError("Field 'tolerance' needs a 'plan_id'.", field="tolerance")
+        return None, None
+    if not text.isdigit():
+        raise WorkflowError(f"Field 'plan_id' must be a plan's id (got '{text}').",
+                            field="plan_id")
+    with database().session(write=False) as s:
+        plan = teams.plan_for(s, g.user, int(text))
+    if plan.study_id != study_id:
+        raise WorkflowError(f"Plan {plan.id} belongs to another study.", field="plan_id")
+    tolerance = None
+    if form.get("tolerance"):
+        try:
+            tolerance = json.loads(form["tolerance"])
+        except ValueError as exc:
+            raise WorkflowError(f"Field 'tolerance' is not valid JSON: {exc}.",
+                                field="tolerance") from None
+        if not isinstance(tolerance, dict):
+            raise WorkflowError("Field 'tolerance' must map factor names to numbers.",
+                                field="tolerance")
+    return plan, tolerance
 
 
 @bp.route("/data/<int:version_id>")
@@ -349,7 +394,8 @@ def get_data(version_id: int):
     session = get_session()
     version = uploads.get_data_version(session, version_id)
     made = fits.fits_of_version(session, version.id)
-    return jsonify({**_data_version(version), "fits": [_fit_summary(f) for f in made]})
+    return jsonify({**_data_version(version), "fits": [_fit_summary(f) for f in made],
+                    "plan_deviations": plans.deviations(session, version)})
 
 
 def _fit_choices(body: dict[str, Any]) -> dict[str, Any]:

@@ -31,7 +31,7 @@ from app.store.models import DataVersion
 from app.web import staging
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, tx
-from app.workflow import WorkflowError, fits, studies, uploads
+from app.workflow import WorkflowError, fits, plans, studies, uploads
 from app.workflow.csvsafe import safe_csv
 
 bp = Blueprint("data", __name__)
@@ -66,7 +66,9 @@ def _has_versions(study_id: int) -> bool:
 def upload_form(study_id: int):
     study = studies.get_study(get_session(), study_id)
     return render_template("data/upload.html", study=study, problems=[],
-                           needs_reason=_has_versions(study_id))
+                           needs_reason=_has_versions(study_id),
+                           plans=plans.plans_of_study(get_session(), study_id),
+                           chosen=request.args.get("plan", ""))
 
 
 @bp.route("/studies/<int:study_id>/upload", methods=["POST"])
@@ -91,7 +93,19 @@ def upload(study_id: int):
             problems=[p.to_dict() for p in exc.problems]), 400
     token = staging.stage(data, file.filename, g.user.id, study_id)
     return redirect(url_for("data.preview", study_id=study_id, token=token,
-                            sheet=raw.sheet or None))
+                            sheet=raw.sheet or None,
+                            plan=request.form.get("plan_id") or None))
+
+
+def _chosen_plan(study_id: int, text: str | None):
+    """The plan an upload names (one of this study's), or None."""
+    text = (text or "").strip()
+    if not text:
+        return None
+    plan = plans.get_plan(get_session(), int(text)) if text.isdigit() else None
+    if plan is None or plan.study_id != study_id:
+        raise WorkflowError(f"Plan {text} is not a plan of this study.", field="plan_id")
+    return plan
 
 
 def _staged_raw(study_id: int, token: str, sheet: str | None):
@@ -103,11 +117,17 @@ def _staged_raw(study_id: int, token: str, sheet: str | None):
 
 
 def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | None, problems,
-                  status=200):
-    """The preview: roles to confirm (the suggested ones when ``roles`` is None), a summary of
-    every column and the first ``PREVIEW_ROWS`` rows."""
+                  status=200, plan=None):
+    """The preview: roles to confirm (the suggested ones when ``roles`` is None, the plan's
+    when the upload names one), a summary of every column and the first ``PREVIEW_ROWS``
+    rows."""
     head = raw.frame.head(PREVIEW_ROWS)
     suggested = suggest_roles(raw)
+    if roles is None and plan is not None:
+        try:
+            roles = plans.roles_from_plan(plan, [str(c) for c in raw.frame.columns])
+        except WorkflowError as exc:
+            problems = [*problems, {"message": exc.message, "column": exc.field}]
     roles = suggested if roles is None else roles
     summary = [(summarize_column(raw, c), role_choice(suggested[c])) for c in raw.frame.columns]
     return render_template(
@@ -116,7 +136,7 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
         n_shown=len(head), summary=summary,
         role_choices=ROLE_CHOICES, role_words=ROLE_WORDS, role_choice=role_choice,
         problems=problems, needs_reason=_has_versions(study.id),
-        reason=request.form.get("reason", "")), status
+        reason=request.form.get("reason", ""), plan=plan), status
 
 
 @bp.route("/studies/<int:study_id>/upload/<token>", methods=["GET"])
@@ -129,7 +149,11 @@ def preview(study_id: int, token: str):
         return render_template(
             "data/upload.html", study=study, needs_reason=_has_versions(study_id),
             problems=[p.to_dict() for p in exc.problems]), 400
-    return _preview_page(study, staged, raw, None, [])
+    try:
+        plan = _chosen_plan(study_id, request.args.get("plan"))
+    except WorkflowError as exc:
+        return _preview_page(study, staged, raw, None, [{"message": exc.message}], 400)
+    return _preview_page(study, staged, raw, None, [], plan=plan)
 
 
 def roles_from_form(form, columns: list[str]) -> dict[str, ColumnRole]:
@@ -175,10 +199,13 @@ def confirm(study_id: int, token: str):
     staged, raw = _staged_raw(study_id, token, sheet)
     columns = list(raw.frame.columns)
     try:
+        plan = _chosen_plan(study_id, request.form.get("plan_id"))
         roles = roles_from_form(request.form, columns)
+    except WorkflowError as exc:
+        return _preview_page(study, staged, raw, None, [{"message": exc.message}], 400)
     except IngestError as exc:
         return _preview_page(study, staged, raw, None,
-                             [p.to_dict() for p in exc.problems], 400)
+                             [p.to_dict() for p in exc.problems], 400, plan=plan)
     try:
         from app.ingest import validate
 
@@ -187,12 +214,15 @@ def confirm(study_id: int, token: str):
             version = uploads.add_data_version(
                 s, me(s), studies.get_study(s, study_id), data=staged.data,
                 filename=staged.filename, raw=raw, table=table,
-                reason=request.form.get("reason"))
+                reason=request.form.get("reason"),
+                plan=None if plan is None else plans.get_plan(s, plan.id))
     except IngestError as exc:
-        return _preview_page(study, staged, raw, roles, [p.to_dict() for p in exc.problems], 400)
+        return _preview_page(study, staged, raw, roles, [p.to_dict() for p in exc.problems], 400,
+                             plan=plan)
     except WorkflowError as exc:
         return _preview_page(study, staged, raw, roles, [{"message": exc.message,
-                                                          "column": exc.field}], exc.status)
+                                                          "column": exc.field}], exc.status,
+                             plan=plan)
     staging.discard(token)
     flash(f"Data version {version.version} stored ({version.n_rows} runs).")
     return redirect(url_for("data.view", version_id=version.id))
@@ -206,6 +236,7 @@ def view(version_id: int):
     table = uploads.design_table(version)
     version_fits = fits.fits_of_version(session, version.id)
     return render_template("data/view.html", version=version, study=version.study, table=table,
+                           against=plans.deviations(session, version, table),
                            roles=json.loads(version.roles_json), fits=version_fits,
                            read_info=json.loads(version.read_info_json),
                            fit_url=url_for("fits.builder", version_id=version.id))

@@ -12,7 +12,7 @@ from app.store import audit
 from app.store.db import get_session
 from app.web.access import allow
 from app.web.common import me, read_session, tx
-from app.workflow import WorkflowError, fits, reviews, signing, teams
+from app.workflow import WorkflowError, fits, plans, reviews, signing, teams
 from app.workflow.compare import differences
 from app.workflow.history import events_of_fit
 
@@ -126,6 +126,8 @@ def review_context(session, fit) -> dict:
                                          results.get("spec", {}).get("model")),
         "rate_columns": RATE_COLUMNS,
         "decode": lambda text: None if text is None else json.loads(text),
+        # Randomised from a plan? And did the settings run follow it?
+        "against": plans.deviations(session, fit.data_version),
     }
 
 

@@ -36,6 +36,7 @@ from app.store.models import (
     AuditEvent,
     DataVersion,
     Fit,
+    Plan,
     SetpointProposal,
     Study,
     StudyMember,
@@ -157,9 +158,16 @@ def proposal_for(session: Session, user: User | None, proposal_id: int) -> Setpo
     return proposal
 
 
+def plan_for(session: Session, user: User | None, plan_id: int) -> Plan:
+    plan = session.get(Plan, plan_id) if in_id_range(plan_id) else None
+    if plan is None or not can_read(session, user, plan.study):
+        raise NotFound(f"No plan {plan_id}.", field="plan")
+    return plan
+
+
 # The lookup for each id a route may carry in its address (app.web.access checks them all).
 LOOKUPS = {"study_id": study_for, "fit_id": fit_for, "version_id": version_for,
-           "proposal_id": proposal_for}
+           "proposal_id": proposal_for, "plan_id": plan_for}
 
 
 def _reader_query(model) -> Any:
@@ -177,7 +185,7 @@ def _reader_query(model) -> Any:
 
 _READERS = {kind: _reader_query(model) for kind, model in (
     ("study_id", Study), ("fit_id", Fit), ("version_id", DataVersion),
-    ("proposal_id", SetpointProposal))}
+    ("proposal_id", SetpointProposal), ("plan_id", Plan))}
 
 
 def may_read(session: Session, user: User | None, kind: str, object_id: int) -> bool:
@@ -195,7 +203,7 @@ def may_read(session: Session, user: User | None, kind: str, object_id: int) -> 
 def study_id_of(session: Session, kind: str, object_id: int) -> int | None:
     """The study an id in an address belongs to (None when there is no such row)."""
     model = {"study_id": Study, "fit_id": Fit, "version_id": DataVersion,
-             "proposal_id": SetpointProposal}[kind]
+             "proposal_id": SetpointProposal, "plan_id": Plan}[kind]
     row = session.get(model, object_id) if in_id_range(object_id) else None
     if row is None:
         return None

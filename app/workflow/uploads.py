@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Callable
 
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.ingest import ColumnRole, DesignTable, RawTable, load_canonical, read_upload, validate
 from app.store import audit
-from app.store.models import DataVersion, Study, User
+from app.store.models import DataVersion, Plan, Study, User
 from app.workflow import NotFound, WorkflowError, in_id_range, teams
 
 
@@ -18,18 +19,27 @@ def sha256_bytes(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
-def parse_upload(data: bytes, filename: str, roles: dict[str, ColumnRole], *,
-                 sheet: str | None = None, max_bytes: int, max_cells: int
+def parse_upload(data: bytes, filename: str,
+                 roles: dict[str, ColumnRole] | Callable[[list[str]], dict[str, ColumnRole]],
+                 *, sheet: str | None = None, max_bytes: int, max_cells: int
                  ) -> tuple[RawTable, DesignTable]:
-    """Read and validate without storing anything; raises IngestError with the problems."""
+    """Read and validate without storing anything; raises IngestError with the problems.
+    ``roles`` may be a function of the file's column names (e.g. roles from a plan)."""
     raw = read_upload(data, filename, sheet, max_bytes=max_bytes, max_cells=max_cells)
+    if callable(roles):
+        roles = roles([str(c) for c in raw.frame.columns])
     return raw, validate(raw, roles)
 
 
 def add_data_version(session: Session, actor: User, study: Study, *, data: bytes, filename: str,
-                     raw: RawTable, table: DesignTable, reason: str | None = None) -> DataVersion:
+                     raw: RawTable, table: DesignTable, reason: str | None = None,
+                     plan: Plan | None = None,
+                     plan_tolerance: dict | None = None) -> DataVersion:
     """Store a validated upload as the study's next data version, with its audit event.
-    Only an engineer on the study's team may (app.workflow.teams)."""
+    Only an engineer on the study's team may (app.workflow.teams). With ``plan``, the version
+    is recorded as run from that plan (app.workflow.plans), its settings compared with the
+    planned ones within ``plan_tolerance`` (natural units per factor; 1 % of the range where
+    not given), and the event says how many deviated."""
     teams.require_act(session, actor, study, "upload data to it")
     latest = session.scalar(select(func.max(DataVersion.version))
                             .where(DataVersion.study_id == study.id)) or 0
@@ -47,14 +57,25 @@ def add_data_version(session: Session, actor: User, study: Study, *, data: bytes
                                    "decimal": raw.decimal, "sheet": raw.sheet}, sort_keys=True),
         created_by_id=actor.id,
     )
+    against = None
+    if plan is not None:
+        from app.workflow import plans
+
+        report = plans.check_upload(plan, table, plan_tolerance)
+        against = {"plan_id": plan.id, "tolerance": report["tolerance"],
+                   "deviations": len(report["deviations"]), "missing": len(report["missing"]),
+                   "extra": len(report["extra"])}
     session.add(version)
     session.flush()
+    if plan is not None:
+        plans.link_upload(session, version, plan, against["tolerance"])
     audit.record(session, actor=actor, action="data.upload", object_type="data_version",
                  object_id=version.id, study_id=study.id, reason=reason,
                  new={"version": version.version, "filename": version.filename,
                       "original_sha256": version.original_sha256,
                       "canonical_sha256": version.canonical_sha256, "rows": version.n_rows,
-                      "roles": json.loads(version.roles_json)})
+                      "roles": json.loads(version.roles_json),
+                      **({"plan": against} if against else {})})
     return version
 
 

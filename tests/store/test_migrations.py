@@ -93,7 +93,10 @@ def test_0004_gives_existing_tokens_read_write_and_an_expiry(tmp_path):
 
 SIGNED_ROW_TRIGGERS = {"signatures_no_update", "signatures_no_delete", "fits_snapshot_no_update",
                        "fits_no_delete", "setpoint_proposals_snapshot_no_update",
-                       "setpoint_proposals_no_delete"}
+                       "setpoint_proposals_no_delete",
+                       # 0009: plans and the links of data versions to them
+                       "plans_no_update", "plans_no_delete", "plan_uploads_no_update",
+                       "plan_uploads_no_delete"}
 
 
 def _triggers(url: str) -> set[str]:
@@ -112,7 +115,8 @@ def test_0005_guards_signed_rows_and_goes_down_and_up(backend, app):
     """Any later batch rebuild of these tables on SQLite must recreate the triggers."""
     url = app.config["DATABASE_URL"]  # migrated to head from the template
     extra = set() if backend == "sqlite" else {
-        "signatures_no_truncate", "fits_no_truncate", "setpoint_proposals_no_truncate"}
+        "signatures_no_truncate", "fits_no_truncate", "setpoint_proposals_no_truncate",
+        "plans_no_truncate", "plan_uploads_no_truncate"}
     assert SIGNED_ROW_TRIGGERS | extra <= _triggers(url)
     downgrade(url, "0004")
     left = _triggers(url)
