@@ -338,3 +338,15 @@ def test_prediction_variance_at_the_centre_of_a_factorial():
     assert got["profile"][0]["radius"] == 0 and got["profile"][0]["mean"] == pytest.approx(1.0)
     # at a corner: 1 + 3 (each coded main effect contributes x^2 = 1)
     assert got["max"] <= 4.0 + 1e-9 and got["region"] == "cube"
+
+
+@pytest.mark.parametrize("design", ["full_factorial", "fractional_factorial",
+                                    "central_composite", "box_behnken"])
+def test_plan_and_evaluation_are_plain_json(design):
+    import json
+    plan = build_plan(design, factors(5), seed=8)
+    assert json.loads(json.dumps(plan)) == plan
+    evaluation = evaluate_plan(json.loads(json.dumps(plan)), effect=1.0, sigma=0.5)
+    assert json.loads(json.dumps(evaluation)) == evaluation
+    assert evaluation["model"] == ("quadratic" if design in ("central_composite", "box_behnken")
+                                   else "linear")
