@@ -270,3 +270,34 @@ def test_check_runs_without_scipy_stats_statsmodels_or_openpyxl(tmp_path):
                          cwd=root, env={**os.environ, "PYTHONPATH": str(root)}, check=True)
     assert "normality" in out.stdout, out.stdout
     assert "loaded: []" in out.stdout, out.stdout
+
+
+def test_plan_writes_a_randomised_run_sheet(tmp_path):
+    """`plumbline plan` builds the design without a server: a 2^(5-1) in 16 runs with its
+    published generator (E = ABCD, Box, Hunter & Hunter ch. 6) and a seeded order."""
+    import csv
+    import json as json_module
+
+    from click.testing import CliRunner
+
+    from app.cli import main
+
+    out, doc = tmp_path / "sheet.csv", tmp_path / "plan.json"
+    args = ["plan", "--design", "fractional_factorial", "--runs", "16", "--centre-points", "0",
+            "--seed", "5", "--response", "Yield"]
+    for name in "ABCDE":
+        args += ["--factor", f"{name}=0:10:mm"]
+    result = CliRunner().invoke(main, [*args, "--out", str(out), "--json", str(doc)])
+    assert result.exit_code == 0, result.output
+    rows = list(csv.reader(out.read_text(encoding="utf-8").splitlines()))
+    assert rows[0] == ["Run order", "Run label", *(f"{n} [mm]" for n in "ABCDE"), "Yield"]
+    assert len(rows) == 17
+    plan = json_module.loads(doc.read_text(encoding="utf-8"))["plan"]
+    assert plan["resolution"] == 5 and plan["generators"] == ["E = A:B:C:D"]
+    again = CliRunner().invoke(main, [*args, "--out", str(tmp_path / "again.csv")])
+    assert again.exit_code == 0, again.output
+    assert (tmp_path / "again.csv").read_text(encoding="utf-8") == out.read_text(
+        encoding="utf-8")
+    bad = CliRunner().invoke(main, ["plan", "--design", "box_behnken", "--factor", "A=1:0",
+                                    "--factor", "B=0:1", "--factor", "C=0:1"])
+    assert bad.exit_code == 2 and "factors[0]" in bad.output

@@ -37,7 +37,7 @@ RETIRED_FILE = "integrity_keys.retired"
 SESSION_KEYS = "plumbline_integrity_keys"
 # What a seal can cover; the kind is part of the sealed message, so a seal of one kind never
 # passes as another.
-KINDS = ("event", "fit", "setpoint", "signature", "confirmation")
+KINDS = ("event", "fit", "setpoint", "signature", "confirmation", "plan")
 
 
 def key_id(key: bytes) -> str:
