@@ -65,7 +65,8 @@ def build_plan(design: str, factors: list[dict], *, runs: int | None = None,
         notes.append(f"The whole design is run {replicates} times (centre points included); "
                      "the run order is randomised over all replicates within each block.")
     notes.append("Runs are in random order within each block, blocks one after another; the "
-                 "same seed gives the same order.")
+                 "same seed gives the same order." if int(block_of.max()) > 1 else
+                 "Runs are in random order; the same seed gives the same order.")
     return {"design": design, "factors": part["factors"], "seed": seed,
             "generators": part.get("generators", []), "alias": part.get("alias"),
             "axial_distance": part.get("axial_distance"),
@@ -228,7 +229,8 @@ def _central_composite(factors, runs, centre_points, axial, blocks) -> dict:
     natural = natural_settings(np.array([[-position] * k, [position] * k]), factors)
     if position > 1:
         notes.append("The axial runs lie outside the low and high levels given; check that "
-                     "the process can be run there, or choose face_centred or inscribed.")
+                     "the process can be run there, or choose face-centred or inscribed "
+                     "axial runs.")
     if gens:
         notes.append(f"The cube is the published 2^({k}-{len(gens)}) fraction of resolution "
                      f"{resolution}.")
