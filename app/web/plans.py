@@ -5,12 +5,12 @@ from __future__ import annotations
 
 from typing import Any
 
-from flask import Blueprint, flash, redirect, render_template, request, url_for
+from flask import Blueprint, current_app, flash, g, redirect, render_template, request, url_for
 
 from app.store.db import get_session
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, me, tx
-from app.workflow import WorkflowError, plans, studies
+from app.workflow import WorkflowError, plans, report, studies
 
 bp = Blueprint("plans", __name__)
 
@@ -112,3 +112,13 @@ def view(plan_id: int):
 def sheet_csv(plan_id: int):
     plan = plans.get_plan(get_session(), plan_id)
     return attachment(plans.sheet_csv(plan), f"plan-{plan.id}-run-sheet.csv", "text/csv")
+
+
+@bp.route("/plans/<int:plan_id>/sheet.pdf")
+@allow(SIGNED_IN)
+def sheet_pdf(plan_id: int):
+    plan = plans.get_plan(get_session(), plan_id)
+    data = report.plan_sheet(get_session(), plan,
+                             software_version=current_app.config.get("SOFTWARE_VERSION") or "",
+                             printed_by=g.user.full_name)
+    return attachment(data, f"plan-{plan.id}-run-sheet.pdf", report.PDF)

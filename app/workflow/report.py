@@ -180,6 +180,19 @@ def setpoint_sheet(session: Session, proposal: SetpointProposal, *, software_ver
                       **_printed(session, printed_by, software_version))
 
 
+def plan_sheet(session: Session, plan: Any, *, software_version: str,
+               printed_by: str | None = None) -> bytes:
+    """A plan's run sheet as PDF bytes: run order, label, settings with units, blank
+    responses, the seed and the plan's hash on every page."""
+    from app.workflow import plans
+
+    header, rows = plans.sheet_rows(plan)
+    return render_pdf("reports/plan.html", plan=plan, study=plan.study,
+                      built=plans.document(plan), header=header, rows=rows,
+                      snapshot=plan.sha256, intact=plans.plan_intact(plan),
+                      **_printed(session, printed_by, software_version))
+
+
 def study_reports(session: Session, study: Study, *,
                   charts_of: Callable[[Fit], Sequence[ChartLike]],
                   software_version: str) -> Mapping[str, bytes]:

@@ -178,3 +178,16 @@ def test_plan_pages(client, db, study_id, actions):
     assert refused.status_code == 400 and "factors[0]" in refused.get_data(as_text=True)
     study_page = client.get(f"/studies/{study_id}").get_data(as_text=True)
     assert 'id="plans"' in study_page
+
+
+def test_run_sheet_prints(client, db, study_id, actions):
+    from pypdf import PdfReader
+
+    plan = _plan(client, _bearer(db, "erin"), study_id)
+    actions.login("erin")
+    got = client.get(f"/plans/{plan['id']}/sheet.pdf")
+    assert got.status_code == 200 and got.data.startswith(b"%PDF-")
+    pages = PdfReader(io.BytesIO(got.data)).pages
+    text = "\n".join(p.extract_text() for p in pages)
+    assert "RUN SHEET" in text and "seed 20261203" in text and "R20" in text
+    assert "Cure temperature [°C]" in text and plan["sha256"][:12] in text

@@ -4,6 +4,7 @@ POLICY = {
     "plans.create": {"engineer"},
     "plans.view": "signed-in",
     "plans.sheet_csv": "signed-in",
+    "plans.sheet_pdf": "signed-in",
     "api_plans.create": {"engineer"},
     "api_plans.get": "signed-in",
     "api_plans.sheet_csv": "signed-in",
