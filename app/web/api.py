@@ -122,9 +122,14 @@ schema("StudyDetail", {"allOf": [ref("Study"), {
     "properties": {"data_versions": {"type": "array", "items": ref("DataVersion")},
                    "fits": {"type": "array", "items": ref("FitSummary")}}}]})
 schema("FitCreate", {
-    "type": "object", "additionalProperties": False, "required": ["response"],
+    "type": "object", "additionalProperties": False,
+    "oneOf": [{"required": ["response"]}, {"required": ["responses"]}],
     "properties": {
         "response": {"type": "string", "minLength": 1},
+        "responses": {"type": "array", "minItems": 1, "uniqueItems": True,
+                      "items": {"type": "string", "minLength": 1},
+                      "description": "Instead of 'response': the same model fitted to each of "
+                                     "these responses, one fit each, in one step"},
         "model": {"type": ["string", "null"], "enum": [*NAMED_MODELS, None],
                   "description": "A named model (linear when neither model nor terms is given)"},
         "terms": {"type": ["array", "null"], "minItems": 1, "items": {"type": "string"},
@@ -151,6 +156,10 @@ schema("FitCreate", {
     "examples": [{"response": "Hardness", "model": "quadratic",
                   "exclusions": [{"row": 3, "reason": "panel scratched before measurement"}]}],
 })
+schema("FitGroup", {
+    "type": "object", "required": ["fits"],
+    "properties": {"fits": {"type": "array", "items": ref("Fit"),
+                            "description": "One fit per response, in the order asked"}}})
 schema("Fit", {"allOf": [ref("FitSummary"), {
     "type": "object",
     "required": ["snapshot_intact", "software_version", "spec", "thresholds", "signatures",
@@ -423,17 +432,36 @@ def _fit_choices(body: dict[str, Any]) -> dict[str, Any]:
 @allow("engineer")
 @document("POST", "/data/{version_id}/fits", "Fit a model to a data version",
           request_schema="FitCreate", tags=("Fits",),
-          responses={201: ("The new fit snapshot with its results", "Fit")})
+          responses={201: ("The new fit snapshot with its results; with 'responses', one fit "
+                           "per response", {"oneOf": [ref("Fit"), ref("FitGroup")]})})
 def create_fit(version_id: int):
-    """The study's current thresholds are used and stored with the snapshot."""
-    choices = _fit_choices(json_body("FitCreate"))
+    """The study's current thresholds are used and stored with the snapshot. With
+    ``responses``, every fit is analysed first and all are stored in one transaction (each
+    with its own event), or none."""
+    body = json_body("FitCreate")
+    several = body.pop("responses", None)
+    if several is None and "response" not in body:
+        raise WorkflowError("Field 'response' is required (or 'responses', a list, to fit "
+                            "the same model to each).", field="response")
+    if several is not None and "response" in body:
+        raise WorkflowError("Give either 'response' or 'responses' (a list), not both.",
+                            field="responses")
+    if several is not None and len(set(several)) != len(several):
+        raise WorkflowError("Field 'responses' names a response more than once.",
+                            field="responses")
+    choices = _fit_choices(body)
+    asked = [choices.pop("response")] if several is None else list(several)
     with read_session() as rs:
-        spec, results = fits.plan_fit(uploads.get_data_version(rs, version_id), **choices)
+        version = uploads.get_data_version(rs, version_id)
+        planned = [fits.plan_fit(version, response=r, **choices) for r in asked]
     with tx() as s:
-        fit = fits.create_fit(s, me(s), uploads.get_data_version(s, version_id), spec,
-                              results=results)
-        out = _fit(fit)
-    return _created(out, url_for("api.get_fit", fit_id=fit.id))
+        version = uploads.get_data_version(s, version_id)
+        made = [fits.create_fit(s, me(s), version, spec, results=results)
+                for spec, results in planned]
+        out = [_fit(fit) for fit in made]
+    if several is None:
+        return _created(out[0], url_for("api.get_fit", fit_id=made[0].id))
+    return _created({"fits": out}, url_for("api.get_fit", fit_id=made[0].id))
 
 
 @bp.route("/fits/<int:fit_id>")

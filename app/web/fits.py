@@ -11,6 +11,7 @@ import numpy as np
 from flask import (
     Blueprint,
     abort,
+    flash,
     g,
     jsonify,
     redirect,
@@ -201,16 +202,22 @@ def create(version_id: int):
         version = uploads.get_data_version(rs, version_id)
         try:
             choices = parse_builder_form(request.form)
-            spec, results = fits.plan_fit(version, **choices)
+            # The response chosen first, then every other one ticked: one fit each.
+            also = [r for r in request.form.getlist("also") if r != choices["response"]]
+            planned = [fits.plan_fit(version, **{**choices, "response": r})
+                       for r in [choices["response"], *dict.fromkeys(also)]]
             with tx() as s:
-                fit = fits.create_fit(s, me(s), uploads.get_data_version(s, version_id), spec,
-                                      results=results)
+                made = [fits.create_fit(s, me(s), uploads.get_data_version(s, version_id),
+                                        spec, results=results) for spec, results in planned]
+            fit = made[0]
         except WorkflowError as exc:
             if exc.status >= 500 or exc.status == 404:
                 raise
             context = _builder_context(version, _echo(request.form))
             return render_template("fits/builder.html", error=exc.message, field=exc.field,
                                    **context), 400
+    if len(made) > 1:
+        flash("Fits " + ", ".join(f"{f.id} ({f.response})" for f in made) + " stored together.")
     return redirect(url_for("fits.view", fit_id=fit.id))
 
 

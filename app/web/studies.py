@@ -12,6 +12,7 @@ from app.web import pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import float_field, me, team_step, tx
 from app.workflow import WorkflowError, plans, queue, studies, teams
+from app.workflow import fits as fit_service
 
 bp = Blueprint("studies", __name__, url_prefix="/studies")
 
@@ -76,6 +77,7 @@ def _render_view(study_id: int) -> str:
                                          joinedload(Fit.data_version))
                                 .order_by(Fit.created_at.desc())))
     return render_template("studies/view.html", study=study, fits=fits,
+                           overview=fit_service.overview(study, fits),
                            plans=plans.plans_of_study(session, study.id),
                            team=teams.team(session, study),
                            may_manage=teams.can_manage(g.user, study),

@@ -213,6 +213,27 @@ def aliases_of(fit: Fit, results: dict[str, Any]) -> dict[str, Any] | None:
     return alias_structure(cube, cols.factors)
 
 
+def overview(study, fits_newest_first: list[Fit]) -> list[dict[str, Any]]:
+    """Every response of the study's latest data version with its latest fit (of any
+    version), that fit's state and how many checks pass, want review or fail."""
+    if not study.data_versions:
+        return []
+    latest = max(study.data_versions, key=lambda v: v.version)
+    roles = json.loads(latest.roles_json)
+    responses = [name for name, r in roles.items() if r.get("role") == "response"]
+    rows = []
+    for response in responses:
+        fit = next((f for f in fits_newest_first if f.response == response), None)
+        counts = {"pass": 0, "review": 0, "fail": 0}
+        if fit is not None:
+            for check in results_of(fit).get("checks", []):
+                if check.get("verdict") in counts:
+                    counts[check["verdict"]] += 1
+        rows.append({"response": response, "fit": fit, "verdicts": counts,
+                     "on_latest": fit is not None and fit.data_version_id == latest.id})
+    return rows
+
+
 def results_of(fit: Fit) -> dict[str, Any]:
     return json.loads(fit.results_json)
 

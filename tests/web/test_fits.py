@@ -261,3 +261,49 @@ def test_saturated_two_level_fit_shows_the_half_normal_plot(actions, db, users):
     # interaction with one three-factor interaction, e.g. AB = CDE; Box, Hunter & Hunter ch. 6).
     assert 'id="aliases"' in page and "2^(5-1) fraction in 16 distinct runs, resolution 5" in page
     assert re.search(r"<td>[^<:]+:[^<:]+</td><td>[^<:]+:[^<:]+:[^<:]+</td>", page)
+
+
+def test_several_responses_in_one_request_and_the_study_overview(actions, db, users, client):
+    """One model form fitted to each response in one step: one fit each (each its own event),
+    all or none; the study page then shows each response's latest fit and its verdicts."""
+    from tests.web.test_setpoints import bearer
+
+    study_id = make_study(db)
+    version_id = add_version(db, study_id)
+    auth = bearer(db, "erin")
+    made = client.post(f"/api/v1/data/{version_id}/fits", headers=auth,
+                       json={"responses": ["Hardness", "Gloss"], "model": "quadratic"})
+    assert made.status_code == 201, made.get_json()
+    group = made.get_json()["fits"]
+    assert [f["response"] for f in group] == ["Hardness", "Gloss"]
+    assert all(f["results"]["spec"]["model"] == "quadratic" for f in group)
+    with db.session(write=False) as s:
+        events = s.scalars(select(AuditEvent).where(AuditEvent.action == "fit.create")).all()
+    assert len(events) == 2
+    # A response that does not exist refuses the whole request: nothing is stored.
+    refused = client.post(f"/api/v1/data/{version_id}/fits", headers=auth,
+                          json={"responses": ["Hardness", "Shine"], "model": "linear"})
+    assert refused.status_code == 400
+    with db.session(write=False) as s:
+        assert s.scalar(select(func.count()).select_from(Fit)) == 2
+    both = client.post(f"/api/v1/data/{version_id}/fits", headers=auth,
+                       json={"response": "Hardness", "responses": ["Gloss"]})
+    assert both.status_code == 400
+    actions.login("erin")
+    page = client.get(f"/studies/{study_id}").get_data(as_text=True)
+    assert 'id="overview"' in page
+    for fit in group:
+        assert f"Fit {fit['id']}</a> (data v1)" in page
+
+
+def test_the_builder_fits_the_same_model_to_ticked_responses(actions, db, users, client):
+    study_id = make_study(db)
+    version_id = add_version(db, study_id)
+    actions.login("erin")
+    made = _fit(actions, version_id, response="Hardness", model="linear", also="Gloss")
+    assert made.status_code == 302
+    with db.session(write=False) as s:
+        stored = [(f.id, f.response, json.loads(f.spec_json)["model"])
+                  for f in s.scalars(select(Fit).order_by(Fit.id))]
+    assert [row[1:] for row in stored] == [("Hardness", "linear"), ("Gloss", "linear")]
+    assert made.headers["Location"].endswith(f"/fits/{stored[0][0]}")
