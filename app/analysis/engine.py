@@ -33,8 +33,13 @@ def _response(frame: pd.DataFrame, spec: FitSpec, included: np.ndarray) -> np.nd
     values = pd.to_numeric(frame[spec.response], errors="coerce").to_numpy(dtype=float)
     bad = included & ~np.isfinite(values)
     if bad.any():
-        row = frame.index[int(np.argmax(bad))]
-        raise AnalysisError(f"Column '{spec.response}' (response) row {row}: no numeric value")
+        rows = [int(r) for r in frame.index[bad]]
+        listed = ", ".join(map(str, rows[:10])) + (f" and {len(rows) - 10} more"
+                                                   if len(rows) > 10 else "")
+        raise AnalysisError(
+            f"Column '{spec.response}' (response) has no value in row{'s' if len(rows) > 1 else ''}"
+            f" {listed}: leave {'those runs' if len(rows) > 1 else 'that run'} out of the fit "
+            "with a reason (the run stays in the data version)")
     return values
 
 

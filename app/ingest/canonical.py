@@ -53,7 +53,8 @@ def _canonical_texts(values: np.ndarray, kind: str) -> list[str]:
     items = values.tolist()
     if kind == _NUMERIC:
         if values.dtype == np.float64:
-            return list(map(repr, items))
+            # A response may be missing in a row (the run is kept; fits leave it out).
+            return ["" if v != v else repr(v) for v in items]
         return ["" if v is None else repr(float(v)) for v in items]
     if kind == "int64":
         return [str(int(v)) for v in items]
@@ -156,11 +157,14 @@ def design_table(frame: pd.DataFrame, roles: dict[str, ColumnRole]) -> DesignTab
                        label=single("label"))
 
 
-def _stored_values(cells: tuple[str, ...], kind: str) -> list:
-    """One stored column back to values, as a whole; ValueError when any cell is not valid."""
+def _stored_values(cells: tuple[str, ...], kind: str, gaps: bool = False) -> list:
+    """One stored column back to values, as a whole; ValueError when any cell is not valid.
+    With ``gaps`` (responses), an empty cell is a missing value (NaN)."""
     if kind == _NUMERIC:
-        values = np.asarray(cells, dtype=object).astype(np.float64)  # float() of each cell
-        if not np.isfinite(values).all():
+        empty = np.asarray([gaps and c == "" for c in cells], dtype=bool)
+        filled = tuple("nan" if e else c for c, e in zip(cells, empty, strict=True))
+        values = np.asarray(filled, dtype=object).astype(np.float64)  # float() of each cell
+        if not (np.isfinite(values) | empty).all():
             raise ValueError("not finite")
         return values
     if kind == "int64":
@@ -175,7 +179,8 @@ def _stored_problems(header: list[str], body: list[list[str]],
     for number, row in enumerate(body, start=1):
         for name, cell in zip(header, row[1:], strict=True):
             try:
-                _stored_values((cell,), column_dtype(roles[name]))
+                _stored_values((cell,), column_dtype(roles[name]),
+                               gaps=roles[name].role == "response")
             except ValueError:
                 problems.append(Problem(
                     f"Stored table column '{name}' row {number}: '{cell}' is not valid.",
@@ -218,7 +223,8 @@ def load_canonical(csv_bytes: bytes, roles_json: str) -> DesignTable:
                                          row=int(number))
     cells = list(zip(*body, strict=True)) if body else [()] * (len(header) + 1)
     try:
-        columns = {name: _stored_values(column, column_dtype(roles[name]))
+        columns = {name: _stored_values(column, column_dtype(roles[name]),
+                                        gaps=roles[name].role == "response")
                    for name, column in zip(header, cells[1:], strict=True)}
     except ValueError:
         raise IngestError(_stored_problems(header, body, roles)) from None

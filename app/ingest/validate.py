@@ -31,8 +31,9 @@ def _rows(raw: RawTable, where: np.ndarray) -> list[int]:
 
 
 def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Problem],
-                    *, missing_note: str = "") -> np.ndarray:
-    """Parse a column of numbers, adding a problem for the first few bad cells and the gaps.
+                    *, missing_note: str = "", gaps_allowed: bool = False) -> np.ndarray:
+    """Parse a column of numbers, adding a problem for the first few bad cells and the gaps
+    (with ``gaps_allowed``, only for a column with no value at all).
 
     Returns the float64 values, NaN where a cell is missing or not a number.
     """
@@ -52,6 +53,8 @@ def _numeric_column(raw: RawTable, column: str, role: str, problems: list[Proble
             f"Column '{column}' ({word}) has {len(bad) - CELLS_LISTED_PER_COLUMN} more cells "
             "that are not numbers.", column=column))
     missing = _rows(raw, missing_mask)
+    if missing and gaps_allowed and len(missing) < len(cells):
+        return values
     if missing:
         problems.append(Problem(
             f"Column '{column}' ({word}) has no value in row{'s' if len(missing) > 1 else ''} "
@@ -203,9 +206,7 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
     if problems:
         raise IngestError(problems)
     full = {c: roles.get(c, ColumnRole("ignore")) for c in raw.frame.columns}
-    several = sum(1 for r in full.values() if r.role == "response") > 1
-    response_note = (" Every response needs a value in every row; mark a column 'ignore' to "
-                     "leave it out." if several else "")
+    response_note = " A response needs a value in at least one row."
     columns: dict[str, np.ndarray] = {}
     for name, role in full.items():
         if role.role == "ignore":
@@ -219,7 +220,10 @@ def validate(raw: RawTable, roles: dict[str, ColumnRole]) -> DesignTable:
                     f"Factor '{name}' is constant (every row is {_fmt(float(values[0]))}); a "
                     "factor must vary to be estimated. Mark it 'ignore'.", column=name))
         elif role.role == "response":
-            values = _numeric_column(raw, name, "response", problems, missing_note=response_note)
+            # A run whose response is missing stays in the data: a fit of that response must
+            # leave it out with a reason (app.workflow.fits).
+            values = _numeric_column(raw, name, "response", problems, missing_note=response_note,
+                                     gaps_allowed=True)
         elif role.role == "run_order":
             values = _run_order(raw, name, problems)
         elif role.role == "covariate":

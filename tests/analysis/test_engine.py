@@ -249,3 +249,23 @@ def test_curvature_row_matches_the_centre_point_formula():
     assert_allclose(row["sum_sq"], ss, rtol=1e-10)
     assert result.check("curvature").verdict in ("review", "fail")
     assert any("axial" in s for s in result.suggestions)
+
+
+def test_a_run_without_a_response_value_must_be_left_out_with_a_reason():
+    frame = _ccd_frame(seed=4)
+    frame.loc[[4, 9], "Y"] = np.nan
+    spec = {"response": "Y", "factors": ABC, "model": "quadratic"}
+    with pytest.raises(AnalysisError, match=r"no value in rows 4, 9: leave those runs out"):
+        analyse(frame, FitSpec(**spec))
+    left_out = ((4, "sample lost in transit"), (9, "gauge fault"))
+    for transform in ("none", "log"):
+        shifted = frame.assign(Y=frame["Y"] + 100)
+        result = analyse(shifted, FitSpec(**spec, transform=transform, exclusions=left_out))
+        doc = json.loads(json.dumps(result.to_dict(), allow_nan=False))
+        assert result.fit["n"] == len(frame) - 2
+        runs = {r["row"]: r for r in doc["runs"]}
+        assert runs[4]["excluded"] and runs[4]["observed"] is None
+        # Same numbers as a fit of the table without those two rows.
+        dropped = analyse(shifted.drop(index=[4, 9]), FitSpec(**spec, transform=transform))
+        assert_allclose([c.estimate for c in result.coefficients],
+                        [c.estimate for c in dropped.coefficients], rtol=1e-10)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import io
 import json
 import re
 
@@ -307,3 +308,43 @@ def test_the_builder_fits_the_same_model_to_ticked_responses(actions, db, users,
                   for f in s.scalars(select(Fit).order_by(Fit.id))]
     assert [row[1:] for row in stored] == [("Hardness", "linear"), ("Gloss", "linear")]
     assert made.headers["Location"].endswith(f"/fits/{stored[0][0]}")
+
+
+def test_a_run_without_a_response_is_kept_and_left_out_with_a_reason(actions, db, users, client):
+    """Upload with a gap in one response: the run stays; a fit of that response is refused
+    until the run is left out with a reason; the other response fits with every run."""
+    from app.demo_data import rsm_study
+    from tests.web.test_setpoints import bearer
+
+    demo = rsm_study()
+    lines = demo.csv_bytes.decode().splitlines()
+    header = lines[0].split(",")
+    cells = lines[3].split(",")
+    cells[header.index("Hardness")] = ""
+    lines[3] = ",".join(cells)
+    data = ("\n".join(lines) + "\n").encode()
+    study_id = make_study(db)
+    auth = bearer(db, "erin")
+    roles = json.dumps({n: r.to_dict() for n, r in demo.roles.items()})
+    stored = client.post(f"/api/v1/studies/{study_id}/data", headers=auth,
+                         content_type="multipart/form-data",
+                         data={"file": (io.BytesIO(data), "gap.csv"), "roles": roles})
+    assert stored.status_code == 201, stored.get_json()
+    version_id = stored.get_json()["id"]
+    refused = client.post(f"/api/v1/data/{version_id}/fits", headers=auth,
+                          json={"response": "Hardness", "model": "quadratic"})
+    assert refused.status_code == 400
+    assert "no value in row 3: leave that run out" in refused.get_json()["error"]
+    fitted = client.post(f"/api/v1/data/{version_id}/fits", headers=auth, json={
+        "response": "Hardness", "model": "quadratic",
+        "exclusions": [{"row": 3, "reason": "panel lost before measuring"}]})
+    assert fitted.status_code == 201
+    gloss = client.post(f"/api/v1/data/{version_id}/fits", headers=auth,
+                        json={"response": "Gloss", "model": "quadratic"})
+    assert gloss.get_json()["results"]["fit"]["n"] == len(lines) - 1
+    actions.login("erin")
+    page = client.get(f"/fits/{fitted.get_json()['id']}")
+    assert page.status_code == 200 and "panel lost before measuring" in page.get_data(
+        as_text=True)
+    charts = client.get(f"/fits/{fitted.get_json()['id']}/charts.json")
+    assert charts.status_code == 200
