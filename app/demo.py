@@ -25,14 +25,14 @@ def load_demo(app: Flask, *, only_if_empty: bool = False) -> list[str]:
         if s.scalar(select(func.count()).select_from(User)):
             if only_if_empty:
                 return ["database already has users; demo not loaded"]
-        lines = [f"Demo scenario: {PLANT} (invented). One-time passwords, shown only now:"]
-        people = {}
+        lines = [f"Demo scenario: {PLANT} (invented)."]
+        people, accounts_shown = {}, []
         for username, full_name, roles in DEMO_PEOPLE:
             password = _one_time_password()
             people[roles[0]] = accounts.create_user(
                 s, None, username=username, full_name=full_name, roles=list(roles),
                 password=password, one_time=True)
-            lines.append(f"  {username:<10} {', '.join(roles):<10} {password}")
+            accounts_shown.append(f"{username:<10} {', '.join(roles):<10} {password}")
         engineer = people["engineer"]
         for demo in demo_studies():
             study = studies.create_study(s, engineer, title=demo.title, purpose=demo.purpose,
@@ -42,5 +42,14 @@ def load_demo(app: Flask, *, only_if_empty: bool = False) -> list[str]:
             uploads.add_data_version(s, engineer, study, data=demo.csv_bytes,
                                      filename=demo.filename, raw=raw, table=table)
             lines.append(f"study {study.id}: {study.title} ({len(table.frame)} runs)")
-        lines.append("Each person must choose a new password at first sign-in.")
-    return lines
+    # The accounts last and framed, so that they stand out from whatever was printed before.
+    return lines + framed(["Demo accounts: one-time passwords, shown only now", "",
+                           *accounts_shown, "",
+                           "Each person must choose a new password at first sign-in."])
+
+
+def framed(rows: list[str]) -> list[str]:
+    """``rows`` inside a box of ASCII rules."""
+    width = max(map(len, rows))
+    rule = "+" + "-" * (width + 2) + "+"
+    return ["", rule, *(f"| {row:<{width}} |" for row in rows), rule, ""]

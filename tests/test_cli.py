@@ -104,7 +104,10 @@ def test_demo_load_once(cli_env):
     runner, url = cli_env
     first = runner.invoke(main, ["demo", "load", "--if-empty"])
     assert first.exit_code == 0, first.output
-    assert "One-time passwords" in first.output
+    assert "one-time passwords, shown only now" in first.output
+    # The accounts come last, framed: the last lines are the box around them.
+    tail = first.output.rstrip().splitlines()
+    assert tail[-1].startswith("+-") and tail[-2].startswith("| Each person must choose")
     second = runner.invoke(main, ["demo", "load", "--if-empty"])
     assert "already has users" in second.output
     assert _query(url, select(func.count()).select_from(Study)) == [(2,)]
