@@ -156,7 +156,13 @@ def _cell_text(value: object) -> str | None:
         return "TRUE" if value else "FALSE"
     if isinstance(value, float):
         return repr(value)
-    if isinstance(value, dt.datetime | dt.date | dt.time):
+    if isinstance(value, dt.datetime):
+        # A date typed in a spreadsheet is a datetime at midnight: show it as the date.
+        if value.time() == dt.time(0, 0):
+            return value.date().isoformat()
+        return value.isoformat(sep=" ", timespec="seconds" if value.microsecond == 0
+                               else "auto")
+    if isinstance(value, dt.date | dt.time):
         return value.isoformat()
     return clean_cell(str(value))
 
@@ -166,6 +172,27 @@ def _is_formula(value: object) -> bool:
     if isinstance(value, str):
         return value.startswith("=")
     return type(value).__name__ in ("ArrayFormula", "DataTableFormula")
+
+
+# Rows looked at to tell a table from a sheet of notes.
+_TABLE_PROBE_ROWS = 5
+
+
+def _first_table(workbook, names: tuple[str, ...]) -> str:
+    """The first sheet that looks like a table (a row of at least two filled cells followed by
+    another such row); the first sheet when none does. A workbook often opens with a notes or
+    cover sheet."""
+    for sheet_name in names:
+        worksheet = workbook[sheet_name]
+        if not hasattr(worksheet, "iter_rows"):
+            continue
+        wide = 0
+        for row in worksheet.iter_rows(min_row=1, max_row=_TABLE_PROBE_ROWS, values_only=True):
+            filled = sum(1 for v in row if v is not None and str(v).strip())
+            wide = wide + 1 if filled >= 2 else 0
+            if wide >= 2:
+                return sheet_name
+    return names[0]
 
 
 def _read_grid(data: bytes, sheet: str | None, name: str, *, data_only: bool,
@@ -182,7 +209,7 @@ def _read_grid(data: bytes, sheet: str | None, name: str, *, data_only: bool,
             names = tuple(workbook.sheetnames)
             if not names:
                 raise IngestError.single(f"'{name}' holds no worksheets.")
-            chosen = names[0] if sheet is None else sheet
+            chosen = _first_table(workbook, names) if sheet is None else sheet
             if chosen not in names:
                 listed = ", ".join(f"'{n}'" for n in names)
                 raise IngestError.single(

@@ -28,12 +28,26 @@ RUNS = [["Run", "Temp", "Time", "Yield"], [1, 150, 20, 61.5], [2, 170, 20, 64.0]
 NOTES = [["Note"], ["made by the night shift"]]
 
 
-def test_first_sheet_by_default_and_all_sheet_names_listed():
+def test_first_sheet_with_a_table_by_default_and_all_sheet_names_listed():
+    """A workbook that opens with a notes sheet opens on the runs, not on the notes."""
     raw = read_upload(workbook_bytes({"Notes": NOTES, "Runs": RUNS}), "study.xlsx")
     assert raw.file_kind == "xlsx"
     assert raw.sheets == ("Notes", "Runs")
-    assert raw.sheet == "Notes"
-    assert list(raw.frame.columns) == ["Note"]
+    assert raw.sheet == "Runs"
+    assert list(raw.frame.columns) == ["Run", "Temp", "Time", "Yield"]
+    only_notes = read_upload(workbook_bytes({"Notes": NOTES, "More": NOTES}), "notes.xlsx")
+    assert only_notes.sheet == "Notes" and list(only_notes.frame.columns) == ["Note"]
+
+
+def test_dates_read_as_dates_and_times_without_a_t():
+    import datetime as dt
+
+    rows = [["Run", "Made on", "Started", "Yield"],
+            [1, dt.datetime(2026, 11, 17), dt.datetime(2026, 11, 17, 8, 30), 61.5],
+            [2, dt.datetime(2026, 11, 18), dt.datetime(2026, 11, 18, 14, 5, 7), 64.0]]
+    raw = read_upload(workbook_bytes({"Runs": rows}), "dated.xlsx")
+    assert raw.frame["Made on"].tolist() == ["2026-11-17", "2026-11-18"]
+    assert raw.frame["Started"].tolist() == ["2026-11-17 08:30:00", "2026-11-18 14:05:07"]
 
 
 def test_user_chosen_sheet_is_read_as_text_cells():

@@ -167,7 +167,7 @@ def test_unreadable_files_are_refused_at_upload(actions, db, study_id, name, dat
 
 BAD_TABLES = [
     ("non-numeric factor", "Cure temperature", "hot", "Cure temperature"),
-    ("missing response", "Hardness", "", "Hardness"),
+    ("non-numeric response", "Hardness", "n/a", "Hardness"),
     ("non-integer run order", "Run order", "2.5", "Run order"),
     ("duplicate run order", "Run order", "1", "Run order"),
 ]
