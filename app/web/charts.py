@@ -40,7 +40,9 @@ BIN_ABOVE = 5000
 
 @dataclass(frozen=True)
 class Chart:
-    """One chart: ``name`` matches a check's ``chart`` field; ``rows`` is its text alternative."""
+    """One chart: ``name`` matches a check's ``chart`` field; ``rows`` is its text alternative.
+    ``left_out`` lists the runs left out of the fit that the chart also draws (run, run order,
+    row, reason; app.web.charts_left_out)."""
 
     name: str
     title: str
@@ -48,6 +50,7 @@ class Chart:
     columns: tuple[str, ...]
     rows: list[tuple] = field(default_factory=list)
     note: str = ""
+    left_out: list[tuple] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         return {"name": self.name, "title": self.title, "spec": self.spec, "note": self.note}
@@ -506,6 +509,7 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
     """Every chart that applies to this fit, in reading order. Beyond ``binned.BIN_ABOVE``
     runs the run-based charts draw bins with the marked runs on top (app.web.charts_binned)."""
     from app.web.charts_binned import binned_charts, binned_contour
+    from app.web.charts_left_out import add_left_out, contour_fields
 
     cols = columns_of(results, cols)
     factor_names = [f["name"] for f in results["factors"]]
@@ -523,11 +527,14 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
         out += [residuals_vs_covariate(results, name, values, cols)
                 for name, values in (covariates or {}).items()]
         out += [cooks_distance(results, cols), leverage(results, cols)]
+    # every chart so far draws runs: the left-out ones join them, hollow and grey
+    out = [add_left_out(c, results, cols, covariates) if c else None for c in out]
     out += [half_normal(results), boxcox_profile(results)]
     if pair and not set(pair) <= set(continuous):
         pair = None
     if len(continuous) >= 2:
         x, y = pair if pair else (continuous[0], continuous[1])
-        out.append(contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
+        surface = (contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
                    else binned_contour(results, x, y, cols))
+        out.append(add_left_out(surface, results, cols, fields=contour_fields(x, y)))
     return [c for c in out if c is not None]

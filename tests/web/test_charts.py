@@ -254,3 +254,71 @@ def test_predict_grid_averages_a_categorical_factor_over_its_levels(categorical)
     one = charts.predict_grid(model, {"Machine": "M1", "A": np.array([0.5]),
                                       "B": np.array([-0.25])})
     assert_allclose(one[0], each[1], rtol=1e-12)
+
+
+def _left_out_layer(spec: dict) -> dict:
+    return next(layer for layer in spec["layer"] if layer.get("name") == "left_out")
+
+
+def test_left_out_run_is_drawn_hollow_and_grey_on_every_run_chart(rsm, validator):
+    results, covariates = rsm
+    built = {c.name: c for c in charts.all_charts(results, covariates=covariates)}
+    drawn = [c for c in built.values() if _is_run_chart(c.name) or c.name == "contour"]
+    assert len(drawn) >= 10
+    for chart in drawn:
+        assert not list(validator.iter_errors(chart.spec)), chart.name
+        # not part of the statistics: the fitted runs' dataset does not hold it
+        assert 3 not in {r["row"] for r in _rows(chart.spec)}, chart.name
+        left = chart.spec["datasets"]["left_out"]
+        assert [(r["row"], r["label"], r["reason"]) for r in left] == [
+            (3, "CV40-R03", "panel scratched")], chart.name
+        layer = _left_out_layer(chart.spec)
+        assert layer["mark"]["color"] == "#8a8f98", chart.name
+        assert layer["mark"].get("filled") is False or layer["mark"]["type"] == "tick"
+        assert "reason" in {t["field"] for t in layer["encoding"]["tooltip"]}
+        for axis in ("x", "y"):
+            field = layer["encoding"][axis].get("field")
+            if field:
+                assert left[0][field] is not None, (chart.name, axis)
+        assert chart.left_out == [("CV40-R03", 3, 3, "panel scratched")], chart.name
+        assert "left out" in chart.note
+    # the settings it was run at, on the factor and contour charts
+    assert built["residuals_vs_factor:Catalyst"].spec["datasets"]["left_out"][0]["level"] == 0.8
+    contour_left = built["contour"].spec["datasets"]["left_out"][0]
+    assert (contour_left["px"], contour_left["py"]) == (150.0, 30.0)
+
+
+def test_left_out_run_scores_agree_with_statsmodels_prediction(rsm):
+    """Residual = observed − prediction; studentized = residual / se_obs and leverage =
+    (se_mean / s)² from statsmodels OLS.get_prediction on the fitted runs alone."""
+    import pandas as pd
+    import statsmodels.api as sm
+
+    results, _ = rsm
+    runs = pd.DataFrame([{**r["coded"], "y": r["observed"], "row": r["row"],
+                          "excluded": r["excluded"]} for r in results["runs"]])
+    names = ["Cure temperature", "Cure time", "Catalyst"]
+    x = pd.DataFrame({"const": 1.0, **{n: runs[n] for n in names}})
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            x[f"{a}:{b}"] = runs[a] * runs[b]
+    for n in names:
+        x[f"{n}^2"] = runs[n] ** 2
+    keep = ~runs["excluded"]
+    ols = sm.OLS(runs["y"][keep], x[keep]).fit()
+    pred = ols.get_prediction(x[~keep])
+    residual = float(runs["y"][~keep].iloc[0] - pred.predicted_mean[0])
+    s = float(np.sqrt(ols.scale))
+    chart = {c.name: c for c in charts.all_charts(results)}
+    on_leverage = chart["leverage"].spec["datasets"]["left_out"][0]
+    on_fitted = chart["residuals_vs_fitted"].spec["datasets"]["left_out"][0]
+    assert_allclose(on_fitted["residual"], residual, rtol=1e-9)
+    assert_allclose(on_leverage["studentized"], residual / pred.se_obs[0], rtol=1e-9)
+    assert_allclose(on_leverage["leverage"], (pred.se_mean[0] / s) ** 2, rtol=1e-9)
+
+
+def test_charts_without_left_out_runs_draw_no_extra_layer(screening):
+    results, covariates = screening
+    for chart in charts.all_charts(results, covariates=covariates):
+        assert "left_out" not in chart.spec.get("datasets", {}), chart.name
+        assert chart.left_out == []
