@@ -509,6 +509,7 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
     """Every chart that applies to this fit, in reading order. Beyond ``binned.BIN_ABOVE``
     runs the run-based charts draw bins with the marked runs on top (app.web.charts_binned)."""
     from app.web.charts_binned import binned_charts, binned_contour
+    from app.web.charts_effects import interactions, main_effects
     from app.web.charts_left_out import add_left_out, contour_fields
 
     cols = columns_of(results, cols)
@@ -529,6 +530,7 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
         out += [cooks_distance(results, cols), leverage(results, cols)]
     # every chart so far draws runs: the left-out ones join them, hollow and grey
     out = [add_left_out(c, results, cols, covariates) if c else None for c in out]
+    out += [main_effects(results, cols), interactions(results, cols)]
     out += [half_normal(results), boxcox_profile(results)]
     if pair and not set(pair) <= set(continuous):
         pair = None

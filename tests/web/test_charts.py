@@ -322,3 +322,61 @@ def test_charts_without_left_out_runs_draw_no_extra_layer(screening):
     for chart in charts.all_charts(results, covariates=covariates):
         assert "left_out" not in chart.spec.get("datasets", {}), chart.name
         assert chart.left_out == []
+
+
+def _demo_frame(demo):
+    import io
+
+    import pandas as pd
+
+    return pd.read_csv(io.BytesIO(demo.csv_bytes))
+
+
+def test_main_effects_of_a_two_level_design_are_observed_means(screening, validator):
+    """Checked against pandas groupby on the uploaded file itself."""
+    results, _ = screening
+    chart = {c.name: c for c in charts.all_charts(results)}["main_effects"]
+    assert not list(validator.iter_errors(chart.spec))
+    frame = _demo_frame(screening_study())
+    for i, name in enumerate(f["name"] for f in results["factors"]):
+        expected = frame.groupby(name)["Film thickness"].agg(["mean", "count"])
+        plotted = chart.spec["datasets"][f"main_{i}"]
+        assert [d["level"] for d in plotted] == expected.index.tolist(), name
+        assert_allclose([d["mean"] for d in plotted], expected["mean"], rtol=1e-12)
+        assert [d["runs"] for d in plotted] == expected["count"].tolist()
+        assert chart.spec["concat"][i]["title"] == f"{name} (observed mean)"
+
+
+def test_interaction_plot_lines_are_cell_means_at_low_and_high(saturated):
+    results, _ = saturated
+    chart = {c.name: c for c in charts.all_charts(results)}["interactions"]
+    frame = _demo_frame(screening_study())
+    pairs = [t["name"].split(":") for t in results["model"]["terms"] if ":" in t["name"]]
+    assert len(chart.spec["concat"]) == len(pairs) == 10
+    x, trace = pairs[0]
+    plotted = chart.spec["datasets"]["pair_0"]
+    for held_at, word in ((frame[trace].min(), "low"), (frame[trace].max(), "high")):
+        cells = frame[frame[trace] == held_at].groupby(x)["Film thickness"].mean()
+        line = [d for d in plotted if d["held"] == f"{trace} {word} ({held_at:g})"]
+        assert [d["level"] for d in line] == cells.index.tolist()
+        assert_allclose([d["mean"] for d in line], cells.to_numpy(), rtol=1e-12)
+
+
+def test_main_effects_of_a_composite_design_are_predictions_and_say_so(rsm):
+    results, _ = rsm
+    built = {c.name: c for c in charts.all_charts(results)}
+    chart = built["main_effects"]
+    assert "Cure temperature: model prediction" in chart.note
+    trace = chart.spec["datasets"]["main_0"]
+    end = predict(results, {"Cure temperature": trace[-1]["level"], "Cure time": 25.0,
+                            "Catalyst": 1.0})["predicted"]
+    assert_allclose(trace[-1]["mean"], end, rtol=1e-9)
+    # three two-factor interactions in the quadratic model, lines at declared low and high
+    pairs = built["interactions"].spec["datasets"]
+    assert len(pairs) == 3
+    assert {d["held"] for d in pairs["pair_0"]} == {"Cure time low (20)", "Cure time high (30)"}
+
+
+def test_linear_model_has_no_interaction_plot(screening):
+    results, _ = screening
+    assert "interactions" not in {c.name for c in charts.all_charts(results)}
