@@ -380,3 +380,40 @@ def test_main_effects_of_a_composite_design_are_predictions_and_say_so(rsm):
 def test_linear_model_has_no_interaction_plot(screening):
     results, _ = screening
     assert "interactions" not in {c.name for c in charts.all_charts(results)}
+
+
+def test_iso_segments_of_a_plane_lie_exactly_on_its_level_lines():
+    """A plane z = 3 + 2x − y: linear interpolation along the cell edges is exact."""
+    from app.web.charts_contour import iso_segments, nice_levels
+
+    xs, ys = np.linspace(-1, 1, 11), np.linspace(0, 4, 9)
+    gx, gy = np.meshgrid(xs, ys)
+    z = 3 + 2 * gx - gy
+    levels = nice_levels(z)
+    assert levels.tolist() == [-2.0, 0.0, 2.0, 4.0]  # range -3 … 5 in steps of 2
+    for level in levels:
+        pieces = np.array(iso_segments(xs, ys, z, level))
+        assert len(pieces)
+        for x, y in (pieces[:, :2].T, pieces[:, 2:].T):
+            assert_allclose(3 + 2 * x - y, level, atol=1e-12)
+
+
+def test_contour_lines_are_labelled_and_close_to_the_model(rsm, validator):
+    results, _ = rsm
+    chart = charts.contour(results, "Cure temperature", "Cure time")
+    assert not list(validator.iter_errors(chart.spec))
+    segments = chart.spec["datasets"]["iso"]
+    labels = chart.spec["datasets"]["iso_labels"]
+    assert len(labels) >= 4 and {d["level"] for d in segments} == {d["level"] for d in labels}
+    # each piece's ends sit where predict() gives the line's value (within the grid's
+    # interpolation error: the surface is curved, the grid 31 × 31)
+    spread = max(c["predicted"] for c in chart.spec["datasets"]["surface"]) - min(
+        c["predicted"] for c in chart.spec["datasets"]["surface"])
+    for d in segments[::7]:
+        at = predict(results, {"Cure temperature": d["x"], "Cure time": d["y"],
+                               "Catalyst": 1.0})["predicted"]
+        assert abs(at - d["level"]) < 0.01 * spread
+    # labels name their values; the held factor is in the subtitle and the note
+    assert all(d["text"] == f"{d['level']:g}" for d in labels)
+    assert chart.spec["title"]["subtitle"] == "Held: Catalyst at 1 %"
+    assert "Held: Catalyst at 1 %" in chart.note and "Lines where" in chart.note

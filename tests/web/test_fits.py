@@ -261,3 +261,21 @@ def test_saturated_two_level_fit_shows_the_half_normal_plot(actions, db, users):
     # interaction with one three-factor interaction, e.g. AB = CDE; Box, Hunter & Hunter ch. 6).
     assert 'id="aliases"' in page and "2^(5-1) fraction in 16 distinct runs, resolution 5" in page
     assert re.search(r"<td>[^<:]+:[^<:]+</td><td>[^<:]+:[^<:]+:[^<:]+</td>", page)
+
+
+def test_same_factor_on_both_contour_axes_is_a_clear_400_on_the_fit_page(actions, version_id):
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id).headers["Location"].rsplit("/", 1)[1])
+    response = actions.client.get(f"/fits/{fit_id}?x=Catalyst&y=Catalyst")
+    assert response.status_code == 400
+    page = response.get_data(as_text=True)
+    assert 'id="contour-error"' in page and "“Catalyst” was chosen for both axes" in page
+    # the rest of the fit page is there, with the default contour
+    assert f"Fit {fit_id}" in page and 'data-chart="contour"' in page
+    assert 'name="y" aria-invalid="true"' in page
+    unknown = actions.client.get(f"/fits/{fit_id}?x=Catalyst&y=Nope")
+    assert unknown.status_code == 400 and "must be factors of this fit" in unknown.get_data(
+        as_text=True)
+    # and a good pair afterwards is not served the error from a cache
+    good = actions.client.get(f"/fits/{fit_id}?x=Cure+time&y=Catalyst")
+    assert good.status_code == 200 and "contour-error" not in good.get_data(as_text=True)
