@@ -212,8 +212,9 @@ def view(version_id: int):
     version_fits = fits.fits_of_version(session, version.id)
     against, diff = uploads.version_differences(session, version)
     return render_template("data/view.html", version=version, study=version.study, table=table,
-                           roles=json.loads(version.roles_json), fits=version_fits,
-                           against=against,
+                           # file order (the stored JSON is sorted): the table's columns,
+                           # then the ignored ones, which the stored table does not keep
+                           roles=table.roles, fits=version_fits, against=against,
                            diff=diff, diff_shown=DIFF_SHOWN, matched_words=MATCHED_BY_WORDS,
                            read_info=json.loads(version.read_info_json),
                            fit_url=url_for("fits.builder", version_id=version.id))

@@ -99,3 +99,13 @@ def test_api_diff_refuses_a_version_of_another_study(client, actions, db, versio
     response = client.get(f"/api/v1/data/{versions[1]}/diff?against={other}")
     assert response.status_code == 400
     assert "another study" in response.get_json()["error"]
+
+
+def test_data_page_lists_columns_in_file_order(client, actions, versions):
+    actions.login("erin")
+    page = client.get(f"/data/{versions[0]}").get_data(as_text=True)
+    columns = page.split("<h2>Columns</h2>", 1)[1].split("</table>", 1)[0]
+    found = [name for name in DEMO.roles if f'<th scope="row">{name}</th>' in columns]
+    assert found == list(DEMO.roles)  # Run order, Panel ID, Cure temperature, …
+    positions = [columns.index(f'<th scope="row">{name}</th>') for name in DEMO.roles]
+    assert positions == sorted(positions)
