@@ -279,3 +279,23 @@ def test_same_factor_on_both_contour_axes_is_a_clear_400_on_the_fit_page(actions
     # and a good pair afterwards is not served the error from a cache
     good = actions.client.get(f"/fits/{fit_id}?x=Cure+time&y=Catalyst")
     assert good.status_code == 200 and "contour-error" not in good.get_data(as_text=True)
+
+
+def test_reduction_steps_read_to_four_figures_and_the_header_names_the_reduced_model(
+        actions, db, version_id):
+    import re
+
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id, reduce="on", reduce_alpha="0.05")
+                 .headers["Location"].rsplit("/", 1)[1])
+    with db.session() as s:
+        results = fit_service.results_of(s.get(Fit, fit_id))
+    assert results["reduction"], "the demo quadratic should lose a term at 0.05"
+    page = actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    step = results["reduction"][0]
+    assert f"Removed <strong>{step['term']}</strong>: p value {step['p_value']:.4g}" in page
+    assert not re.search(r"\d\.\d{6,}", page.split("Model reduction steps", 1)[1]
+                         .split("</section>", 1)[0]), "raw floats in the reduction steps"
+    summary = page.split('class="summary-line">', 1)[1].split("</p>", 1)[0]
+    assert "reduced from quadratic" in summary
+    assert f"{len(results['terms'])} terms: " + ", ".join(results["terms"]) in summary
