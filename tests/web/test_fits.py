@@ -29,6 +29,23 @@ def _fit(actions, version_id, **fields):
     return actions.post(f"/data/{version_id}/fit", data=data)
 
 
+FIELDSETS = {"response": "fs-response", "terms": "fs-model", "model": "fs-model",
+             "boxcox_lambda": "fs-transform", "reduce_alpha": "fs-reduce",
+             "exclusions": "fs-exclusions"}
+
+
+def _assert_error_beside(page: str, field: str, message: str) -> None:
+    """The message sits in the form part the field belongs to, and the summary links there;
+    no "(field: …)" text is appended."""
+    fieldset = FIELDSETS[field]
+    assert "(field:" not in page
+    assert f'href="#{fieldset}"' in page
+    start = page.index(f'<fieldset id="{fieldset}" class="has-error"')
+    part = page[start:page.index("</fieldset>", start)]
+    assert f'<p class="field-error" id="{fieldset}-error">' in part
+    assert message.replace("'", "&#39;") in part
+
+
 def _count_fits(db) -> int:
     with db.session() as s:
         return s.scalar(select(func.count()).select_from(Fit))
@@ -85,7 +102,7 @@ def test_exclusion_without_reason_is_refused_and_names_the_field(actions, db, ve
     assert response.status_code == 400
     page = response.get_data(as_text=True)
     assert "Excluding row 5 needs a written reason." in page
-    assert "(field: exclusions)" in page
+    _assert_error_beside(page, "exclusions", "Excluding row 5 needs a written reason.")
     # The builder comes back with the choice kept, and nothing was stored.
     assert re.search(r'name="exclude" value="5"[^>]*checked', page)
     assert _count_fits(db) == 0
@@ -109,7 +126,7 @@ def test_bad_choices_re_render_the_builder_naming_the_field(actions, db, version
     assert response.status_code == 400
     page = response.get_data(as_text=True)
     assert message.replace("'", "&#39;") in page
-    assert f"(field: {field})" in page
+    _assert_error_beside(page, field, message)
     assert _count_fits(db) == 0
 
 
@@ -121,7 +138,8 @@ def test_box_cox_lambda_outside_the_search_range_is_refused(actions, db, version
     page = response.get_data(as_text=True)
     low, high = LAMBDA_RANGE
     assert f"Box–Cox λ must lie between {low:g} and {high:g}" in page
-    assert "(field: boxcox_lambda)" in page and f'value="{typed}"' in page
+    _assert_error_beside(page, "boxcox_lambda", "Box–Cox λ must lie between")
+    assert f'value="{typed}"' in page
     assert _count_fits(db) == 0
 
 
