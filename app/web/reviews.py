@@ -189,4 +189,5 @@ def _failed(fit_id: int, exc: WorkflowError):
     session.rollback()
     fit = fits.get_fit(session, fit_id)
     return render_template("reviews/review.html", error=exc.message, error_field=exc.field,
-                           form=request.form, **review_context(session, fit)), exc.status
+                           error_at=request.endpoint.rsplit(".", 1)[-1], form=request.form,
+                           **review_context(session, fit)), exc.status
