@@ -213,3 +213,18 @@ def test_author_who_is_also_an_approver_is_told_why_instead_of_offered_the_form(
     actions.login("abel")
     page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
     assert f'action="/fits/{fit_id}/sign"' in page and "sign-barred" not in page
+
+
+def test_review_page_leads_with_the_question_and_lists_left_out_runs_with_their_settings(
+        db, actions, client, fit_id):
+    actions.login("abel")
+    page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
+    checks = page.split('<table class="checks">', 1)[1].split("</table>", 1)[0]
+    assert ('<td>Do residuals look normal?<br><small class="muted check-id">normality</small>'
+            in checks)
+    left = page.split('<table class="excluded-runs">', 1)[1].split("</table>", 1)[0]
+    # row 3 of the demo file: CV40-R03 at 150 °C, 30 min, 0.8 %, hardness 116.5
+    cells = [c.split(">", 1)[1] for c in left.split("<td")[1:]]
+    cells = [c.split("</td>", 1)[0] for c in cells]
+    assert cells == ["CV40-R03", "3", "3", "150", "30", "0.8", "116.5",
+                     "panel scratched before measurement"]
