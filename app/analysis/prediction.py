@@ -117,6 +117,27 @@ def model_rows(model: dict, values: dict[str, np.ndarray]) -> np.ndarray:
     return model_matrix(coded, terms, blocks, n_levels)
 
 
+def new_run_scores(model: dict, values: dict[str, np.ndarray], residual: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray]:
+    """For runs that did not enter the fit (left out with a reason): each run's leverage as a
+    new point, h0 = x0'(X'X)^-1 x0, and its residual divided by the standard error of
+    predicting a new observation there, s·sqrt(1 + h0).
+
+    The second is on the scale of a deleted (externally studentized) residual: the run took no
+    part in the fit, so its residual is a prediction error, as a deleted residual is.
+    ``values`` are coded settings (level numbers 1..L for a categorical factor), ``residual``
+    observed minus predicted on the model scale. NaN where s is unknown. Checked against
+    statsmodels' get_prediction (se_obs) in tests/web/test_charts.py.
+    """
+    rows = model_rows(model, values)
+    v = np.asarray(model["xtx_inv"], dtype=float)
+    lev = np.einsum("ij,jk,ik->i", rows, v, rows)
+    s = model.get("s")
+    if s is None or not np.isfinite(s) or int(model["df_resid"]) <= 0:
+        return lev, np.full(len(lev), np.nan)
+    return lev, np.asarray(residual, dtype=float) / (s * np.sqrt(1.0 + lev))
+
+
 def _back(z: float | None, transform: str, lam: float | None) -> float | None:
     if z is None:
         return None

@@ -22,8 +22,16 @@ from app.store.db import database, get_session
 from app.store.models import DataVersion, Fit, Study, User
 from app.web import api_runs
 from app.web.access import SIGNED_IN, allow
-from app.web.common import me, read_session, tx
-from app.web.openapi import build_document, check, document, json_body, ref, schema
+from app.web.common import id_field, me, read_session, tx
+from app.web.openapi import (
+    build_document,
+    check,
+    document,
+    id_parameter,
+    json_body,
+    ref,
+    schema,
+)
 from app.workflow import WorkflowError, fits, plans, reviews, studies, teams, uploads
 
 bp = Blueprint("api", __name__, url_prefix="/api/v1")
@@ -406,6 +414,70 @@ def get_data(version_id: int):
     return jsonify({**_data_version(version), "fits": [_fit_summary(f) for f in made],
                     "plan_deviations": plans.deviations(session, version)})
 
+
+
+AGAINST = {"name": "against", "in": "query", "required": False,
+           "schema": {"type": "integer", "minimum": 1},
+           "description": "The data version to compare with (same study); the previous version "
+                          "when left out"}
+KEY = {"type": ["string", "integer", "null"]}
+CELL = {"type": ["string", "number", "null"]}
+RUN_REF = {"type": "object", "required": ["key", "row"],
+           "properties": {"key": KEY, "row": {"type": "integer"}}}
+schema("DataDifferences", {
+    "type": "object",
+    "required": ["data_version", "against", "matched_by", "key_columns", "counts",
+                 "changed_cells", "added_rows", "removed_rows", "columns_added",
+                 "columns_removed", "roles_changed", "renamed"],
+    "description": "What changed from the version compared with (`against`) to this one",
+    "properties": {
+        "data_version": {"type": "integer"},
+        "against": {"type": ["integer", "null"],
+                    "description": "null: this is the study's first version"},
+        "matched_by": {"type": ["string", "null"], "enum": ["label", "run_order", "row", None],
+                       "description": "How runs were paired: run label when both versions "
+                                      "have unique labels, else run order, else row number"},
+        "key_columns": {"type": "array", "items": {"type": ["string", "null"]}},
+        "counts": {"type": "object", "additionalProperties": {"type": "integer"}},
+        "changed_cells": {"type": "array", "items": {
+            "type": "object", "required": ["key", "old_row", "new_row", "column", "old", "new"],
+            "properties": {"key": KEY, "old_row": {"type": "integer"},
+                           "new_row": {"type": "integer"}, "column": {"type": "string"},
+                           "old": CELL, "new": CELL}}},
+        "added_rows": {"type": "array", "items": RUN_REF},
+        "removed_rows": {"type": "array", "items": RUN_REF},
+        "columns_added": {"type": "array", "items": {"type": "string"}},
+        "columns_removed": {"type": "array", "items": {"type": "string"}},
+        "roles_changed": {"type": "array", "items": {
+            "type": "object", "required": ["column", "old", "new"],
+            "properties": {"column": {"type": "string"}, "old": ref("ColumnRole"),
+                           "new": ref("ColumnRole")}}},
+        "renamed": {"type": "array", "description": "A removed and an added column holding the "
+                    "same values: likely one column renamed", "items": {
+                        "type": "object", "required": ["old", "new"],
+                        "properties": {"old": {"type": "string"}, "new": {"type": "string"}}}},
+    }})
+
+
+@bp.route("/data/<int:version_id>/diff")
+@allow(SIGNED_IN)
+@document("GET", "/data/{version_id}/diff", "Differences from another data version",
+          tags=("Data",), parameters=(id_parameter("version_id"), AGAINST),
+          responses={200: ("Changed cells, added and removed runs and columns",
+                           "DataDifferences"),
+                     400: ("against is not a number or belongs to another study",
+                           ref("Error")),
+                     404: ("No such data version", ref("Error"))})
+def data_diff(version_id: int):
+    session = get_session()
+    version = uploads.get_data_version(session, version_id)
+    against, diff = uploads.version_differences(
+        session, version, id_field(request.args, "against", "data version"))
+    empty = {"matched_by": None, "key_columns": [], "counts": {}, "changed_cells": [],
+             "added_rows": [], "removed_rows": [], "columns_added": [], "columns_removed": [],
+             "roles_changed": [], "renamed": []}
+    return jsonify({"data_version": version.id, "against": against.id if against else None,
+                    **(diff.to_dict() if diff else empty)})
 
 def _fit_choices(body: dict[str, Any]) -> dict[str, Any]:
     """FitCreate fields as keyword arguments of fits.build_spec."""

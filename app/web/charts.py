@@ -24,6 +24,7 @@ from scipy import stats
 from app.analysis import runstore, transforms
 from app.analysis.prediction import model_rows
 from app.analysis.runstore import RunColumns
+from app.web.charts_contour import iso_lines
 
 # Our own palette: ink-blue points, a burnt-orange highlight, red and amber limit lines.
 POINT = "#23527c"
@@ -31,6 +32,7 @@ HIGHLIGHT = "#d9480f"
 LIMIT_FAIL = "#8f1d1d"
 LIMIT_REVIEW = "#b07d12"
 REFERENCE = "#5d6776"
+ISO_LINE = "#1f2d3a"
 SURFACE = ["#f3f0e4", "#dfe6c8", "#b9d3b0", "#8dbaa6", "#5f9b9c", "#3d7890", "#2b5678"]
 WIDTH, HEIGHT = 360, 240
 GRID = 31
@@ -40,7 +42,9 @@ BIN_ABOVE = 5000
 
 @dataclass(frozen=True)
 class Chart:
-    """One chart: ``name`` matches a check's ``chart`` field; ``rows`` is its text alternative."""
+    """One chart: ``name`` matches a check's ``chart`` field; ``rows`` is its text alternative.
+    ``left_out`` lists the runs left out of the fit that the chart also draws (run, run order,
+    row, reason; app.web.charts_left_out)."""
 
     name: str
     title: str
@@ -48,6 +52,7 @@ class Chart:
     columns: tuple[str, ...]
     rows: list[tuple] = field(default_factory=list)
     note: str = ""
+    left_out: list[tuple] = field(default_factory=list)
 
     def to_dict(self) -> dict[str, Any]:
         return {"name": self.name, "title": self.title, "spec": self.spec, "note": self.note}
@@ -476,16 +481,43 @@ def contour(results: dict, x_factor: str, y_factor: str,
            .encode(x="px:Q", y="py:Q", color=_colour(), size=_size(),
                    tooltip=_tooltip(alt.Tooltip("observed:Q", title=f"Observed {response}")))
            .add_params(_pick()))
-    others = [n for n in factors if n not in (x_factor, y_factor)]
-    spec = _with_data(alt.layer(heat, pts, data=alt.NamedData(name="runs"))
+    segments, labels = iso_lines(span[x_factor], span[y_factor], z.reshape(gx.shape))
+    lines = alt.Chart(alt.NamedData(name="iso")).mark_rule(color=ISO_LINE, strokeWidth=1).encode(
+        x="x:Q", y="y:Q", x2="x2:Q", y2="y2:Q")
+    label_at = {"x": "x:Q", "y": "y:Q", "text": "text:N"}
+    halo = alt.Chart(alt.NamedData(name="iso_labels")).mark_text(
+        fontSize=10, stroke="#ffffff", strokeWidth=3, strokeOpacity=0.85).encode(**label_at)
+    values = alt.Chart(alt.NamedData(name="iso_labels")).mark_text(
+        fontSize=10, color=ISO_LINE).encode(**label_at)
+    held = held_words(factors, (x_factor, y_factor))
+    title = f"Fitted {response} over {x_factor} and {y_factor}"
+    spec = _with_data(alt.layer(heat, lines, halo, values, pts, data=alt.NamedData(name="runs"))
                       .add_params(alt.param(name="highlight_row", value=0))
                       .properties(width=WIDTH, height=HEIGHT,
-                                  title=f"Fitted {response} over {x_factor} and {y_factor}"),
-                      data, {"surface": cells})
+                                  title=alt.Title(title, subtitle=held) if held else title),
+                      data, {"surface": cells, "iso": segments, "iso_labels": labels})
     rows = [(d["label"], d["run_order"], d["px"], d["py"], d["observed"]) for d in data]
-    note = ("Other factors at their centre: " + ", ".join(others) + "." if others else "")
-    return Chart("contour", f"Fitted {response} over {x_factor} and {y_factor}", spec,
+    levels = ", ".join(d["text"] for d in labels)
+    note = " ".join(part for part in (
+        f"{held}." if held else "",
+        f"Lines where the predicted {response} is {levels}." if labels else "") if part)
+    return Chart("contour", title, spec,
                  ("Run", "Run order", x_factor, y_factor, f"Observed {response}"), rows, note)
+
+
+def held_words(factors: dict[str, dict], shown: tuple[str, str]) -> str:
+    """How the factors not on the contour's axes are held: a value (the centre, in natural
+    units) or, for a categorical factor, averaged over its levels."""
+    parts = []
+    for name, f in factors.items():
+        if name in shown:
+            continue
+        if f.get("levels") is not None:
+            parts.append(f"{name} averaged over its levels")
+        else:
+            centre = 0.0 if f.get("low") is None else (f["low"] + f["high"]) / 2.0
+            parts.append(f"{name} at {centre:g}" + (f" {f['units']}" if f.get("units") else ""))
+    return ("Held: " + "; ".join(parts)) if parts else ""
 
 
 def _design_points(cols: RunColumns, x_factor: str, y_factor: str) -> list[dict]:
@@ -506,6 +538,8 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
     """Every chart that applies to this fit, in reading order. Beyond ``binned.BIN_ABOVE``
     runs the run-based charts draw bins with the marked runs on top (app.web.charts_binned)."""
     from app.web.charts_binned import binned_charts, binned_contour
+    from app.web.charts_effects import interactions, main_effects
+    from app.web.charts_left_out import add_left_out, contour_fields
 
     cols = columns_of(results, cols)
     factor_names = [f["name"] for f in results["factors"]]
@@ -523,11 +557,15 @@ def all_charts(results: dict, *, pair: tuple[str, str] | None = None,
         out += [residuals_vs_covariate(results, name, values, cols)
                 for name, values in (covariates or {}).items()]
         out += [cooks_distance(results, cols), leverage(results, cols)]
+    # every chart so far draws runs: the left-out ones join them, hollow and grey
+    out = [add_left_out(c, results, cols, covariates) if c else None for c in out]
+    out += [main_effects(results, cols), interactions(results, cols)]
     out += [half_normal(results), boxcox_profile(results)]
     if pair and not set(pair) <= set(continuous):
         pair = None
     if len(continuous) >= 2:
         x, y = pair if pair else (continuous[0], continuous[1])
-        out.append(contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
+        surface = (contour(results, x, y, cols) if len(cols) <= BIN_ABOVE
                    else binned_contour(results, x, y, cols))
+        out.append(add_left_out(surface, results, cols, fields=contour_fields(x, y)))
     return [c for c in out if c is not None]

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import json
 
 from flask import (
@@ -26,11 +28,12 @@ from app.ingest import (
     suggest_roles,
     summarize_column,
 )
+from app.ingest.diff import MATCHED_BY_WORDS
 from app.store.db import get_session
 from app.store.models import DataVersion
 from app.web import staging
 from app.web.access import SIGNED_IN, allow
-from app.web.common import attachment, me, tx
+from app.web.common import attachment, id_field, me, tx
 from app.workflow import WorkflowError, fits, plans, studies, uploads
 from app.workflow.csvsafe import safe_csv
 
@@ -47,6 +50,8 @@ def role_choice(role: ColumnRole | None) -> str | None:
     if role is None:
         return None
     return "factor_categorical" if role.categorical_factor else role.role
+# The version page lists this many changed cells; the CSV holds them all.
+DIFF_SHOWN = 50
 # The preview shows this many rows and a summary of every column, never the whole table.
 PREVIEW_ROWS = 20
 
@@ -235,9 +240,13 @@ def view(version_id: int):
     version = uploads.get_data_version(session, version_id)
     table = uploads.design_table(version)
     version_fits = fits.fits_of_version(session, version.id)
+    against, diff = uploads.version_differences(session, version)
     return render_template("data/view.html", version=version, study=version.study, table=table,
-                           against=plans.deviations(session, version, table),
-                           roles=json.loads(version.roles_json), fits=version_fits,
+                           plan_check=plans.deviations(session, version, table),
+                           # file order (the stored JSON is sorted): the table's columns,
+                           # then the ignored ones, which the stored table does not keep
+                           roles=table.roles, fits=version_fits, against=against,
+                           diff=diff, diff_shown=DIFF_SHOWN, matched_words=MATCHED_BY_WORDS,
                            read_info=json.loads(version.read_info_json),
                            fit_url=url_for("fits.builder", version_id=version.id))
 
@@ -257,3 +266,22 @@ def canonical(version_id: int):
     # Text cells that a spreadsheet would run as formulas get a leading apostrophe; the stored
     # bytes (and their SHA-256) are unchanged and are in the record package as they are.
     return attachment(safe_csv(version.canonical_csv), name, "text/csv")
+
+
+@bp.route("/data/<int:version_id>/differences.csv")
+@allow(SIGNED_IN)
+def differences_csv(version_id: int):
+    """Every difference from the previous version (or ``?against=``) as CSV."""
+    session = get_session()
+    version = uploads.get_data_version(session, version_id)
+    against, diff = uploads.version_differences(
+        session, version, id_field(request.args, "against", "data version"))
+    if diff is None:
+        abort(404, description=f"Data version {version.version} is the study's first; there is "
+                               "nothing to compare it with.")
+    out = io.StringIO(newline="")
+    writer = csv.writer(out, lineterminator="\n")
+    writer.writerow(diff.CSV_HEADER)
+    writer.writerows(["" if v is None else v for v in row] for row in diff.csv_rows())
+    name = f"study{version.study_id}_v{against.version}_to_v{version.version}_differences.csv"
+    return attachment(safe_csv(out.getvalue().encode("utf-8")), name, "text/csv")

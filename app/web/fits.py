@@ -221,14 +221,30 @@ def create(version_id: int):
     return redirect(url_for("fits.view", fit_id=fit.id))
 
 
+class ContourChoiceError(WorkflowError):
+    """The contour's factor pair (query fields x and y) cannot be drawn."""
+
+
 def _pair(results: dict) -> tuple[str, str] | None:
+    """The contour's two factors from the query (None: the page's default pair)."""
     names = [f["name"] for f in results["factors"]]
     x, y = request.args.get("x"), request.args.get("y")
     if x is None and y is None:
         return None
-    if x not in names or y not in names or x == y:
-        raise WorkflowError("The contour needs two different factors for 'x' and 'y' (factors: "
-                            + ", ".join(names) + ").", field="x" if x not in names else "y")
+    if x not in names or y not in names:
+        raise ContourChoiceError(
+            f"The contour's factors must be factors of this fit ({', '.join(names)}).",
+            field="x" if x not in names else "y")
+    if x == y:
+        raise ContourChoiceError(
+            f"The contour needs two different factors: “{x}” was chosen for both axes. Choose "
+            "another factor for one of them.", field="y")
+    named = [n for n in (x, y) if charts.level_names(results, n) is not None]
+    if named:
+        raise ContourChoiceError(
+            f"“{named[0]}” is categorical: the contour is drawn over two continuous factors "
+            "(categorical ones are averaged over their levels).",
+            field="x" if named[0] == x else "y")
     return x, y
 
 
@@ -287,14 +303,18 @@ def view(fit_id: int):
     rows = fits.checked_rows(get_session(), fit_id)
     if rows is None:
         fits.get_fit(get_session(), fit_id)  # raises the plain 404
-    return pagecache.render(("fit", fit_id), lambda: _render_view(fit_id),
-                            live=pagecache.rows_digest(rows))
+    try:
+        return pagecache.render(("fit", fit_id), lambda: _render_view(fit_id),
+                                live=pagecache.rows_digest(rows))
+    except ContourChoiceError as exc:
+        # the page with its default contour and the reason beside the contour's form
+        return _render_view(fit_id, contour_error=exc), 400
 
 
-def _render_view(fit_id: int) -> str:
+def _render_view(fit_id: int, contour_error: ContourChoiceError | None = None) -> str:
     fit = fits.get_fit(get_session(), fit_id)
     results = fits.results_of(fit)
-    pair = _pair(results)
+    pair = None if contour_error else _pair(results)
     built = fit_charts(fit, results, pair)
     names = {c.name for c in built}
     query = {} if pair is None else {"x": pair[0], "y": pair[1]}
@@ -302,8 +322,14 @@ def _render_view(fit_id: int) -> str:
                    charts=built, chart_names=names, pair=pair or (None, None),
                    runs=run_table(fits.runs_of(fit)), aliases=fits.aliases_of(fit, results),
                    charts_url=url_for("fits.charts_json", fit_id=fit.id, **query))
+    if contour_error is not None:
+        # not cached with the snapshot body: the message belongs to this one request
+        context.update(contour_error=contour_error.message, contour_field=contour_error.field)
+        body = Markup(render_template("fits/_body.html", **context))  # noqa: S704
+    else:
+        body = _snapshot_body(context)
     return render_template(
-        "fits/view.html", body=_snapshot_body(context), intact=fits.snapshot_intact(fit),
+        "fits/view.html", body=body, intact=fits.snapshot_intact(fit),
         others=_other_fits(fit), thresholds=json.loads(fit.thresholds_json), **context)
 
 

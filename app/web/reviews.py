@@ -104,6 +104,19 @@ def flagged_runs(fit) -> dict:
     return {"rows": [cols.records(i, i + 1)[0] for i in index.tolist()], "total": total}
 
 
+def excluded_runs(fit, results: dict) -> dict:
+    """The runs left out of the fit with their label, settings in natural units (a categorical
+    factor's level name) and reason (the first FLAGGED_LISTED), and how many there are."""
+    cols = fits.runs_of(fit)
+    index = np.flatnonzero(cols.excluded)
+    levels = {f["name"]: f.get("levels") for f in results.get("model", {}).get("factors", [])}
+    rows = [cols.records(i, i + 1)[0] for i in index[:FLAGGED_LISTED].tolist()]
+    for r in rows:
+        r["settings"] = {f: (levels[f][int(v) - 1] if levels.get(f) and v is not None else v)
+                         for f, v in r["actual"].items()}
+    return {"rows": rows, "total": len(index), "factors": list(cols.factors)}
+
+
 def review_context(session, fit) -> dict:
     results = fits.results_of(fit)
     checks = results.get("checks", [])
@@ -113,6 +126,7 @@ def review_context(session, fit) -> dict:
         "not_run": [c for c in checks if c["verdict"] == "not_applicable"],
         "flagged": flagged_runs(fit),
         "exclusions": json.loads(fit.spec_json).get("exclusions", []),
+        "excluded_runs": excluded_runs(fit, results),
         "thresholds": json.loads(fit.thresholds_json),
         "events": events_of_fit(session, fit),
         "threshold_changes": teams.threshold_changes_after(session, fit.study_id,
@@ -127,7 +141,7 @@ def review_context(session, fit) -> dict:
         "rate_columns": RATE_COLUMNS,
         "decode": lambda text: None if text is None else json.loads(text),
         # Randomised from a plan? And did the settings run follow it?
-        "against": plans.deviations(session, fit.data_version),
+        "plan_check": plans.deviations(session, fit.data_version),
     }
 
 
@@ -191,4 +205,5 @@ def _failed(fit_id: int, exc: WorkflowError):
     session.rollback()
     fit = fits.get_fit(session, fit_id)
     return render_template("reviews/review.html", error=exc.message, error_field=exc.field,
-                           form=request.form, **review_context(session, fit)), exc.status
+                           error_at=request.endpoint.rsplit(".", 1)[-1], form=request.form,
+                           **review_context(session, fit)), exc.status

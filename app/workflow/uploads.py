@@ -10,6 +10,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from app.ingest import ColumnRole, DesignTable, RawTable, load_canonical, read_upload, validate
+from app.ingest.diff import TableDifferences, table_differences
 from app.store import audit
 from app.store.models import DataVersion, Plan, Study, User
 from app.workflow import NotFound, WorkflowError, in_id_range, teams
@@ -92,3 +93,26 @@ def design_table(version: DataVersion) -> DesignTable:
         raise WorkflowError(f"Data version {version.id} does not match its stored hash.",
                             status=500)
     return load_canonical(version.canonical_csv, version.roles_json)
+
+
+def previous_version(session: Session, version: DataVersion) -> DataVersion | None:
+    """The study's data version just before ``version`` (None for the first)."""
+    return session.scalar(select(DataVersion).where(DataVersion.study_id == version.study_id,
+                                                    DataVersion.version < version.version)
+                          .order_by(DataVersion.version.desc()).limit(1))
+
+
+def version_differences(session: Session, version: DataVersion, against_id: int | None = None
+                        ) -> tuple[DataVersion | None, TableDifferences | None]:
+    """``version`` compared with another version of the same study (default: the previous
+    one): that version and the differences from it to ``version``, or (None, None)."""
+    if against_id is None:
+        against = previous_version(session, version)
+    else:
+        against = get_data_version(session, against_id)
+        if against.study_id != version.study_id:
+            raise WorkflowError(f"Data version {against_id} belongs to another study; compare "
+                                "versions of the same study.", field="against")
+    if against is None:
+        return None, None
+    return against, table_differences(design_table(against), design_table(version))

@@ -97,7 +97,10 @@ def test_engineer_fits_checks_and_compares(page):
     assert page.url.endswith("#chart-normal_probability")
     page.click("figure[data-chart='normal_probability'] summary")
     assert page.locator("figure[data-chart='normal_probability'] details table tbody tr"
-                        ).count() == 19
+                        ":not(.left-out)").count() == 19
+    # the run left out is listed too, marked as such
+    left_out = page.locator("figure[data-chart='normal_probability'] tr.left-out")
+    assert left_out.count() == 1 and "left out" in left_out.inner_text()
 
     # Change and fit again: a new fit, then both side by side.
     page.click("text=Change and fit again")

@@ -254,3 +254,166 @@ def test_predict_grid_averages_a_categorical_factor_over_its_levels(categorical)
     one = charts.predict_grid(model, {"Machine": "M1", "A": np.array([0.5]),
                                       "B": np.array([-0.25])})
     assert_allclose(one[0], each[1], rtol=1e-12)
+
+
+def _left_out_layer(spec: dict) -> dict:
+    return next(layer for layer in spec["layer"] if layer.get("name") == "left_out")
+
+
+def test_left_out_run_is_drawn_hollow_and_grey_on_every_run_chart(rsm, validator):
+    results, covariates = rsm
+    built = {c.name: c for c in charts.all_charts(results, covariates=covariates)}
+    drawn = [c for c in built.values() if _is_run_chart(c.name) or c.name == "contour"]
+    assert len(drawn) >= 10
+    for chart in drawn:
+        assert not list(validator.iter_errors(chart.spec)), chart.name
+        # not part of the statistics: the fitted runs' dataset does not hold it
+        assert 3 not in {r["row"] for r in _rows(chart.spec)}, chart.name
+        left = chart.spec["datasets"]["left_out"]
+        assert [(r["row"], r["label"], r["reason"]) for r in left] == [
+            (3, "CV40-R03", "panel scratched")], chart.name
+        layer = _left_out_layer(chart.spec)
+        assert layer["mark"]["color"] == "#8a8f98", chart.name
+        assert layer["mark"].get("filled") is False or layer["mark"]["type"] == "tick"
+        assert "reason" in {t["field"] for t in layer["encoding"]["tooltip"]}
+        for axis in ("x", "y"):
+            field = layer["encoding"][axis].get("field")
+            if field:
+                assert left[0][field] is not None, (chart.name, axis)
+        assert chart.left_out == [("CV40-R03", 3, 3, "panel scratched")], chart.name
+        assert "left out" in chart.note
+    # the settings it was run at, on the factor and contour charts
+    assert built["residuals_vs_factor:Catalyst"].spec["datasets"]["left_out"][0]["level"] == 0.8
+    contour_left = built["contour"].spec["datasets"]["left_out"][0]
+    assert (contour_left["px"], contour_left["py"]) == (150.0, 30.0)
+
+
+def test_left_out_run_scores_agree_with_statsmodels_prediction(rsm):
+    """Residual = observed − prediction; studentized = residual / se_obs and leverage =
+    (se_mean / s)² from statsmodels OLS.get_prediction on the fitted runs alone."""
+    import pandas as pd
+    import statsmodels.api as sm
+
+    results, _ = rsm
+    runs = pd.DataFrame([{**r["coded"], "y": r["observed"], "row": r["row"],
+                          "excluded": r["excluded"]} for r in results["runs"]])
+    names = ["Cure temperature", "Cure time", "Catalyst"]
+    x = pd.DataFrame({"const": 1.0, **{n: runs[n] for n in names}})
+    for i, a in enumerate(names):
+        for b in names[i + 1:]:
+            x[f"{a}:{b}"] = runs[a] * runs[b]
+    for n in names:
+        x[f"{n}^2"] = runs[n] ** 2
+    keep = ~runs["excluded"]
+    ols = sm.OLS(runs["y"][keep], x[keep]).fit()
+    pred = ols.get_prediction(x[~keep])
+    residual = float(runs["y"][~keep].iloc[0] - pred.predicted_mean[0])
+    s = float(np.sqrt(ols.scale))
+    chart = {c.name: c for c in charts.all_charts(results)}
+    on_leverage = chart["leverage"].spec["datasets"]["left_out"][0]
+    on_fitted = chart["residuals_vs_fitted"].spec["datasets"]["left_out"][0]
+    assert_allclose(on_fitted["residual"], residual, rtol=1e-9)
+    assert_allclose(on_leverage["studentized"], residual / pred.se_obs[0], rtol=1e-9)
+    assert_allclose(on_leverage["leverage"], (pred.se_mean[0] / s) ** 2, rtol=1e-9)
+
+
+def test_charts_without_left_out_runs_draw_no_extra_layer(screening):
+    results, covariates = screening
+    for chart in charts.all_charts(results, covariates=covariates):
+        assert "left_out" not in chart.spec.get("datasets", {}), chart.name
+        assert chart.left_out == []
+
+
+def _demo_frame(demo):
+    import io
+
+    import pandas as pd
+
+    return pd.read_csv(io.BytesIO(demo.csv_bytes))
+
+
+def test_main_effects_of_a_two_level_design_are_observed_means(screening, validator):
+    """Checked against pandas groupby on the uploaded file itself."""
+    results, _ = screening
+    chart = {c.name: c for c in charts.all_charts(results)}["main_effects"]
+    assert not list(validator.iter_errors(chart.spec))
+    frame = _demo_frame(screening_study())
+    for i, name in enumerate(f["name"] for f in results["factors"]):
+        expected = frame.groupby(name)["Film thickness"].agg(["mean", "count"])
+        plotted = chart.spec["datasets"][f"main_{i}"]
+        assert [d["level"] for d in plotted] == expected.index.tolist(), name
+        assert_allclose([d["mean"] for d in plotted], expected["mean"], rtol=1e-12)
+        assert [d["runs"] for d in plotted] == expected["count"].tolist()
+        assert chart.spec["concat"][i]["title"] == f"{name} (observed mean)"
+
+
+def test_interaction_plot_lines_are_cell_means_at_low_and_high(saturated):
+    results, _ = saturated
+    chart = {c.name: c for c in charts.all_charts(results)}["interactions"]
+    frame = _demo_frame(screening_study())
+    pairs = [t["name"].split(":") for t in results["model"]["terms"] if ":" in t["name"]]
+    assert len(chart.spec["concat"]) == len(pairs) == 10
+    x, trace = pairs[0]
+    plotted = chart.spec["datasets"]["pair_0"]
+    for held_at, word in ((frame[trace].min(), "low"), (frame[trace].max(), "high")):
+        cells = frame[frame[trace] == held_at].groupby(x)["Film thickness"].mean()
+        line = [d for d in plotted if d["held"] == f"{trace} {word} ({held_at:g})"]
+        assert [d["level"] for d in line] == cells.index.tolist()
+        assert_allclose([d["mean"] for d in line], cells.to_numpy(), rtol=1e-12)
+
+
+def test_main_effects_of_a_composite_design_are_predictions_and_say_so(rsm):
+    results, _ = rsm
+    built = {c.name: c for c in charts.all_charts(results)}
+    chart = built["main_effects"]
+    assert "Cure temperature: model prediction" in chart.note
+    trace = chart.spec["datasets"]["main_0"]
+    end = predict(results, {"Cure temperature": trace[-1]["level"], "Cure time": 25.0,
+                            "Catalyst": 1.0})["predicted"]
+    assert_allclose(trace[-1]["mean"], end, rtol=1e-9)
+    # three two-factor interactions in the quadratic model, lines at declared low and high
+    pairs = built["interactions"].spec["datasets"]
+    assert len(pairs) == 3
+    assert {d["held"] for d in pairs["pair_0"]} == {"Cure time low (20)", "Cure time high (30)"}
+
+
+def test_linear_model_has_no_interaction_plot(screening):
+    results, _ = screening
+    assert "interactions" not in {c.name for c in charts.all_charts(results)}
+
+
+def test_iso_segments_of_a_plane_lie_exactly_on_its_level_lines():
+    """A plane z = 3 + 2x − y: linear interpolation along the cell edges is exact."""
+    from app.web.charts_contour import iso_segments, nice_levels
+
+    xs, ys = np.linspace(-1, 1, 11), np.linspace(0, 4, 9)
+    gx, gy = np.meshgrid(xs, ys)
+    z = 3 + 2 * gx - gy
+    levels = nice_levels(z)
+    assert levels.tolist() == [-2.0, 0.0, 2.0, 4.0]  # range -3 … 5 in steps of 2
+    for level in levels:
+        pieces = np.array(iso_segments(xs, ys, z, level))
+        assert len(pieces)
+        for x, y in (pieces[:, :2].T, pieces[:, 2:].T):
+            assert_allclose(3 + 2 * x - y, level, atol=1e-12)
+
+
+def test_contour_lines_are_labelled_and_close_to_the_model(rsm, validator):
+    results, _ = rsm
+    chart = charts.contour(results, "Cure temperature", "Cure time")
+    assert not list(validator.iter_errors(chart.spec))
+    segments = chart.spec["datasets"]["iso"]
+    labels = chart.spec["datasets"]["iso_labels"]
+    assert len(labels) >= 4 and {d["level"] for d in segments} == {d["level"] for d in labels}
+    # each piece's ends sit where predict() gives the line's value (within the grid's
+    # interpolation error: the surface is curved, the grid 31 × 31)
+    spread = max(c["predicted"] for c in chart.spec["datasets"]["surface"]) - min(
+        c["predicted"] for c in chart.spec["datasets"]["surface"])
+    for d in segments[::7]:
+        at = predict(results, {"Cure temperature": d["x"], "Cure time": d["y"],
+                               "Catalyst": 1.0})["predicted"]
+        assert abs(at - d["level"]) < 0.01 * spread
+    # labels name their values; the held factor is in the subtitle and the note
+    assert all(d["text"] == f"{d['level']:g}" for d in labels)
+    assert chart.spec["title"]["subtitle"] == "Held: Catalyst at 1 %"
+    assert "Held: Catalyst at 1 %" in chart.note and "Lines where" in chart.note

@@ -97,3 +97,23 @@ def test_small_designs_keep_one_point_per_run(big):
     fitted = next(c for c in built if c.name == "residuals_vs_fitted")
     assert "bins" not in fitted.spec["datasets"]
     assert len(fitted.spec["datasets"]["runs"]) == int(small.included.sum())
+
+
+def test_binned_charts_draw_left_out_runs_on_top():
+    rng = np.random.default_rng(11)
+    x = rng.integers(-1, 2, size=(N, 2)).astype(float)
+    y = 5 + x @ [1.0, 2.0] + rng.normal(size=N)
+    frame = pd.DataFrame({"A": x[:, 0], "B": x[:, 1], "Y": y}, index=pd.RangeIndex(1, N + 1))
+    spec = FitSpec(response="Y", factors=(Factor("A"), Factor("B")), model="interaction",
+                   exclusions=((5, "sensor fault"), (6000, "sample lost")))
+    doc, block = analyse(frame, spec).stored()
+    cols = runstore.decode(block)
+    validator = jsonschema.Draft7Validator(load_schema())
+    for chart in charts.all_charts(doc, cols=cols):
+        if "bins" not in chart.spec["datasets"] and chart.name != "contour":
+            continue
+        assert not list(validator.iter_errors(chart.spec)), chart.name
+        left = chart.spec["datasets"]["left_out"]
+        assert [(r["row"], r["reason"]) for r in left] == [(5, "sensor fault"),
+                                                           (6000, "sample lost")], chart.name
+        assert [r[2] for r in chart.left_out] == [5, 6000]

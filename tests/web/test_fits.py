@@ -30,6 +30,23 @@ def _fit(actions, version_id, **fields):
     return actions.post(f"/data/{version_id}/fit", data=data)
 
 
+FIELDSETS = {"response": "fs-response", "terms": "fs-model", "model": "fs-model",
+             "boxcox_lambda": "fs-transform", "reduce_alpha": "fs-reduce",
+             "exclusions": "fs-exclusions"}
+
+
+def _assert_error_beside(page: str, field: str, message: str) -> None:
+    """The message sits in the form part the field belongs to, and the summary links there;
+    no "(field: …)" text is appended."""
+    fieldset = FIELDSETS[field]
+    assert "(field:" not in page
+    assert f'href="#{fieldset}"' in page
+    start = page.index(f'<fieldset id="{fieldset}" class="has-error"')
+    part = page[start:page.index("</fieldset>", start)]
+    assert f'<p class="field-error" id="{fieldset}-error">' in part
+    assert message.replace("'", "&#39;") in part
+
+
 def _count_fits(db) -> int:
     with db.session() as s:
         return s.scalar(select(func.count()).select_from(Fit))
@@ -86,7 +103,7 @@ def test_exclusion_without_reason_is_refused_and_names_the_field(actions, db, ve
     assert response.status_code == 400
     page = response.get_data(as_text=True)
     assert "Excluding row 5 needs a written reason." in page
-    assert "(field: exclusions)" in page
+    _assert_error_beside(page, "exclusions", "Excluding row 5 needs a written reason.")
     # The builder comes back with the choice kept, and nothing was stored.
     assert re.search(r'name="exclude" value="5"[^>]*checked', page)
     assert _count_fits(db) == 0
@@ -110,7 +127,7 @@ def test_bad_choices_re_render_the_builder_naming_the_field(actions, db, version
     assert response.status_code == 400
     page = response.get_data(as_text=True)
     assert message.replace("'", "&#39;") in page
-    assert f"(field: {field})" in page
+    _assert_error_beside(page, field, message)
     assert _count_fits(db) == 0
 
 
@@ -122,7 +139,8 @@ def test_box_cox_lambda_outside_the_search_range_is_refused(actions, db, version
     page = response.get_data(as_text=True)
     low, high = LAMBDA_RANGE
     assert f"Box–Cox λ must lie between {low:g} and {high:g}" in page
-    assert "(field: boxcox_lambda)" in page and f'value="{typed}"' in page
+    _assert_error_beside(page, "boxcox_lambda", "Box–Cox λ must lie between")
+    assert f'value="{typed}"' in page
     assert _count_fits(db) == 0
 
 
@@ -348,3 +366,41 @@ def test_a_run_without_a_response_is_kept_and_left_out_with_a_reason(actions, db
         as_text=True)
     charts = client.get(f"/fits/{fitted.get_json()['id']}/charts.json")
     assert charts.status_code == 200
+
+
+def test_same_factor_on_both_contour_axes_is_a_clear_400_on_the_fit_page(actions, version_id):
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id).headers["Location"].rsplit("/", 1)[1])
+    response = actions.client.get(f"/fits/{fit_id}?x=Catalyst&y=Catalyst")
+    assert response.status_code == 400
+    page = response.get_data(as_text=True)
+    assert 'id="contour-error"' in page and "“Catalyst” was chosen for both axes" in page
+    # the rest of the fit page is there, with the default contour
+    assert f"Fit {fit_id}" in page and 'data-chart="contour"' in page
+    assert 'name="y" aria-invalid="true"' in page
+    unknown = actions.client.get(f"/fits/{fit_id}?x=Catalyst&y=Nope")
+    assert unknown.status_code == 400 and "must be factors of this fit" in unknown.get_data(
+        as_text=True)
+    # and a good pair afterwards is not served the error from a cache
+    good = actions.client.get(f"/fits/{fit_id}?x=Cure+time&y=Catalyst")
+    assert good.status_code == 200 and "contour-error" not in good.get_data(as_text=True)
+
+
+def test_reduction_steps_read_to_four_figures_and_the_header_names_the_reduced_model(
+        actions, db, version_id):
+    import re
+
+    actions.login("erin")
+    fit_id = int(_fit(actions, version_id, reduce="on", reduce_alpha="0.05")
+                 .headers["Location"].rsplit("/", 1)[1])
+    with db.session() as s:
+        results = fit_service.results_of(s.get(Fit, fit_id))
+    assert results["reduction"], "the demo quadratic should lose a term at 0.05"
+    page = actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    step = results["reduction"][0]
+    assert f"Removed <strong>{step['term']}</strong>: p value {step['p_value']:.4g}" in page
+    assert not re.search(r"\d\.\d{6,}", page.split("Model reduction steps", 1)[1]
+                         .split("</section>", 1)[0]), "raw floats in the reduction steps"
+    summary = page.split('class="summary-line">', 1)[1].split("</p>", 1)[0]
+    assert "reduced from quadratic" in summary
+    assert f"{len(results['terms'])} terms: " + ", ".join(results["terms"]) in summary

@@ -175,3 +175,56 @@ def test_review_page_states_the_adjustment_and_what_a_pass_is_worth(db, actions,
     assert "What a pass is worth in this design" in page
     assert "Simulated for central composite, 3 factors, 20 runs" in page
     assert "AR(1) ρ = 0.6 in run order" in page
+
+
+def _section(page: str, marker: str) -> str:
+    start = page.index(marker)
+    return page[start:page.index("</section>", start)]
+
+
+def test_wrong_password_shows_beside_the_sign_form(db, actions, fit_id):
+    h.submit(db, fit_id)
+    actions.login("abel")
+    response = actions.post(f"/fits/{fit_id}/sign", {"meaning": reviews.APPROVE,
+                                                     "password": "guess", "row_version": "2"})
+    page = response.get_data(as_text=True)
+    sign = _section(page, 'id="sign"')
+    assert 'id="sign-error"' in sign and "password is wrong" in sign
+    assert 'aria-describedby="sign-error"' in sign
+    # said once, beside the form, not at the top of the page
+    assert page.count("password is wrong") == 1
+
+
+def test_author_who_is_also_an_approver_is_told_why_instead_of_offered_the_form(
+        db, client, actions, users):
+    with db.transaction() as s:
+        accounts.create_user(s, None, username="bo", full_name="Bo Both",
+                             roles="engineer,approver", password=PASSWORD)
+    study_id = h.make_study(db)
+    h.join(db, study_id, "bo")
+    fit_id = h.make_fit(db, h.add_version(db, study_id), author="bo", model="linear")
+    h.submit(db, fit_id)
+    actions.login("bo")
+    page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
+    sign = _section(page, 'id="sign"')
+    assert 'id="sign-barred"' in sign and "You made or submitted this fit" in sign
+    assert f'action="/fits/{fit_id}/sign"' not in page
+    actions.logout()
+    actions.login("abel")
+    page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
+    assert f'action="/fits/{fit_id}/sign"' in page and "sign-barred" not in page
+
+
+def test_review_page_leads_with_the_question_and_lists_left_out_runs_with_their_settings(
+        db, actions, client, fit_id):
+    actions.login("abel")
+    page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
+    checks = page.split('<table class="checks">', 1)[1].split("</table>", 1)[0]
+    assert ('<td>Do residuals look normal?<br><small class="muted check-id">normality</small>'
+            in checks)
+    left = page.split('<table class="excluded-runs">', 1)[1].split("</table>", 1)[0]
+    # row 3 of the demo file: CV40-R03 at 150 °C, 30 min, 0.8 %, hardness 116.5
+    cells = [c.split(">", 1)[1] for c in left.split("<td")[1:]]
+    cells = [c.split("</td>", 1)[0] for c in cells]
+    assert cells == ["CV40-R03", "3", "3", "150", "30", "0.8", "116.5",
+                     "panel scratched before measurement"]

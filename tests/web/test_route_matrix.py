@@ -49,6 +49,7 @@ POLICY: dict[str, set[str] | str] = {
     "data.view": ANY,
     "data.original": ANY,
     "data.canonical": ANY,
+    "data.differences_csv": ANY,
 }
 for _module in pkgutil.iter_modules(policies.__path__):
     POLICY.update(importlib.import_module(f"{policies.__name__}.{_module.name}").POLICY)
@@ -135,8 +136,9 @@ JSON_IDS = {"api_setpoints.create": lambda ids: {"fits": [ids["fit_id"]],
 # answers with the study page and the refusal (302), the API with 403.
 OWNER_ONLY = {"studies.thresholds", "studies.add_member", "studies.remove_member",
               "api_teams.add_member", "api_teams.remove_member"}
-# A 404 about something else than the study: a staged upload's token that does not exist.
-OTHER_404 = {"data.preview", "data.confirm"}
+# A 404 about something else than the study: a staged upload's token that does not exist, the
+# differences of a study's first data version (there is no earlier one).
+OTHER_404 = {"data.preview", "data.confirm", "data.differences_csv"}
 
 
 @pytest.fixture

@@ -10,6 +10,7 @@ POLICY = {
     "api.get_study": "signed-in",
     "api.upload_data": {"engineer"},
     "api.get_data": "signed-in",
+    "api.data_diff": "signed-in",
     "api.create_fit": {"engineer"},
     "api.get_fit": "signed-in",
     "api_runs.page": "signed-in",
