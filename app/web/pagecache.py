@@ -10,26 +10,52 @@ cached or not.
 
 Not cached: a request with flashed messages waiting (they are shown once), and anything that
 raises (a 404 stays a 404). The cache is per process, bounded in bytes
-(``PAGE_CACHE_MB``, 0 turns it off; ``app.caches``), least recently used first out.
+(``PAGE_CACHE_MB``, 0 turns it off; ``app.caches``), least recently used first out. Each entry
+keeps the page gzip-compressed as well, made once, for browsers that accept it (all do): the
+fit page's 86 KB go out as about a sixth of that.
 """
 
 from __future__ import annotations
 
+import gzip
 import hashlib
 from collections.abc import Callable, Iterable
+from typing import NamedTuple
 
-from flask import current_app, g, request, session
+from flask import Response, current_app, g, request, session
 
 from app.caches import ByteCache
 from app.web.access import csrf_token
 from app.web.freshness import chain_position
 
 
+class Page(NamedTuple):
+    """A rendered page as sent: UTF-8 bytes, and the same gzip-compressed (made once)."""
+
+    body: bytes
+    gzipped: bytes
+
+
 class PageCache(ByteCache):
-    """Rendered pages (encoded), bounded in bytes by their length."""
+    """Rendered pages, bounded in bytes by their length (both forms)."""
 
     def __init__(self, max_bytes: int):
-        super().__init__(max_bytes, sizeof=len)
+        super().__init__(max_bytes, sizeof=lambda page: len(page.body) + len(page.gzipped))
+
+
+# Quick compression: most of a page is repeated markup, and it is compressed once per entry.
+GZIP_LEVEL = 6
+
+
+def _response(page: Page) -> Response:
+    """The page in the form the browser accepts (gzip when it says so, as browsers do)."""
+    if request.accept_encodings["gzip"]:
+        response = Response(page.gzipped, mimetype="text/html")
+        response.headers["Content-Encoding"] = "gzip"
+    else:
+        response = Response(page.body, mimetype="text/html")
+    response.vary.add("Accept-Encoding")
+    return response
 
 
 def _cache() -> PageCache | None:
@@ -57,7 +83,7 @@ def rows_digest(rows: Iterable[Iterable]) -> str:
     return digest.hexdigest()
 
 
-def render(page: tuple, build: Callable[[], str], live: str = "") -> bytes | str:
+def render(page: tuple, build: Callable[[], str], live: str = "") -> Response | str:
     """The page ``build()`` renders, reused while nothing it shows can have changed (kept
     encoded, as it is sent).
 
@@ -74,8 +100,8 @@ def render(page: tuple, build: Callable[[], str], live: str = "") -> bytes | str
                                       user.must_change_password),
            token)
     found = cache.get(key)
-    if found is not None:
-        return found
-    built = build().encode()
-    cache.put(key, built)
-    return built
+    if found is None:
+        body = build().encode()
+        found = Page(body, gzip.compress(body, compresslevel=GZIP_LEVEL, mtime=0))
+        cache.put(key, found)
+    return _response(found)

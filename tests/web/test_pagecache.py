@@ -10,7 +10,7 @@ from sqlalchemy import text
 
 from app.store.audit import canonical_json
 from app.store.models import Fit
-from app.web.pagecache import PageCache, rows_digest
+from app.web.pagecache import Page, PageCache, rows_digest
 from app.workflow import accounts
 from tests.store.signed_rows import drop_signed_row_triggers
 from tests.workflow import helpers as h
@@ -133,13 +133,17 @@ def test_the_cache_can_be_turned_off(app, actions, fit_ids):
 
 
 def test_the_cache_keeps_within_its_byte_budget_dropping_the_oldest():
+    """Both forms of a page count against the budget (4 + 1 bytes each here)."""
+    def page(text):
+        return Page(text, text[:1])
+
     cache = PageCache(max_bytes=10)
-    cache.put(("a",), b"aaaa")
-    cache.put(("b",), b"bbbb")
-    assert cache.get(("a",)) == b"aaaa"  # now the most recently used
-    cache.put(("c",), b"cccc")
-    assert cache.get(("b",)) is None and cache.get(("a",)) == b"aaaa" and len(cache) == 2
-    cache.put(("big",), b"x" * 11)  # larger than the whole budget: not kept
+    cache.put(("a",), page(b"aaaa"))
+    cache.put(("b",), page(b"bbbb"))
+    assert cache.get(("a",)) == page(b"aaaa")  # now the most recently used
+    cache.put(("c",), page(b"cccc"))
+    assert cache.get(("b",)) is None and cache.get(("a",)) == page(b"aaaa") and len(cache) == 2
+    cache.put(("big",), Page(b"x" * 10, b"x"))  # larger than the whole budget: not kept
     assert cache.get(("big",)) is None
 
 
@@ -148,3 +152,20 @@ def test_row_digests_tell_apart_rows_whose_text_runs_together():
     assert rows_digest([(1,)]) != rows_digest([("1",)])
     assert rows_digest([(None,)]) != rows_digest([("None",)])
     assert rows_digest([("x",), ("y",)]) == rows_digest([("x",), ("y",)])
+
+
+def test_a_browser_that_accepts_gzip_gets_the_same_page_compressed(client, actions, db, users):
+    import gzip as gzip_module
+
+    from tests.workflow import helpers as h
+
+    study_id = h.make_study(db)
+    actions.login("erin")
+    plain = client.get(f"/studies/{study_id}")
+    packed = client.get(f"/studies/{study_id}", headers={"Accept-Encoding": "gzip, deflate"})
+    assert "Content-Encoding" not in plain.headers
+    assert packed.headers["Content-Encoding"] == "gzip"
+    assert "Accept-Encoding" in packed.headers["Vary"]
+    assert gzip_module.decompress(packed.data) == plain.data
+    assert packed.headers["Content-Type"] == plain.headers["Content-Type"] == (
+        "text/html; charset=utf-8")
