@@ -300,12 +300,11 @@ def _other_fits(fit: Fit) -> list[Fit]:
 @bp.route("/fits/<int:fit_id>")
 @allow(SIGNED_IN)
 def view(fit_id: int):
-    rows = fits.checked_rows(get_session(), fit_id)
-    if rows is None:
+    live = fits.checked_digest(get_session(), fit_id)
+    if live is None:
         fits.get_fit(get_session(), fit_id)  # raises the plain 404
     try:
-        return pagecache.render(("fit", fit_id), lambda: _render_view(fit_id),
-                                live=pagecache.rows_digest(rows))
+        return pagecache.render(("fit", fit_id), lambda: _render_view(fit_id), live=live)
     except ContourChoiceError as exc:
         # the page with its default contour and the reason beside the contour's form
         return _render_view(fit_id, contour_error=exc), 400

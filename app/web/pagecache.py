@@ -18,8 +18,7 @@ fit page's 86 KB go out as about a sixth of that.
 from __future__ import annotations
 
 import gzip
-import hashlib
-from collections.abc import Callable, Iterable
+from collections.abc import Callable
 from typing import NamedTuple
 
 from flask import Response, current_app, g, request, session
@@ -27,6 +26,7 @@ from flask import Response, current_app, g, request, session
 from app.caches import ByteCache
 from app.web.access import csrf_token
 from app.web.freshness import chain_position
+from app.workflow.digests import rows_digest  # noqa: F401  (pages' live digests)
 
 
 class Page(NamedTuple):
@@ -68,19 +68,6 @@ def _cache() -> PageCache | None:
         cache = app.extensions.setdefault("plumbline.page_cache",
                                           PageCache(int(megabytes * 1024 * 1024)))
     return cache
-
-
-def rows_digest(rows: Iterable[Iterable]) -> str:
-    """SHA-256 over rows of stored values (for pages that show a live integrity check)."""
-    digest = hashlib.sha256()
-    for row in rows:
-        for value in row:
-            # Type and length before each value: no two different rows share an encoding.
-            raw = value if isinstance(value, bytes) else str(value).encode()
-            digest.update(f"{type(value).__name__}:{len(raw)}:".encode())
-            digest.update(raw)
-        digest.update(b"\x1e")
-    return digest.hexdigest()
 
 
 def render(page: tuple, build: Callable[[], str], live: str = "") -> Response | str:

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+from collections.abc import Iterable
 from typing import Any
 
 from sqlalchemy import select
@@ -105,3 +106,16 @@ def confirmation_record_sha256(run: ConfirmationRun) -> str:
         "setpoint_id": run.setpoint_id, "filename": run.filename,
         "original_sha256": run.original_sha256, "results_json": run.results_json,
     }).encode()).hexdigest()
+
+
+def rows_digest(rows: Iterable[Iterable]) -> str:
+    """SHA-256 over rows of stored values (for pages that show a live integrity check)."""
+    digest = hashlib.sha256()
+    for row in rows:
+        for value in row:
+            # Type and length before each value: no two different rows share an encoding.
+            raw = value if isinstance(value, bytes) else str(value).encode()
+            digest.update(f"{type(value).__name__}:{len(raw)}:".encode())
+            digest.update(raw)
+        digest.update(b"\x1e")
+    return digest.hexdigest()

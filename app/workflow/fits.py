@@ -5,6 +5,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import uuid
 from collections.abc import Iterator
 from typing import Any, NamedTuple
 
@@ -28,6 +29,7 @@ from app.workflow.digests import (  # noqa: F401  (their home is app.workflow.di
     fit_snapshot_document as snapshot_document,
 )
 from app.workflow.digests import fit_snapshot_sha256 as snapshot_sha256
+from app.workflow.digests import rows_digest
 from app.workflow.uploads import design_table
 
 
@@ -232,6 +234,37 @@ def overview(study, fits_newest_first: list[Fit]) -> list[dict[str, Any]]:
         rows.append({"response": response, "fit": fit, "verdicts": counts,
                      "on_latest": fit is not None and fit.data_version_id == latest.id})
     return rows
+
+
+# On SQLite, ``PRAGMA data_version`` tells a connection whether any other connection has
+# committed since it last asked. The read engine's connections never write, so while the number
+# holds, no row the live checks read can have changed, whoever changed it (a service, another
+# process, someone with the file): the digest made then still holds. Keyed per pooled
+# connection (a token kept in its ``info``, which lives as long as the DBAPI connection).
+_LIVE_DIGESTS = ByteCache(1 * MB, sizeof=lambda _v: 256)
+
+
+def checked_digest(session: Session, fit_id: int) -> str | None:
+    """SHA-256 over :func:`checked_rows` (None when there is no fit), recomputed on SQLite only
+    when some connection has committed since this one last looked."""
+    if not in_id_range(fit_id):
+        return None
+    connection = session.connection()
+    if connection.dialect.name != "sqlite":
+        rows = checked_rows(session, fit_id)
+        return None if rows is None else rows_digest(rows)
+    marker = connection.exec_driver_sql("PRAGMA data_version").scalar()
+    token = connection.connection.info.setdefault("plumbline.connection", uuid.uuid4().hex)
+    key = (token, fit_id)
+    found = _LIVE_DIGESTS.get(key)
+    if found is not None and found[0] == marker:
+        return found[1]
+    rows = checked_rows(session, fit_id)
+    if rows is None:
+        return None
+    digest = rows_digest(rows)
+    _LIVE_DIGESTS.put(key, (marker, digest))
+    return digest
 
 
 def results_of(fit: Fit) -> dict[str, Any]:

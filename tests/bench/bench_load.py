@@ -10,8 +10,8 @@ Target (issue "Fast at any size"): study and fit pages' p95 ≤ 3 × the baselin
 clients.
 
 Before the timed rounds every client asks every route once (warm-up; the first request of each
-route is timed and printed on its own). Clients send Accept-Encoding: gzip, deflate as browsers do (the study and fit pages then come
-compressed; the bytes are read, not decompressed).
+route is timed and printed on its own). Clients send Accept-Encoding: gzip, deflate as browsers
+do (the study and fit pages then come compressed; the bytes are read, not decompressed).
 
 Knobs: BENCH_REQUESTS (per route, 800), BENCH_LOGINS (64), BENCH_CLIENTS (16), BENCH_THREADS
 (server threads; default: what `plumbline serve` uses).

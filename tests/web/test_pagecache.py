@@ -169,3 +169,25 @@ def test_a_browser_that_accepts_gzip_gets_the_same_page_compressed(client, actio
     assert gzip_module.decompress(packed.data) == plain.data
     assert packed.headers["Content-Type"] == plain.headers["Content-Type"] == (
         "text/html; charset=utf-8")
+
+
+def test_tampering_from_outside_the_application_shows_too(app, actions, db, fit_ids, backend):
+    """Someone with the database file and the sqlite3 tool, no SQLAlchemy involved: the fit
+    page's live digest is rebuilt because SQLite reports that another connection committed."""
+    if backend != "sqlite":
+        pytest.skip("the sqlite3 tool only opens SQLite files")
+    import sqlite3
+
+    _, _, fit_id = fit_ids
+    actions.login("erin")
+    for _ in range(2):  # the second request is served from the caches
+        assert "hash verified" in actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    path = app.config["DATABASE_URL"].removeprefix("sqlite:///")
+    with sqlite3.connect(path) as raw:
+        for (name,) in raw.execute("SELECT name FROM sqlite_master WHERE type = 'trigger' "
+                                   "AND tbl_name = 'fits'").fetchall():
+            raw.execute(f"DROP TRIGGER {name}")
+        raw.execute("UPDATE fits SET software_version = 'edited' WHERE id = ?", (fit_id,))
+    raw.close()
+    page = actions.client.get(f"/fits/{fit_id}").get_data(as_text=True)
+    assert "hash does not match" in page and "hash verified" not in page
