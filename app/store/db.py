@@ -7,6 +7,7 @@ busy timeout instead of failing with "database is locked" when a read lock is up
 
 from __future__ import annotations
 
+import uuid
 from collections.abc import Iterator
 from contextlib import contextmanager
 from typing import TYPE_CHECKING
@@ -127,3 +128,16 @@ def _close_session(_exc: BaseException | None) -> None:
     session = g.pop("db_session", None)
     if session is not None:
         session.close()
+
+
+def change_marker(session: Session) -> tuple[str, int] | None:
+    """On SQLite: a token for the session's pooled connection and its ``PRAGMA data_version``,
+    which changes whenever any other connection (a service's write, another process, the
+    sqlite3 tool) has committed since this connection last asked. Read connections never
+    write, so while the pair is the same nothing stored has changed. None on other databases.
+    """
+    connection = session.connection()
+    if connection.dialect.name != "sqlite":
+        return None
+    token = connection.connection.info.setdefault("plumbline.connection", uuid.uuid4().hex)
+    return token, int(connection.exec_driver_sql("PRAGMA data_version").scalar())

@@ -30,7 +30,7 @@ from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.db import get_session
 from app.store.models import Fit
-from app.web import charts, pagecache
+from app.web import charts, freshness, pagecache
 from app.web.access import SIGNED_IN, allow
 from app.web.common import attachment, id_field, me, read_session, tx
 from app.workflow import WorkflowError, fits, reviews, teams, uploads
@@ -300,7 +300,7 @@ def _other_fits(fit: Fit) -> list[Fit]:
 @bp.route("/fits/<int:fit_id>")
 @allow(SIGNED_IN)
 def view(fit_id: int):
-    live = fits.checked_digest(get_session(), fit_id)
+    live = fits.checked_digest(get_session(), fit_id, freshness.marker())
     if live is None:
         fits.get_fit(get_session(), fit_id)  # raises the plain 404
     try:

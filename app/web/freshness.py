@@ -27,7 +27,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import make_transient_to_detached
 
 from app.caches import MB, ByteCache
-from app.store.db import get_session
+from app.store.db import change_marker, get_session
 from app.store.models import ChainHead, User
 
 _HEAD = ChainHead.__table__
@@ -37,11 +37,26 @@ _ENTRY_BYTES = 2048
 _USER_COLUMNS = tuple(c.key for c in User.__mapper__.column_attrs)
 
 
+def marker() -> tuple[str, int] | None:
+    """The request's connection change marker (app.store.db.change_marker), read once."""
+    if "change_marker" not in g:
+        g.change_marker = change_marker(get_session())
+    return g.change_marker
+
+
 def chain_position() -> tuple[int, str]:
-    """The audit chain head (sequence number and hash), read once per request."""
+    """The audit chain head (sequence number and hash), read once per request; on SQLite
+    reused from this connection's last reading while no connection has committed since."""
     if "chain_position" not in g:
-        row = get_session().execute(_CHAIN_HEAD).first()
-        g.chain_position = (0, "") if row is None else (row[0], row[1])
+        seen = marker()
+        cache = _cache("plumbline.chain_positions")
+        found = None if seen is None else cache.get(seen)
+        if found is None:
+            row = get_session().execute(_CHAIN_HEAD).first()
+            found = (0, "") if row is None else (row[0], row[1])
+            if seen is not None:
+                cache.put(seen, found)
+        g.chain_position = found
     return g.chain_position
 
 

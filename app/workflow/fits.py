@@ -5,7 +5,6 @@ from __future__ import annotations
 import csv
 import io
 import json
-import uuid
 from collections.abc import Iterator
 from typing import Any, NamedTuple
 
@@ -20,6 +19,7 @@ from app.analysis.boxcox import LAMBDA_RANGE
 from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.audit import canonical_json
+from app.store.db import change_marker
 from app.store.keys import sealing_ring
 from app.store.models import DataVersion, Fit, FitRuns, Signature, User
 from app.workflow import NotFound, WorkflowError, csvsafe, in_id_range, teams
@@ -236,34 +236,29 @@ def overview(study, fits_newest_first: list[Fit]) -> list[dict[str, Any]]:
     return rows
 
 
-# On SQLite, ``PRAGMA data_version`` tells a connection whether any other connection has
-# committed since it last asked. The read engine's connections never write, so while the number
-# holds, no row the live checks read can have changed, whoever changed it (a service, another
-# process, someone with the file): the digest made then still holds. Keyed per pooled
-# connection (a token kept in its ``info``, which lives as long as the DBAPI connection).
+# Digests of the rows the live checks read, per connection change marker
+# (app.store.db.change_marker): while the marker holds, no row can have changed, whoever would
+# have changed it (a service, another process, someone with the file).
 _LIVE_DIGESTS = ByteCache(1 * MB, sizeof=lambda _v: 256)
 
 
-def checked_digest(session: Session, fit_id: int) -> str | None:
-    """SHA-256 over :func:`checked_rows` (None when there is no fit), recomputed on SQLite only
-    when some connection has committed since this one last looked."""
+def checked_digest(session: Session, fit_id: int,
+                   marker: tuple[str, int] | None = None) -> str | None:
+    """SHA-256 over :func:`checked_rows` (None when there is no fit); on SQLite recomputed only
+    when some connection has committed since this one last looked (``marker`` if the caller
+    has read it already)."""
     if not in_id_range(fit_id):
         return None
-    connection = session.connection()
-    if connection.dialect.name != "sqlite":
-        rows = checked_rows(session, fit_id)
-        return None if rows is None else rows_digest(rows)
-    marker = connection.exec_driver_sql("PRAGMA data_version").scalar()
-    token = connection.connection.info.setdefault("plumbline.connection", uuid.uuid4().hex)
-    key = (token, fit_id)
-    found = _LIVE_DIGESTS.get(key)
-    if found is not None and found[0] == marker:
-        return found[1]
+    marker = marker if marker is not None else change_marker(session)
+    found = None if marker is None else _LIVE_DIGESTS.get((marker, fit_id))
+    if found is not None:
+        return found
     rows = checked_rows(session, fit_id)
     if rows is None:
         return None
     digest = rows_digest(rows)
-    _LIVE_DIGESTS.put(key, (marker, digest))
+    if marker is not None:
+        _LIVE_DIGESTS.put((marker, fit_id), digest)
     return digest
 
 
