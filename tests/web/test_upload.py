@@ -327,3 +327,16 @@ def test_preview_offers_and_stores_a_categorical_factor(client, actions, db, stu
         assert json.loads(v.roles_json)["Resin"] == {
             "role": "factor", "kind": "categorical", "units": None, "low": None, "high": None}
         assert b"\n1,Birch,150.0,61.5\n" in v.canonical_csv
+
+
+def test_the_data_page_says_both_its_version_number_and_its_record_number(actions, db, users,
+                                                                          client):
+    from tests.workflow import helpers as h
+
+    first_study, second_study = h.make_study(db), h.make_study(db, title="Another")
+    h.add_version(db, first_study)
+    record = h.add_version(db, second_study)  # version 1 of its study, record 2
+    actions.login("erin")
+    page = client.get(f"/data/{record}").get_data(as_text=True)
+    assert "<h1>Data version 1</h1>" in page
+    assert f"record {record} in addresses and the API" in page and record == 2
