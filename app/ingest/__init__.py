@@ -23,7 +23,7 @@ from .limits import (
     MAX_HEADER_CHARS,
 )
 from .raw import ColumnSummary, RawTable, summarize_column
-from .roles import ColumnRole, suggest_roles
+from .roles import ColumnRole, suggest_roles, suggest_with_reasons
 from .sniff import detect_kind
 from .validate import validate
 from .xlsx_reader import read_xlsx
@@ -45,6 +45,7 @@ __all__ = [
     "load_canonical",
     "read_upload",
     "suggest_roles",
+    "suggest_with_reasons",
     "summarize_column",
     "validate",
 ]

@@ -159,7 +159,24 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
     columns repeating values are categorical covariates, and a text column with a value per row
     is the label. Units written in brackets after the header name are carried over.
     """
-    roles: dict[str, ColumnRole] = {}
+    return {column: role for column, (role, _why) in suggest_with_reasons(raw).items()}
+
+
+def _text_note(raw: RawTable, column: str, filled: int) -> str:
+    """For a column that is mostly numbers: how many cells are not, and the first one."""
+    cells = raw.frame[column].to_numpy(dtype=object)
+    odd = np.flatnonzero(np.isnan(raw.numbers(column)) & ~raw.missing(column))
+    if not len(odd) or len(odd) * 2 > filled:
+        return ""
+    first = int(odd[0])
+    return (f" ('{cells[first]}' in row {int(raw.frame.index[first])} is not a number"
+            + (f", nor are {len(odd) - 1} more cells" if len(odd) > 1 else "") + ")")
+
+
+def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
+    """:func:`suggest_roles` with, for each column, why that role was suggested, in words the
+    preview shows (a single odd cell that changed the suggestion is named)."""
+    out: dict[str, tuple[ColumnRole, str]] = {}
     taken: set[str] = set()
     n = raw.n_rows
     for column in raw.frame.columns:
@@ -167,33 +184,49 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
         plain = _plain(bare)
         words = set(plain.split())
         filled, numbers, distinct = _summary(raw, column)
+        blanks = n - filled
 
         if plain in _STANDARD_ORDER_NAMES:
-            roles[column] = ColumnRole("ignore", units=units)
+            role, why = ColumnRole("ignore", units=units), "the header names the standard order"
         elif plain in _RUN_ORDER_NAMES and numbers is not None:
-            roles[column] = _once("run_order", units, taken)
+            role, why = _once("run_order", units, taken), "the header names the run order"
         elif plain in _BLOCK_NAMES:
-            roles[column] = _once("block", units, taken)
+            role, why = _once("block", units, taken), "the header names a block"
         elif plain in _LABEL_NAMES or plain.endswith((" id", " label")):
-            roles[column] = _once("label", units, taken)
+            role, why = _once("label", units, taken), "the header names a run label"
         elif distinct <= 1:
-            roles[column] = ColumnRole("ignore", units=units)
+            role = ColumnRole("ignore", units=units)
+            why = "empty" if not filled else "the same value in every filled row"
         elif numbers is not None:
             if words & _COVARIATE_WORDS:
-                roles[column] = ColumnRole("covariate", units=units, kind="numeric")
+                role = ColumnRole("covariate", units=units, kind="numeric")
+                why = "numbers, and the header names a recorded condition"
             elif filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
                 low, high = suggest_levels(numbers.tolist())
-                roles[column] = ColumnRole("factor", units=units, low=low, high=high)
+                role = ColumnRole("factor", units=units, low=low, high=high)
+                why = f"a number in every row, {distinct} distinct settings"
             else:
-                roles[column] = ColumnRole("response", units=units)
+                role = ColumnRole("response", units=units)
+                why = (f"numbers, {blanks} blank cell{'s' if blanks > 1 else ''} (a factor "
+                       "needs a setting in every row)" if blanks and distinct <= _MAX_FACTOR_LEVELS
+                       else f"numbers, {distinct} distinct values (more than a factor's "
+                            f"{_MAX_FACTOR_LEVELS} settings)")
         elif (filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n
               and not words & _COVARIATE_WORDS):
             # Few names, none missing, each level used about twice or more: the shape of a
             # factor set on purpose (supplier A/B/C, machine 1/2). A header naming a recorded
             # condition (operator, lot ...) keeps it a covariate: noted, not designed.
-            roles[column] = ColumnRole("factor", units=units, kind="categorical")
+            role = ColumnRole("factor", units=units, kind="categorical")
+            why = (f"{distinct} names, none missing, each used about twice or more"
+                   + _text_note(raw, column, filled))
         elif distinct < filled:
-            roles[column] = ColumnRole("covariate", units=units, kind="categorical")
+            role = ColumnRole("covariate", units=units, kind="categorical")
+            why = "text repeating its values" + _text_note(raw, column, filled)
         else:
-            roles[column] = _once("label", units, taken)
-    return roles
+            role = _once("label", units, taken)
+            why = "a different text in every row" + _text_note(raw, column, filled)
+        if role.role == "ignore" and why.startswith("the header names") and \
+                plain not in _STANDARD_ORDER_NAMES:
+            why += ", but an earlier column already has that role"
+        out[column] = (role, why)
+    return out

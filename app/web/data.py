@@ -25,7 +25,7 @@ from app.ingest import (
     RawTable,
     UploadTooLarge,
     read_upload,
-    suggest_roles,
+    suggest_with_reasons,
     summarize_column,
 )
 from app.ingest.diff import MATCHED_BY_WORDS
@@ -127,14 +127,16 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
     when the upload names one), a summary of every column and the first ``PREVIEW_ROWS``
     rows."""
     head = raw.frame.head(PREVIEW_ROWS)
-    suggested = suggest_roles(raw)
+    reasoned = suggest_with_reasons(raw)
+    suggested = {column: role for column, (role, _why) in reasoned.items()}
     if roles is None and plan is not None:
         try:
             roles = plans.roles_from_plan(plan, [str(c) for c in raw.frame.columns])
         except WorkflowError as exc:
             problems = [*problems, {"message": exc.message, "column": exc.field}]
     roles = suggested if roles is None else roles
-    summary = [(summarize_column(raw, c), role_choice(suggested[c])) for c in raw.frame.columns]
+    summary = [(summarize_column(raw, c), role_choice(suggested[c]), reasoned[c][1])
+               for c in raw.frame.columns]
     return render_template(
         "data/preview.html", study=study, staged=staged, raw=raw, roles=roles,
         columns=list(raw.frame.columns), rows=head.itertuples(), n_rows=len(raw.frame),

@@ -340,3 +340,15 @@ def test_the_data_page_says_both_its_version_number_and_its_record_number(action
     page = client.get(f"/data/{record}").get_data(as_text=True)
     assert "<h1>Data version 1</h1>" in page
     assert f"record {record} in addresses and the API" in page and record == 2
+
+
+def test_the_preview_says_why_each_role_was_suggested(actions, db, users, client):
+    from tests.workflow import helpers as h
+
+    study_id = h.make_study(db)
+    actions.login("erin")
+    text = b"Temp,Yield\n150,1\n170,2\n150 C,3\n170,4\n150,5\n170,6\n"
+    preview = _upload(actions, study_id, text, "odd.csv")
+    page = client.get(preview.headers["Location"]).get_data(as_text=True)
+    assert "<th>Why</th>" in page
+    assert "&#39;150 C&#39; in row 3 is not a number" in page
