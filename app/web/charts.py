@@ -36,6 +36,8 @@ ISO_LINE = "#1f2d3a"
 SURFACE = ["#f3f0e4", "#dfe6c8", "#b9d3b0", "#8dbaa6", "#5f9b9c", "#3d7890", "#2b5678"]
 WIDTH, HEIGHT = 360, 240
 GRID = 31
+# The half-normal plot names at most this many effects besides those beyond Lenth's ME.
+HALF_NORMAL_NAMED = 5
 # Beyond this many runs in the fit, run-based charts draw bins plus the marked runs.
 BIN_ABOVE = 5000
 
@@ -357,16 +359,27 @@ def half_normal(results: dict) -> Chart | None:
     points, lenth = results.get("half_normal") or [], results.get("lenth")
     if not points:
         return None
-    data = [{"term": p["term"], "abs_effect": p["abs_effect"], "quantile": p["quantile"]}
-            for p in points]
+    # Name only the effects that stand out (beyond Lenth's ME, or the largest few): the small
+    # ones crowd together near zero and their names would print over each other. Names of the
+    # right-hand points go to their left, so that none runs out of the plot.
+    ranked = sorted(points, key=lambda p: -p["abs_effect"])
+    named = {p["term"] for p in ranked[:HALF_NORMAL_NAMED]}
+    if lenth:
+        named |= {p["term"] for p in points if p["abs_effect"] >= lenth["me"]}
+    right = max(p["quantile"] for p in points) * 0.6
+    data = [{"term": p["term"], "abs_effect": p["abs_effect"], "quantile": p["quantile"],
+             "name": p["term"] if p["term"] in named else "",
+             "side": "left" if p["quantile"] > right else "right"} for p in points]
     dots = alt.Chart(name="effects").mark_point(filled=True, color=POINT, size=60).encode(
         x=alt.X("quantile:Q", title="Half-normal quantile"),
         y=alt.Y("abs_effect:Q", title="|Effect|"),
         tooltip=[alt.Tooltip("term:N", title="Term"),
                  alt.Tooltip("abs_effect:Q", format=".4g", title="|Effect|")])
-    labels = alt.Chart().mark_text(align="left", dx=6, fontSize=10, color=REFERENCE).encode(
-        x="quantile:Q", y="abs_effect:Q", text="term:N")
-    layers = [dots, labels]
+    labels = [alt.Chart().transform_filter(f"datum.side === '{side}'")
+              .mark_text(align=align, dx=dx, fontSize=10, color=REFERENCE)
+              .encode(x="quantile:Q", y="abs_effect:Q", text="name:N")
+              for side, align, dx in (("right", "left", 6), ("left", "right", -6))]
+    layers = [dots, *labels]
     note = ""
     if lenth:
         layers += [_rules([{"at": lenth["me"]}], LIMIT_REVIEW), _rules([{"at": lenth["sme"]}],

@@ -417,3 +417,17 @@ def test_contour_lines_are_labelled_and_close_to_the_model(rsm, validator):
     assert all(d["text"] == f"{d['level']:g}" for d in labels)
     assert chart.spec["title"]["subtitle"] == "Held: Catalyst at 1 %"
     assert "Held: Catalyst at 1 %" in chart.note and "Lines where" in chart.note
+
+
+def test_half_normal_names_only_the_effects_that_stand_out(saturated):
+    results = saturated[0]
+    chart = charts.half_normal(results)
+    rows = chart.spec["datasets"]["runs"]
+    me = results["lenth"]["me"]
+    named = {r["term"] for r in rows if r["name"]}
+    largest = {r["term"] for r in sorted(rows, key=lambda r: -r["abs_effect"])[:5]}
+    assert named == largest | {r["term"] for r in rows if r["abs_effect"] >= me}
+    assert len(named) < len(rows)  # the crowd near zero stays unnamed
+    # Names of the right-hand points are set to their left: none runs out of the plot.
+    top = max(r["quantile"] for r in rows)
+    assert all(r["side"] == "left" for r in rows if r["quantile"] == top)
