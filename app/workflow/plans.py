@@ -137,10 +137,16 @@ def sheet_table(built: dict[str, Any], responses: list[str]
     blocked = len({r.get("block") for r in built["runs"]}) > 1
     header = [RUN_ORDER, RUN_LABEL, *([BLOCK] if blocked else []),
               *(factor_header(f) for f in factors), *responses]
+    # Settings to six significant figures (an axial run at 143.182, not 143.1820716949257):
+    # far inside any tolerance a run is compared with, and what a plant can set.
     rows = [[run["run_order"], run["label"], *([run.get("block")] if blocked else []),
-             *(run["settings"][f["name"]] for f in factors), *([""] * len(responses))]
+             *(_setting(run["settings"][f["name"]]) for f in factors), *([""] * len(responses))]
             for run in sorted(built["runs"], key=lambda r: r["run_order"])]
     return header, rows
+
+
+def _setting(value: Any) -> Any:
+    return float(f"{value:.6g}") if isinstance(value, float) else value
 
 
 def sheet_rows(plan: Plan) -> tuple[list[str], list[list[Any]]]:

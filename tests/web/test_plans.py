@@ -114,6 +114,10 @@ def test_run_sheet_downloads(client, db, study_id):
                        "Catalyst [%]", "Hardness"]
     assert [int(r[0]) for r in rows[1:]] == list(range(1, 21))
     assert all(r[-1] == "" for r in rows[1:])
+    # Settings a plant can set: six significant figures (the axial runs included).
+    settings = [float(v) for r in rows[1:] for v in r[2:5]]
+    assert all(v == float(f"{v:.6g}") for v in settings)
+    assert any(abs(v - 160 + 10 * 8 ** 0.25) < 1e-3 for v in settings)  # an axial run
     book = load_workbook(io.BytesIO(client.get(f"{API_PREFIX}/plans/{plan['id']}/sheet.xlsx",
                                                headers=auth).data))
     cells = list(book.active.values)
