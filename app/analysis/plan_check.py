@@ -35,6 +35,8 @@ def tolerances(plan: dict, given: dict[str, Any] | None = None) -> dict[str, flo
                            field=f"tolerance.{unknown[0]}")
     out = {}
     for f in plan["factors"]:
+        if f.get("levels") is not None:  # a level name must match exactly
+            continue
         value = given.get(f["name"])
         if value is None:
             out[f["name"]] = DEFAULT_FRACTION * (float(f["high"]) - float(f["low"]))

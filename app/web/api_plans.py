@@ -26,10 +26,15 @@ schema("PlanCreate", {
     "properties": {
         "design": {"type": "string", "enum": list(DESIGNS)},
         "factors": {"type": "array", "minItems": 2, "items": {
-            "type": "object", "additionalProperties": False, "required": ["name", "low", "high"],
+            "type": "object", "additionalProperties": False, "required": ["name"],
+            "description": "A continuous factor: name, low, high (natural units), units. A "
+                           "categorical one (supplier, machine): name and levels; the design "
+                           "of the continuous factors is run at every combination of levels.",
             "properties": {"name": {"type": "string", "minLength": 1},
                            "low": {"type": "number"}, "high": {"type": "number"},
-                           "units": {"type": ["string", "null"]}}}},
+                           "units": {"type": ["string", "null"]},
+                           "levels": {"type": "array", "minItems": 2,
+                                      "items": {"type": "string", "minLength": 1}}}}},
         "runs": {"type": "integer", "minimum": 4,
                  "description": "Fractional factorials: the number of factorial runs"},
         "centre_points": {"type": "integer", "minimum": 0},

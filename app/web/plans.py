@@ -49,6 +49,10 @@ def request_from_form(form) -> dict[str, Any]:
         name = (form.get(f"name_{i}") or "").strip()
         if not name:
             continue
+        levels = [v.strip() for v in (form.get(f"levels_{i}") or "").split(",") if v.strip()]
+        if levels:  # a categorical factor: the design is crossed with its levels
+            factors.append({"name": name, "levels": levels})
+            continue
         factors.append({"name": name, "low": _number(form, f"low_{i}"),
                         "high": _number(form, f"high_{i}"),
                         "units": (form.get(f"units_{i}") or "").strip() or None})

@@ -350,3 +350,42 @@ def test_plan_and_evaluation_are_plain_json(design):
     assert json.loads(json.dumps(evaluation)) == evaluation
     assert evaluation["model"] == ("quadratic" if design in ("central_composite", "box_behnken")
                                    else "linear")
+
+
+def test_a_design_crossed_with_a_categorical_factor_runs_whole_at_each_level():
+    """Every level gets the whole face-centred design (9 points + 2 centre runs), in one
+    randomised order; the evaluation fits the levels as fixed effects."""
+    from app.analysis.plans import build_plan, evaluate_plan
+
+    factors = [{"name": "Temp", "low": 150, "high": 170}, {"name": "Time", "low": 20, "high": 30},
+               {"name": "Supplier", "levels": ["Birch", "Alder", "Cedar"]}]
+    plan = build_plan("central_composite", factors, axial="face_centred", centre_points=2,
+                      seed=4)
+    runs = plan["runs"]
+    assert len(runs) == 3 * 10
+    for level in ("Birch", "Alder", "Cedar"):
+        at = sorted((r["coded"]["Temp"], r["coded"]["Time"]) for r in runs
+                    if r["settings"]["Supplier"] == level)
+        assert at == sorted((r["coded"]["Temp"], r["coded"]["Time"]) for r in runs
+                            if r["settings"]["Supplier"] == "Birch")
+        assert len(at) == 10
+    suppliers = [r["settings"]["Supplier"] for r in sorted(runs, key=lambda r: r["run_order"])]
+    assert suppliers != sorted(suppliers)  # not run supplier by supplier
+    assert build_plan("central_composite", factors, axial="face_centred", centre_points=2,
+                      seed=4)["runs"] == runs
+    evaluation = evaluate_plan(plan)
+    # 30 runs - (intercept + 2 level effects + 5 quadratic terms in Temp and Time) = 22.
+    assert evaluation["residual_df"] == 22 and "fixed effect" in evaluation["notes"][0]
+
+
+@pytest.mark.parametrize(("levels", "field"), [
+    (["Birch"], "factors[2].levels"), (["Birch", "Birch"], "factors[2].levels"),
+    (["Birch", ""], "factors[2].levels"), ("Birch,Alder", "factors[2].levels")])
+def test_categorical_levels_are_checked(levels, field):
+    from app.analysis.plans import PlanError, build_plan
+
+    with pytest.raises(PlanError) as refused:
+        build_plan("full_factorial", [{"name": "A", "low": 0, "high": 1},
+                                      {"name": "B", "low": 0, "high": 1},
+                                      {"name": "S", "levels": levels}])
+    assert refused.value.field == field

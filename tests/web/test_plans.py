@@ -195,3 +195,54 @@ def test_run_sheet_prints(client, db, study_id, actions):
     text = "\n".join(p.extract_text() for p in pages)
     assert "RUN SHEET" in text and "seed 20261203" in text and "R20" in text
     assert "Cure temperature [°C]" in text and plan["sha256"][:12] in text
+
+
+def test_a_plan_crossed_with_suppliers_is_run_uploaded_and_fitted(client, db, study_id):
+    """A 2^2 factorial with centre runs at each of two suppliers: the sheet has a Supplier
+    column, the upload takes it as a categorical factor from the plan, a wrong supplier on one
+    run is listed, and the fit has one row for the supplier in its ANOVA."""
+    auth = _bearer(db, "erin")
+    body = {"design": "full_factorial", "seed": 9, "responses": ["Hardness"], "factors": [
+        FACTORS[0], FACTORS[1], {"name": "Supplier", "levels": ["Birch", "Alder"]}]}
+    plan = _plan(client, auth, study_id, body)
+    assert len(plan["runs"]) == 2 * (4 + 3)
+    rows = list(csv.reader(io.StringIO(client.get(
+        f"{API_PREFIX}/plans/{plan['id']}/sheet.csv", headers=auth).get_data(as_text=True))))
+    header = rows[0]
+    assert header[-2:] == ["Supplier", "Hardness"]
+    t, m, s = header.index("Cure temperature [°C]"), header.index("Cure time [min]"), -2
+    for i, row in enumerate(rows[1:]):
+        shift = 2.0 if row[s] == "Birch" else -2.0
+        row[-1] = f"{100 + 3 * (float(row[t]) - 160) / 10 + shift + 0.1 * (i % 3):.3f}"
+    rows[1][s] = "Cedar" if rows[1][s] == "Birch" else "Birch"  # the wrong drum was used
+    out = io.StringIO()
+    csv.writer(out, lineterminator="\n").writerows(rows)
+    uploaded = client.post(f"{API_PREFIX}/studies/{study_id}/data", headers=auth,
+                           content_type="multipart/form-data",
+                           data={"file": (io.BytesIO(out.getvalue().encode()), "runs.csv"),
+                                 "plan_id": str(plan["id"])})
+    assert uploaded.status_code == 201, uploaded.get_json()
+    version = uploaded.get_json()
+    assert version["roles"]["Supplier"]["kind"] == "categorical"
+    (deviation,) = version["plan_deviations"]["deviations"]
+    assert deviation["factor"] == "Supplier" and deviation["row"] == 1
+    fitted = client.post(f"{API_PREFIX}/data/{version['id']}/fits", headers=auth,
+                         json={"response": "Hardness", "model": "linear"})
+    assert fitted.status_code == 201, fitted.get_json()
+    anova = [row["source"] for row in fitted.get_json()["results"]["anova"]]
+    assert "Supplier" in anova
+
+
+def test_the_plan_form_takes_a_categorical_factor(client, db, study_id, actions):
+    actions.login("erin")
+    form = {"design": "full_factorial", "seed": "3", "centre_points": "0",
+            "name_0": "Temp", "low_0": "150", "high_0": "170",
+            "name_1": "Time", "low_1": "20", "high_1": "30",
+            "name_2": "Supplier", "levels_2": "Birch, Alder, Cedar"}
+    made = actions.post(f"/studies/{study_id}/plans/new", form)
+    assert made.status_code == 302
+    page = client.get(made.headers["Location"]).get_data(as_text=True)
+    assert "levels: Birch, Alder, Cedar" in page
+    assert "Crossed with Supplier (Birch, Alder, Cedar)" in page
+    sheet = page.split('id="sheet"')[1]
+    assert sheet.count("<tr>") == 1 + 4 * 3  # header + the 2^2 design at each supplier

@@ -3,6 +3,7 @@ with every run's settings in natural units."""
 
 from __future__ import annotations
 
+import itertools
 import math
 import secrets
 
@@ -10,7 +11,7 @@ import numpy as np
 
 from ..aliases import alias_structure
 from . import blocking, composite, fractions
-from .factors import PlanError, checked_factors, natural_settings
+from .factors import PlanError, checked_factors, natural_settings, split_categorical
 
 DESIGNS = ("full_factorial", "fractional_factorial", "central_composite", "box_behnken")
 MAX_FULL_FACTORS = 10  # 1,024 runs
@@ -41,33 +42,47 @@ def build_plan(design: str, factors: list[dict], *, runs: int | None = None,
         raise PlanError("the axial distance applies to central composite designs only", "axial")
     if design not in ("fractional_factorial",) and generators is not None:
         raise PlanError("generators apply to fractional factorials only", "generators")
+    factors, crossed = split_categorical(factors)
     if design in ("full_factorial", "fractional_factorial"):
         part = _factorial(design, factors, runs, centre_points, blocks, generators)
     elif design == "central_composite":
         part = _central_composite(factors, runs, centre_points, axial, blocks)
     else:
         part = _box_behnken(factors, runs, centre_points, blocks)
-    coded = np.tile(part["coded"], (replicates, 1))
-    block_of = np.tile(part["block"], replicates)
+    # Crossed with every combination of the categorical factors' levels: the whole design is
+    # run at each (supplier A, B, C ...), in one randomised order.
+    combos = list(itertools.product(*(f["levels"] for f in crossed))) or [()]
+    design_coded = np.repeat(part["coded"], len(combos), axis=0)
+    design_blocks = np.repeat(part["block"], len(combos))
+    design_levels = combos * len(part["coded"])
+    coded = np.tile(design_coded, (replicates, 1))
+    block_of = np.tile(design_blocks, replicates)
+    levels_of = design_levels * replicates
     order = _randomised(block_of, seed)
     names = [f["name"] for f in part["factors"]]
     settings = natural_settings(coded, part["factors"])
     width = max(2, len(str(len(coded))))
     sheet = []
     for position, row in enumerate(order, start=1):
+        chosen = {f["name"]: level for f, level in zip(crossed, levels_of[row], strict=True)}
         sheet.append({
             "run_order": position, "standard_order": int(row) + 1,
             "label": f"R{position:0{width}d}", "block": int(block_of[row]),
-            "coded": {n: float(coded[row, j]) for j, n in enumerate(names)},
-            "settings": {n: float(settings[row, j]) for j, n in enumerate(names)}})
+            "coded": {**{n: float(coded[row, j]) for j, n in enumerate(names)}, **chosen},
+            "settings": {**{n: float(settings[row, j]) for j, n in enumerate(names)},
+                         **chosen}})
     notes = part["notes"]
+    if crossed:
+        notes.append("Crossed with " + ", ".join(f"{f['name']} ({', '.join(f['levels'])})"
+                                                 for f in crossed)
+                     + f": the design is run at each of the {len(combos)} level combinations.")
     if replicates > 1:
         notes.append(f"The whole design is run {replicates} times (centre points included); "
                      "the run order is randomised over all replicates within each block.")
     notes.append("Runs are in random order within each block, blocks one after another; the "
                  "same seed gives the same order." if int(block_of.max()) > 1 else
                  "Runs are in random order; the same seed gives the same order.")
-    return {"design": design, "factors": part["factors"], "seed": seed,
+    return {"design": design, "factors": part["factors"] + crossed, "seed": seed,
             "generators": part.get("generators", []), "alias": part.get("alias"),
             "axial_distance": part.get("axial_distance"),
             "resolution": part.get("resolution"), "blocks": int(block_of.max()),

@@ -24,9 +24,15 @@ _RANK_TOL = 1e-9
 
 
 def _coded_runs(plan: dict) -> tuple[np.ndarray, np.ndarray, list[str]]:
-    names = [f["name"] for f in plan["factors"]]
+    """The continuous factors' coded settings, and each run's block; a plan crossed with
+    categorical factors fits each combination of their levels (and block) as a fixed effect,
+    like a block, so the continuous terms are evaluated within the levels."""
+    names = [f["name"] for f in plan["factors"] if f.get("levels") is None]
+    crossed = [f["name"] for f in plan["factors"] if f.get("levels") is not None]
     coded = np.array([[run["coded"][n] for n in names] for run in plan["runs"]], dtype=float)
-    return coded, np.array([run["block"] for run in plan["runs"]]), names
+    blocks = [str(run["block"]) + "".join(f"|{run['coded'][n]}" for n in crossed)
+              for run in plan["runs"]]
+    return coded, np.array(blocks), names
 
 
 def _estimable(matrix: np.ndarray, fixed: int, term_cols: list[np.ndarray], term_names):
@@ -93,6 +99,11 @@ def evaluate_plan(plan: dict, model: str | None = None, *, effect: float | None 
     p = x.shape[1]
     df = n - p
     notes = []
+    if any(f.get("levels") is not None for f in plan["factors"]):
+        notes.append("Each combination of the categorical factors' levels is fitted as a fixed "
+                     "effect, like a block; the terms below are the continuous factors' within "
+                     "the levels (their interactions with the categorical factors are not "
+                     "evaluated here).")
     if lost:
         notes.append("Not estimable in this plan (aliased with earlier terms): "
                      + ", ".join(item["term"] for item in lost) + "; they are left out below.")

@@ -67,6 +67,47 @@ def checked_factors(factors: list[dict], *, at_least: int, at_most: int) -> list
     return out
 
 
+MAX_LEVELS = 10
+MAX_COMBINATIONS = 64
+
+
+def split_categorical(factors: list[dict]) -> tuple[list[dict], list[dict]]:
+    """(continuous factors, categorical ones) from the request's factor list. A categorical
+    factor is ``{"name", "levels": [names]}`` (supplier, machine): the design of the
+    continuous factors is crossed with its levels. Refuses, naming the field, levels that are
+    not two or more distinct names, or a name used twice."""
+    if not isinstance(factors, (list, tuple)):
+        raise PlanError("give the factors as a list", "factors")
+    continuous, crossed, names = [], [], set()
+    for i, factor in enumerate(factors):
+        if not isinstance(factor, dict) or "levels" not in factor:
+            continuous.append(factor)
+            continue
+        where = f"factors[{i}]"
+        name = factor.get("name")
+        if not isinstance(name, str) or not name.strip():
+            raise PlanError("every factor needs a name", f"{where}.name")
+        levels = factor["levels"]
+        if (not isinstance(levels, list) or not 2 <= len(levels) <= MAX_LEVELS
+                or not all(isinstance(v, str) and v.strip() for v in levels)
+                or len(set(levels)) != len(levels)):
+            raise PlanError(f"a categorical factor needs 2 to {MAX_LEVELS} distinct level names",
+                            f"{where}.levels")
+        if {"low", "high"} & set(factor):
+            raise PlanError("a categorical factor has levels, not low and high", f"{where}.low")
+        crossed.append({"name": name, "levels": list(levels), "units": None})
+    for f in [*continuous, *crossed]:
+        if isinstance(f, dict) and f.get("name") in names:
+            raise PlanError(f"the name '{f['name']}' is used twice", "factors")
+        if isinstance(f, dict):
+            names.add(f.get("name"))
+    combinations = int(np.prod([len(f["levels"]) for f in crossed])) if crossed else 1
+    if combinations > MAX_COMBINATIONS:
+        raise PlanError(f"{combinations} level combinations is more than {MAX_COMBINATIONS}",
+                        "factors")
+    return continuous, crossed
+
+
 def natural_settings(coded: np.ndarray, factors: list[dict]) -> np.ndarray:
     """Coded rows in natural units, through the analysis's own decoding."""
     spec = tuple(Factor(f["name"], f["low"], f["high"]) for f in factors)
