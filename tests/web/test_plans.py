@@ -14,6 +14,8 @@ from sqlalchemy import func, select
 
 from app.store.models import AuditEvent, Plan, PlanUpload
 from app.web.openapi import API_PREFIX
+from app.workflow import reviews
+from tests.conftest import PASSWORD
 from tests.web.test_api import schema_validator
 from tests.web.test_setpoints import bearer as _bearer
 from tests.workflow import helpers as h
@@ -145,10 +147,16 @@ def test_results_against_the_plan_flag_the_deviation_and_reach_the_review(client
     fitted = client.post(f"{API_PREFIX}/data/{version['id']}/fits", headers=auth,
                          json={"response": "Hardness", "model": "quadratic"})
     assert fitted.status_code == 201
+    fit_id = fitted.get_json()["id"]
     actions.login("abel")
-    review = actions.client.get(f"/fits/{fitted.get_json()['id']}/review").get_data(
-        as_text=True)
+    review = actions.client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
     assert "randomised from seed 20261203" in review and 'class="deviation"' in review
+    # Submitted and signed over the API too: the plan's whole path without a browser.
+    assert client.post(f"{API_PREFIX}/fits/{fit_id}/submit", json={},
+                       headers=auth).status_code == 200
+    signed = client.post(f"{API_PREFIX}/fits/{fit_id}/signatures", headers=_bearer(db, "abel"),
+                         json={"meaning": reviews.APPROVE, "password": PASSWORD})
+    assert signed.status_code == 201 and signed.get_json()["status"] == "valid"
 
 
 def test_within_tolerance_and_a_tolerance_of_ones_own(client, db, study_id):
