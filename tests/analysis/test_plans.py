@@ -389,3 +389,13 @@ def test_categorical_levels_are_checked(levels, field):
                                       {"name": "B", "low": 0, "high": 1},
                                       {"name": "S", "levels": levels}])
     assert refused.value.field == field
+
+
+def test_a_categorical_factor_named_like_another_is_refused_naming_it():
+    from app.analysis.plans import PlanError, build_plan
+
+    with pytest.raises(PlanError) as refused:
+        build_plan("full_factorial", [{"name": "A", "low": 0, "high": 1},
+                                      {"name": "B", "low": 0, "high": 1},
+                                      {"name": "A", "levels": ["x", "y"]}])
+    assert refused.value.field == "factors[2].name"

@@ -78,7 +78,7 @@ def split_categorical(factors: list[dict]) -> tuple[list[dict], list[dict]]:
     not two or more distinct names, or a name used twice."""
     if not isinstance(factors, (list, tuple)):
         raise PlanError("give the factors as a list", "factors")
-    continuous, crossed, names = [], [], set()
+    continuous, crossed = [], []
     for i, factor in enumerate(factors):
         if not isinstance(factor, dict) or "levels" not in factor:
             continuous.append(factor)
@@ -87,6 +87,9 @@ def split_categorical(factors: list[dict]) -> tuple[list[dict], list[dict]]:
         name = factor.get("name")
         if not isinstance(name, str) or not name.strip():
             raise PlanError("every factor needs a name", f"{where}.name")
+        others = [f.get("name") for j, f in enumerate(factors) if j != i and isinstance(f, dict)]
+        if name in others:
+            raise PlanError(f"the name '{name}' is used twice", f"{where}.name")
         levels = factor["levels"]
         if (not isinstance(levels, list) or not 2 <= len(levels) <= MAX_LEVELS
                 or not all(isinstance(v, str) and v.strip() for v in levels)
@@ -96,11 +99,6 @@ def split_categorical(factors: list[dict]) -> tuple[list[dict], list[dict]]:
         if {"low", "high"} & set(factor):
             raise PlanError("a categorical factor has levels, not low and high", f"{where}.low")
         crossed.append({"name": name, "levels": list(levels), "units": None})
-    for f in [*continuous, *crossed]:
-        if isinstance(f, dict) and f.get("name") in names:
-            raise PlanError(f"the name '{f['name']}' is used twice", "factors")
-        if isinstance(f, dict):
-            names.add(f.get("name"))
     combinations = int(np.prod([len(f["levels"]) for f in crossed])) if crossed else 1
     if combinations > MAX_COMBINATIONS:
         raise PlanError(f"{combinations} level combinations is more than {MAX_COMBINATIONS}",
