@@ -122,13 +122,7 @@ def test_api_submit_and_sign(db, client, fit_id):
 
 
 def test_api_refuses_own_fit_with_403(db, client, users):
-    with db.transaction() as s:
-        accounts.create_user(s, None, username="bo", full_name="Bo Both",
-                             roles="engineer,approver", password=PASSWORD)
-    study_id = h.make_study(db)
-    h.join(db, study_id, "bo")
-    fit_id = h.make_fit(db, h.add_version(db, study_id), author="bo", model="linear")
-    h.submit(db, fit_id)
+    fit_id = h.own_submitted_fit(db)
     token = _token(db, "bo")
     response = client.post(f"/api/v1/fits/{fit_id}/signatures",
                            json={"meaning": reviews.APPROVE, "password": PASSWORD},
@@ -197,13 +191,7 @@ def test_wrong_password_shows_beside_the_sign_form(db, actions, fit_id):
 
 def test_author_who_is_also_an_approver_is_told_why_instead_of_offered_the_form(
         db, client, actions, users):
-    with db.transaction() as s:
-        accounts.create_user(s, None, username="bo", full_name="Bo Both",
-                             roles="engineer,approver", password=PASSWORD)
-    study_id = h.make_study(db)
-    h.join(db, study_id, "bo")
-    fit_id = h.make_fit(db, h.add_version(db, study_id), author="bo", model="linear")
-    h.submit(db, fit_id)
+    fit_id = h.own_submitted_fit(db)
     actions.login("bo")
     page = client.get(f"/fits/{fit_id}/review").get_data(as_text=True)
     sign = _section(page, 'id="sign"')

@@ -41,6 +41,21 @@ def make_fit(db, version_id: int, *, model: str = "quadratic", response: str = "
         return fits.create_fit(s, user(s, author), version, spec).id
 
 
+def own_submitted_fit(db, username: str = "bo", full_name: str = "Bo Both") -> int:
+    """A fit made, uploaded and submitted by one person who is engineer and approver both
+    (allowed: only admin with approver is barred), so that the duties rule stops them."""
+    from app.workflow import accounts
+
+    with db.transaction() as s:
+        accounts.create_user(s, None, username=username, full_name=full_name,
+                             roles="engineer,approver", password=PASSWORD)
+    study_id = make_study(db)
+    join(db, study_id, username)
+    fit_id = make_fit(db, add_version(db, study_id), author=username, model="linear")
+    submit(db, fit_id)
+    return fit_id
+
+
 def submit(db, fit_id: int, who: str = "erin") -> None:
     with db.transaction() as s:
         reviews.submit(s, user(s, who), fits.get_fit(s, fit_id))
