@@ -108,13 +108,34 @@ def _recorded_factors(runs: list[dict], factors: list[str]) -> list[str]:
     return recorded
 
 
+def _level(run: dict, factor: str, released: str) -> str:
+    """The level a run of a categorical factor was made at; another level than the released
+    one is refused naming the row."""
+    value = str(run["settings"][factor]).strip()
+    if value != released:
+        raise ConfirmationRefused(
+            f"Row {run['row']}: '{factor}' was run at level '{value}', the released level is "
+            f"'{released}'; these runs do not confirm the released setpoints", factor=factor)
+    return value
+
+
 def _settings_run(runs: list[dict], released: dict[str, float], recorded: list[str],
                   tolerance: dict[str, float], half: dict[str, float | None]) -> dict[str, Any]:
     """Settings judged at, per-factor deviations, and the refusals the tolerance demands."""
-    per_run = {f: [_number(run["settings"][f], f"Row {run['row']}, factor '{f}'") for run in runs]
+    per_run = {f: [_level(run, f, released[f]) if isinstance(released[f], str) else
+                   _number(run["settings"][f], f"Row {run['row']}, factor '{f}'") for run in runs]
                for f in recorded}
     settings, deviations = {}, {}
     for factor, released_value in released.items():
+        if isinstance(released_value, str):
+            # a categorical factor: the runs are made at the released level (checked by _level)
+            settings[factor] = released_value
+            deviations[factor] = {"released": released_value, "run": released_value,
+                                  "run_low": None, "run_high": None,
+                                  "source": "file" if factor in per_run else "released",
+                                  "deviation": None, "deviation_coded": None,
+                                  "tolerance": None}
+            continue
         limit = tolerance.get(factor)
         values = per_run.get(factor)
         if values is None:
@@ -140,7 +161,9 @@ def _settings_run(runs: list[dict], released: dict[str, float], recorded: list[s
                         f"value is {_fmt(released_value)} and the tolerance set at release is "
                         f"±{_fmt(limit)}; these runs do not confirm the released setpoints",
                         factor=factor)
-        mean = float(np.mean(values))
+        # runs at one setting are judged at exactly that setting (a sum of equal floats
+        # divided back need not return the same float)
+        mean = values[0] if spread == 0 else float(np.mean(values))
         settings[factor] = mean
         deviation = mean - released_value
         unit = half.get(factor)
@@ -245,7 +268,9 @@ def judge_confirmation(model_docs: dict[str, Any], released: dict[str, float],
         raise AnalysisError("Record at least one confirmation run")
     if not 0 < level < 1:
         raise AnalysisError(f"level must lie between 0 and 1, not {level!r}")
-    released = {f: _number(v, f"Released setting of '{f}'") for f, v in released.items()}
+    # a categorical factor is released at a level name (predict checks it is one of its levels)
+    released = {f: v if isinstance(v, str) else _number(v, f"Released setting of '{f}'")
+                for f, v in released.items()}
     tolerance = {f: _number(v, f"Tolerance of '{f}'") for f, v in (tolerance or {}).items()
                  if v is not None}
     negative = [f for f, v in tolerance.items() if v < 0]
@@ -270,7 +295,7 @@ def judge_confirmation(model_docs: dict[str, Any], released: dict[str, float],
         at = where["settings"]
         if len(its_runs) < len(runs):
             at = {**at, **{f: float(np.mean([float(run["settings"][f]) for run in its_runs]))
-                           for f in recorded}}
+                           for f in recorded if not isinstance(released[f], str)}}
         responses[response] = {**_judge_response(response, doc, its_runs, at, level),
                                "settings": at}
     verdict = "pass" if all(v["verdict"] == "pass" for v in responses.values()) else "fail"

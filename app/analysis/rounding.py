@@ -49,3 +49,9 @@ def round_to(value: float | None, step: float | None) -> str:
     rounded = math.copysign(math.floor(abs(value) / step + 0.5), value) * step
     text = f"{rounded:.{places}f}"
     return text.lstrip("-") if float(text) == 0 else text  # never "-0.0"
+
+
+def setting_text(value: float | str | None, step: float | None) -> str:
+    """A setting as text: a categorical factor's level name as it is, a number rounded to
+    ``step`` (:func:`round_to`)."""
+    return value if isinstance(value, str) else round_to(value, step)

@@ -94,8 +94,9 @@ def register(app: Flask) -> None:
                    setpoints, api_setpoints, api_teams, api_runs, api_predictions,
                    profiler, reports, api_reports, api_plans, plans):
         app.register_blueprint(module.bp)
-    from app.analysis.rounding import round_to
+    from app.analysis.rounding import round_to, setting_text
 
     app.jinja_env.filters["round_to"] = round_to
+    app.jinja_env.filters["setting"] = setting_text
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")

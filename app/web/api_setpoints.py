@@ -73,8 +73,11 @@ schema("SetpointCreate", {
         "bounds": {"type": "object", "additionalProperties": {
             "type": "array", "items": NUMBER_OR_NULL},
             "description": "Factor to [low, high] in natural units, inside the design region"},
-        "fixed": {"type": "object", "additionalProperties": {"type": "number"},
-                  "description": "Factor to a fixed value in natural units"},
+        "fixed": {"type": "object",
+                  "additionalProperties": {"oneOf": [{"type": "number"}, {"type": "string"}]},
+                  "description": "Factor to a fixed value in natural units; a categorical "
+                                 "factor to one of its level names (else every level is "
+                                 "searched)"},
     },
     "examples": [{"fits": [1], "goals": {"Hardness": {"goal": "maximize"}}},
                  {"fits": [1, 2], "goals": {
@@ -135,6 +138,10 @@ schema("SetpointSheet", {
                         "description": "Each response kept within limits (goal within): "
                                        "lower, upper, predicted, met"},
         "stationary_point": {"type": "object"},
+        "levels": {"type": ["object", "null"],
+                   "description": "With categorical factors: chosen {factor: level}, "
+                                  "statement, factors, and by_level (each combination's "
+                                  "best settings, predictions and D); null without them"},
         "signatures": {"type": "array", "items": {"type": "object"}},
         "confirmations": {"type": "array", "items": {"type": "object"}},
         "chain_head": {"type": "object"},

@@ -123,6 +123,11 @@ def parse_proposal_form(form, factors: list[dict[str, Any]]) -> dict[str, Any]:
     bounds, fixed = {}, {}
     for j, factor in enumerate(factors):
         name = factor["name"]
+        if factor.get("levels") is not None:
+            level = (form.get(f"fixed_{j}") or "").strip()
+            if level:
+                fixed[name] = level     # checked against the levels by the search
+            continue
         value = _number(form, f"fixed_{j}", f"Fixed value of {name}")
         if value is not None:
             fixed[name] = value
@@ -200,6 +205,8 @@ def sheet_context(session, proposal) -> dict[str, Any]:
         "duties": signing.SEPARATION_OF_DUTIES,
         # the fits' own factor order (the stored JSON has its keys sorted)
         "factor_names": setpoints.factor_order(session, proposal),
+        # set by a number (not a level name): tolerance, gradient and stationary point
+        "continuous_names": setpoints.numbered_factors(session, proposal),
     }
 
 
@@ -227,14 +234,16 @@ def design_space_page(proposal_id: int):
     result = setpoints.result_of(proposal)
     settings = result["optimum"]["settings"]
     chosen = setpoints.fits_of(session, proposal)
-    names = ([f["name"] for f in fits.results_of(chosen[0])["model"]["factors"]] if chosen
-             else list(settings))
+    # the map's axes are continuous factors; a categorical one stays at the proposed level
+    names = ([f["name"] for f in fits.results_of(chosen[0])["model"]["factors"]
+              if f.get("levels") is None] if chosen
+             else [n for n, v in settings.items() if not isinstance(v, str)])
     x = request.args.get("x") or names[0]
     y = request.args.get("y") or (names[1] if len(names) > 1 else names[0])
     specs = {r: g["spec"] for r, g in setpoints.goals_of(proposal).items() if g.get("spec")}
     context = {"proposal": proposal, "study": proposal.study, "caution": CAUTION,
                "names": names, "x": x, "y": y, "specs": specs, "space": None, "spec": None}
-    if specs:
+    if specs and len(names) > 1:
         fixed = {n: v for n, v in settings.items() if n not in (x, y)}
         try:
             space = design_space({f.response: fits.search_document(f) for f in chosen}, specs, x, y,
@@ -256,7 +265,8 @@ SIGNED_MESSAGES = {
 
 
 def _tolerance_form(form, names: list[str]) -> dict[str, str]:
-    """``tolerance_{j}`` is the j-th factor in the sheet's order (setpoints.factor_order)."""
+    """``tolerance_{j}`` is the j-th continuous factor in the sheet's order
+    (setpoints.numbered_factors)."""
     return {name: form.get(f"tolerance_{j}", "") for j, name in enumerate(names)}
 
 
@@ -274,7 +284,7 @@ def sign(proposal_id: int):
 
     def act(s, actor, proof):
         proposal = setpoints.get_proposal(s, proposal_id)
-        names = setpoints.factor_order(s, proposal)
+        names = setpoints.numbered_factors(s, proposal)
         setpoint_signoff.sign(s, actor, proposal, proof=proof, meaning=meaning,
                               comment=form.get("comment"),
                               tolerance=_tolerance_form(form, names),

@@ -109,6 +109,13 @@ def read_observations(raw: RawTable, responses: list[str]) -> dict[str, list[tup
     return observed
 
 
+def _text_cell(raw: RawTable, row: Any, column: str) -> str | None:
+    """A categorical factor's level as written (surrounding spaces dropped); None if empty."""
+    cell = raw.frame.at[row, column]
+    text = None if cell is None else str(cell).strip()
+    return text or None
+
+
 def _number_cell(raw: RawTable, row: Any, column: str) -> float | None:
     cell = raw.frame.at[row, column]
     if cell is None:
@@ -120,7 +127,8 @@ def _number_cell(raw: RawTable, row: Any, column: str) -> float | None:
     return number
 
 
-def read_runs(raw: RawTable, responses: list[str], factors: list[str]) -> list[dict[str, Any]]:
+def read_runs(raw: RawTable, responses: list[str], factors: list[str],
+              categorical: tuple[str, ...] = ()) -> list[dict[str, Any]]:
     """One entry per confirmation run: {row, settings: {factor: value}, responses: {r: value}}.
 
     A run is a row with a value for at least one response. Factor columns are read when the
@@ -137,7 +145,8 @@ def read_runs(raw: RawTable, responses: list[str], factors: list[str]) -> list[d
             continue
         settings = {}
         for factor in columns:
-            value = _number_cell(raw, row, factor)
+            value = (_text_cell(raw, row, factor) if factor in categorical
+                     else _number_cell(raw, row, factor))
             if value is None:
                 raise WorkflowError(f"Row {row}, column '{factor}': the setting is missing; the "
                                     "file records this factor, so every run needs its value.",
@@ -189,7 +198,8 @@ def record(session: Session, actor: User, proposal: SetpointProposal, *, data: b
         tolerance = tolerance_of(session, proposal)
     _check_tolerance(tolerance, list(released))
     models = {f.response: fit_results_of(f) for f in fits_of(session, proposal)}
-    runs = read_runs(raw, list(models), list(released))
+    runs = read_runs(raw, list(models), list(released),
+                     tuple(n for n, v in released.items() if isinstance(v, str)))
     try:
         judged = judge_confirmation(models, released, runs, tolerance)
     except ConfirmationRefused as exc:

@@ -31,7 +31,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from app import STATIC, TEMPLATES
-from app.analysis.rounding import round_to
+from app.analysis.rounding import round_to, setting_text
 from app.caches import MB, ByteCache
 from app.store import audit
 from app.store.base import utcnow
@@ -97,7 +97,8 @@ def _environment() -> Environment:
     env = Environment(loader=FileSystemLoader(str(TEMPLATES)),
                       autoescape=select_autoescape(["html"]), trim_blocks=True,
                       lstrip_blocks=True)
-    env.filters.update(utc=utc_text, round_to=round_to, short_hash=short_hash, svg_uri=svg_uri)
+    env.filters.update(utc=utc_text, round_to=round_to, setting=setting_text,
+                       short_hash=short_hash, svg_uri=svg_uri)
     env.globals["goal_words"] = setpoint_export.goal_words
     return env
 

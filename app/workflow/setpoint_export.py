@@ -14,7 +14,7 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from app.analysis.optimize import CAUTION
-from app.analysis.rounding import round_to
+from app.analysis.rounding import round_to, setting_text
 from app.store import audit
 from app.store.models import SetpointProposal
 from app.workflow import confirmations
@@ -94,6 +94,7 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "optimum": result["optimum"], "constraints": result.get("constraints") or {},
         "stationary_point": result["stationary_point"],
         "region": result["region"], "grid_check": result["grid_check"],
+        "levels": result.get("levels"),
         "tolerance": tolerance_of(session, proposal),
         "signatures": [signature_json(session, proposal, s)
                        for s in release_signatures(session, proposal)],
@@ -126,9 +127,15 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
          "setting (coded units)"],
     ]
     units, step = doc["units"], doc["resolution"]
-    rows += [[name, round_to(opt["settings"][name], step.get(name)), units.get(name) or "",
+    rows += [[name, setting_text(opt["settings"][name], step.get(name)), units.get(name) or "",
               step.get(name) or "", opt["settings"][name], opt["coded"][name]]
              for name in opt["settings"]]
+    if doc.get("levels"):
+        rows += [[], ["levels compared", doc["levels"]["statement"]],
+                 ["levels", "chosen", *opt["predicted"], "overall desirability D"]]
+        rows += [[", ".join(f"{n} = {v}" for n, v in item["levels"].items()),
+                  "chosen" if item["chosen"] else "", *item["predicted"].values(),
+                  item["desirability"]] for item in doc["levels"]["by_level"]]
     rows += [[], ["response", "predicted", "95% CI low", "95% CI high", "95% PI low",
                   "95% PI high", "desirability d"]]
     each = opt.get("individual_desirability") or {}

@@ -161,7 +161,7 @@ def sign(session: Session, actor: User, proposal: SetpointProposal, *, meaning: 
     altered snapshot, a fit no longer approved, confirmation not passed), WorkflowError
     (meaning, comment, reason, tolerance).
     """
-    from app.workflow.setpoints import _check_current, fits_of
+    from app.workflow.setpoints import _check_current, continuous_settings, fits_of
 
     signing.accept(session, actor, proof)
     if meaning == EARLIER_RELEASE:
@@ -188,8 +188,7 @@ def sign(session: Session, actor: User, proposal: SetpointProposal, *, meaning: 
     extra: dict[str, Any] = {}
     if meaning == RELEASE:
         _check_current(session, proposal, "released")
-        names = list(json.loads(proposal.result_json)["optimum"]["settings"])
-        extra["tolerance"] = parse_tolerance(tolerance, names)
+        extra["tolerance"] = parse_tolerance(tolerance, continuous_settings(proposal))
     elif meaning == CONFIRM:
         _check_current(session, proposal, "confirmed for production")
         latest = _latest_confirmation(proposal)

@@ -332,9 +332,23 @@ def resolution_of(session: Session, proposal: SetpointProposal) -> dict[str, flo
         return {}
     frame = design_table(chosen[0].data_version).frame
     optimum = result_of(proposal)["optimum"]
-    names = [*optimum["settings"], *optimum["predicted"]]
+    names = [*continuous_settings(proposal), *optimum["predicted"]]
     return {name: stated_step(frame[name].tolist()) if name in frame else None
             for name in names}
+
+
+def numbered_factors(session: Session, proposal: SetpointProposal) -> list[str]:
+    """The continuous factors in the fits' order: those with a tolerance, a gradient and a
+    stationary point; forms number their tolerance fields in this order."""
+    numeric = set(continuous_settings(proposal))
+    return [n for n in factor_order(session, proposal) if n in numeric]
+
+
+def continuous_settings(proposal: SetpointProposal) -> list[str]:
+    """The factors set by a number, in the stored order; a categorical factor is set by a level
+    name and has no tolerance, resolution or gradient."""
+    return [n for n, v in result_of(proposal)["optimum"]["settings"].items()
+            if not isinstance(v, str)]
 
 
 # Starting value offered for the tolerance of a confirmation run's settings: this share of the
@@ -343,7 +357,7 @@ DEFAULT_TOLERANCE_SHARE = 0.02
 
 
 def default_tolerance(session: Session, proposal: SetpointProposal) -> dict[str, float]:
-    """The starting tolerance per factor: 2 % of its studied range."""
+    """The starting tolerance per continuous factor: 2 % of its studied range."""
     chosen = fits_of(session, proposal)
     factors = results_of(chosen[0])["model"]["factors"] if chosen else []
     out = {}
@@ -351,8 +365,7 @@ def default_tolerance(session: Session, proposal: SetpointProposal) -> dict[str,
         low, high = f.get("low"), f.get("high")
         span = (high - low) if low is not None and high is not None else 0.0
         out[f["name"]] = float(f"{abs(span) * DEFAULT_TOLERANCE_SHARE:.4g}")
-    settings = result_of(proposal)["optimum"]["settings"]
-    return {name: out.get(name, 0.0) for name in settings}
+    return {name: out.get(name, 0.0) for name in continuous_settings(proposal)}
 
 
 def signature_json(session: Session, proposal: SetpointProposal,

@@ -194,16 +194,6 @@ def test_spec_round_trip_keeps_levels_and_continuous_factors_unchanged():
     assert SUPPLIER.to_dict()["levels"] == list(LEVELS)
 
 
-def test_setpoint_search_refuses_categorical_factors_clearly():
-    from app.analysis.optimize import SetpointError, propose, single_goal
-
-    doc = analyse(_frame(), _spec()).to_dict()
-    with pytest.raises(SetpointError, match="categorical factors is not available yet"):
-        single_goal(doc, "maximize")
-    with pytest.raises(SetpointError, match="categorical factors is not available yet"):
-        propose({"y": doc}, {"y": {"goal": "maximize"}})
-
-
 def test_predictions_and_profiler_with_a_categorical_factor():
     """predict_many takes level names (checked against statsmodels' get_prediction); the
     profiler traces the continuous factor and lists every level of the categorical one."""

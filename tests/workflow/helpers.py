@@ -6,7 +6,7 @@ from sqlalchemy import select
 
 from app.analysis import Thresholds
 from app.demo_data import rsm_study
-from app.ingest import read_upload, validate
+from app.ingest import ColumnRole, read_upload, validate
 from app.store.models import User
 from app.workflow import fits, reviews, signing, studies, teams, uploads
 from tests.conftest import PASSWORD
@@ -129,3 +129,30 @@ def add_engineers(db, *people: tuple[str, str]) -> None:
         for username, name in people:
             accounts.create_user(s, None, username=username, full_name=name, roles="engineer",
                                  password=PASSWORD)
+
+
+# Gloss rises with speed on M1, peaks mid-range on M2, and M3 sits lower throughout (simulated)
+GLOSS_CSV = (b"Machine,Speed,Gloss\n"
+             b"M2,10,81.5\nM1,20,88.0\nM3,10,78.2\nM2,20,82.9\nM1,10,80.1\nM3,20,80.3\n"
+             b"M2,15,85.4\nM1,15,84.8\nM3,15,80.0\nM1,20,87.6\nM2,10,81.9\nM3,15,79.6\n"
+             b"M1,10,80.5\nM2,15,85.0\nM3,20,80.9\nM2,20,83.3\nM1,15,84.2\nM3,10,78.6\n")
+GLOSS_ROLES = {"Machine": ColumnRole("factor", kind="categorical"),
+               "Speed": ColumnRole("factor", low=10.0, high=20.0, units="m/min"),
+               "Gloss": ColumnRole("response")}
+
+
+def approved_categorical_fit(db) -> tuple[int, int]:
+    """A study whose approved quadratic fit of Gloss has a categorical factor (Machine, three
+    levels) and a continuous one (Speed): (study, fit) ids."""
+    with db.transaction() as s:
+        erin = user(s, "erin")
+        study = studies.create_study(s, erin, title="Gloss by machine")
+        raw = read_upload(GLOSS_CSV, "gloss.csv")
+        version = uploads.add_data_version(s, erin, study, data=GLOSS_CSV, filename="gloss.csv",
+                                           raw=raw, table=validate(raw, GLOSS_ROLES))
+        spec = fits.build_spec(version, response="Gloss", model="quadratic",
+                               thresholds=Thresholds())
+        study_id, fit_id = study.id, fits.create_fit(s, erin, version, spec).id
+    submit(db, fit_id)
+    sign(db, fit_id)
+    return study_id, fit_id

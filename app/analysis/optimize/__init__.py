@@ -11,6 +11,7 @@ import numpy as np
 
 from .. import transforms
 from ..prediction import predict
+from . import levels
 from .canonical import RIDGE_RATIO, SetpointError, Surface, canonical_analysis, classify
 from .check import desirability_check, goal_met_set, optimise_response
 from .design_space import design_space
@@ -27,16 +28,40 @@ __all__ = ["CAUTION", "RIDGE_RATIO", "Goal", "OutsideRegion", "Region", "Setpoin
            "refuse_old_words", "single_goal"]
 
 
-def _setup(results_by_response, bounds, fixed):
+def _documents(results_by_response) -> dict[str, dict]:
     if isinstance(results_by_response, dict):
         # a FitResult object is accepted in place of its document
-        results_by_response = {r: doc.to_dict() if hasattr(doc, "to_dict") else doc
-                               for r, doc in results_by_response.items()}
+        return {r: doc.to_dict() if hasattr(doc, "to_dict") else doc
+                for r, doc in results_by_response.items()}
+    return results_by_response
+
+
+def _setup(results_by_response, bounds, fixed):
     fits = load_fits(results_by_response)
     region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed,
                           why=fits.why)
     surfaces = {r: Surface.from_result(doc, r) for r, doc in fits.results.items()}
     return fits, region, surfaces
+
+
+def _options(results: dict[str, dict], bounds, fixed) -> list[tuple[dict | None, tuple]]:
+    """What to search: ``[(None, setup)]`` without categorical factors, else one
+    ``(levels, setup)`` per combination of levels still open, each on the models reduced to
+    the continuous factors at those levels (:mod:`.levels`)."""
+    first = next(iter(results.values()), None) if isinstance(results, dict) else None
+    categorical = levels.categorical_factors(first) if isinstance(first, dict) else []
+    if not categorical:
+        return [(None, _setup(results, bounds, fixed))]
+    for response, doc in results.items():
+        if [f["name"] for f in levels.categorical_factors(doc)] != [f["name"] for f in
+                                                                   categorical]:
+            raise SetpointError(f"Fits must share the same factors: '{response}' has other "
+                                "categorical factors than the first fit", field="factors")
+    levels.refuse_categorical_bounds(bounds, categorical)
+    continuous_fixed, chosen = levels.split_fixed(fixed, categorical)
+    return [(combo, _setup({r: levels.at_levels(doc, combo) for r, doc in results.items()},
+                           bounds, continuous_fixed or None))
+            for combo in levels.combinations(categorical, chosen)]
 
 
 def _point(region: Region, coded: np.ndarray) -> tuple[dict, dict]:
@@ -140,7 +165,9 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
     tests/analysis/optimize/test_search.py, test_true_optimum.py, test_refusals.py and
     test_within.py.
     """
-    fits, region, surfaces = _setup(results_by_response, bounds, fixed)
+    results = _documents(results_by_response)
+    options = _options(results, bounds, fixed)
+    surfaces = options[0][1][2]
     if not isinstance(goals, dict) or not goals:
         raise SetpointError("At least one response needs a goal", field="goals")
     unknown = [r for r in goals if r not in surfaces]
@@ -149,16 +176,37 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
                             f"(fits: {', '.join(surfaces)})", field="goals")
     for r, spec in goals.items():
         refuse_old_words(r, spec)
-    achievable = {r: _achievable(region, surfaces[r], seed) for r, spec in goals.items()
-                  if isinstance(spec, dict)
+    # one set of limits for every combination of levels, so their D values compare
+    achievable = {r: _widest([_achievable(setup[1], setup[2][r], seed)
+                              for _, setup in options])
+                  for r, spec in goals.items() if isinstance(spec, dict)
                   and str(spec.get("goal", "")).strip().lower() in ("maximize", "minimize")}
-    every = {r: parse_goal(r, spec, observed_range(fits.results[r]), achievable.get(r))
+    every = {r: parse_goal(r, spec, observed_range(results[r]), achievable.get(r))
              for r, spec in goals.items()}
-    parsed = {r: g for r, g in every.items() if not g.is_constraint}
-    kept = {r: g for r, g in every.items() if g.is_constraint}
-    if not parsed:
+    if not any(not g.is_constraint for g in every.values()):
         raise SetpointError("Keeping responses within limits needs at least one response to "
                             f"{', '.join(DESIRABILITY_GOALS)}", field="goals")
+    found = [(combo, _propose_in(*setup, goals, every, seed)) for combo, setup in options]
+    if found[0][0] is None:
+        return found[0][1]
+    single = _single_response_goal(goals)
+    what = (f"the {'highest' if single[1] == 'maximize' else 'lowest'} predicted {single[0]}"
+            if single else "the highest overall desirability D")
+    doc = _best_levels(found, results, [_score(d, single) for _, d in found], what)
+    _full_predictions(doc, results)
+    return doc
+
+
+def _widest(ranges: list[tuple[float, float]]) -> tuple[float, float]:
+    return min(lo for lo, _ in ranges), max(hi for _, hi in ranges)
+
+
+def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
+                seed: int) -> dict:
+    """The search of :func:`propose` in one region, goals already parsed."""
+    parsed = {r: g for r, g in every.items() if not g.is_constraint}
+    kept = {r: g for r, g in every.items() if g.is_constraint}
+
 
     def individual(coded: np.ndarray) -> dict[str, np.ndarray]:
         return {r: g.desirability(surfaces[r].response_scale(coded)) for r, g in parsed.items()}
@@ -246,6 +294,72 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
             "caution": CAUTION}
 
 
+def _score(doc: dict, single: tuple[str, str] | None) -> float:
+    """How good one combination's proposal is: the predicted response for a single maximize
+    or minimize goal (negated for minimize), else the overall desirability D."""
+    optimum = doc["optimum"]
+    if single is None:
+        return float(optimum["desirability"])
+    return _signed(optimum["predicted"][single[0]], single[1])
+
+
+def _signed(value: float | None, sense: str) -> float:
+    if value is None or not np.isfinite(value):
+        return -np.inf
+    return float(value) if sense == "maximize" else -float(value)
+
+
+def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
+                 scores: list[float], what: str) -> dict:
+    """The proposal of the best-scoring combination of levels (the first of equals, in the
+    levels' own order) with its settings naming the levels, every combination's best listed
+    under ``levels.by_level`` and the choice said in ``levels.statement``."""
+    top = max(scores)
+    tol = 1e-9 * max(1.0, abs(top)) if np.isfinite(top) else 0.0
+    best = next(i for i, sc in enumerate(scores) if sc >= top - tol)
+    chosen_levels, doc = found[best]
+    first = next(iter(results.values()))
+    order = [f["name"] for f in first["model"]["factors"]]
+    by_level = [{"levels": combo, "chosen": i == best,
+                 "settings": levels.with_levels(d["optimum"]["settings"], combo, order),
+                 "predicted": d["optimum"]["predicted"],
+                 "desirability": d["optimum"]["desirability"]}
+                for i, (combo, d) in enumerate(found)]
+    ties = [i for i, sc in enumerate(scores) if i != best and sc >= top - tol]
+    named = ", ".join(f"{n} = {v}" for n, v in chosen_levels.items())
+    statement = (f"Searched the continuous factors at each of {len(found)} combination(s) of "
+                 f"levels; {named} gives {what}.")
+    if ties:
+        statement += (f" {len(ties)} other combination(s) do equally well; the first in the "
+                      "levels' order is shown.")
+    optimum = doc["optimum"]
+    optimum["settings"] = levels.with_levels(optimum["settings"], chosen_levels, order)
+    optimum["coded"] = levels.with_levels(optimum["coded"], chosen_levels, order)
+    stationary = doc["stationary_point"]
+    # propose keeps one per response, single_goal one (or None)
+    several = isinstance(stationary, dict) and "kind" not in stationary
+    for sp in (stationary.values() if several else [stationary]):
+        if sp:
+            sp["settings"] = levels.with_levels(sp["settings"], chosen_levels, order)
+            sp["coded"] = levels.with_levels(sp["coded"], chosen_levels, order)
+    doc["levels"] = {"chosen": chosen_levels, "statement": statement, "by_level": by_level,
+                     "factors": [f["name"] for f in levels.categorical_factors(first)]}
+    return doc
+
+
+def _full_predictions(doc: dict, results: dict[str, dict]) -> None:
+    """The reported predictions at the chosen levels, from the full fitted models (the
+    reduced ones give the same numbers; tests/analysis/optimize/test_levels.py)."""
+    optimum = doc["optimum"]
+    for response, result in results.items():
+        full = predict(result, optimum["settings"])
+        for key in ("predicted", "ci", "pi"):
+            if isinstance(optimum[key], dict):
+                optimum[key][response] = full[key]
+            else:
+                optimum[key] = full[key]
+
+
 def _parse_cli_goal(goal: str) -> tuple[str, float | None]:
     text = str(goal).strip().lower()
     if text in ("maximize", "minimize"):
@@ -282,9 +396,30 @@ def single_goal(results: dict, goal: str, bounds=None, fixed=None, seed: int = 0
         results = results.to_dict()
     response = results.get("response") if isinstance(results, dict) else None
     response = response or "response"
-    fits, region, surfaces = _setup({response: results}, bounds, fixed)
-    surface = surfaces[response]
     name, target = _parse_cli_goal(goal)
+    observed = observed_range(results)
+    found = [(combo, _single_in(*setup, response, name, target, observed, seed))
+             for combo, setup in _options({response: results}, bounds, fixed)]
+    if found[0][0] is None:
+        return found[0][1]
+    if name == "target":
+        scores = [_signed(None if d["optimum"]["predicted"] is None
+                          else abs(d["optimum"]["predicted"] - target), "minimize")
+                  for _, d in found]
+        what = f"the prediction nearest the target {target:g}"
+    else:
+        scores = [_signed(d["optimum"]["predicted"], name) for _, d in found]
+        what = f"the {'highest' if name == 'maximize' else 'lowest'} predicted {response}"
+    doc = _best_levels(found, {response: results}, scores, what)
+    _full_predictions(doc, {response: results})
+    return doc
+
+
+def _single_in(fits, region: Region, surfaces: dict, response: str, name: str,
+               target: float | None, observed: tuple[float, float] | None, seed: int) -> dict:
+    """The search of :func:`single_goal` in one region."""
+    surface = surfaces[response]
+    results = fits.results[response]
     if name == "target":
         with np.errstate(all="ignore"):
             z_target = float(transforms.forward(np.array([target]), surface.transform,
@@ -308,7 +443,7 @@ def single_goal(results: dict, goal: str, bounds=None, fixed=None, seed: int = 0
     spec = {"goal": name} if target is None else {"goal": name, "target": target}
     note = None
     try:
-        parsed = parse_goal(response, spec, observed_range(results))
+        parsed = parse_goal(response, spec, observed)
         d = float(parsed.desirability(np.nan if pred["predicted"] is None else pred["predicted"]))
         goal_doc = parsed.to_dict()
     except SetpointError as err:

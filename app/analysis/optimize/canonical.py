@@ -64,8 +64,9 @@ class Surface:
     def from_result(cls, result: dict, response: str) -> Surface:
         model = _model_part(result, response)
         if any(f.get("levels") is not None for f in model["factors"]):
-            raise SetpointError(f"Fit for '{response}': setpoint search with categorical "
-                                "factors is not available yet", field="factors")
+            # reduced to the continuous factors first (levels.at_levels)
+            raise SetpointError(f"Fit for '{response}' has categorical factors: the surface "
+                                "is taken with each at one level", field="factors")
         names = tuple(f["name"] for f in model["factors"])
         index = {n: i for i, n in enumerate(names)}
         powers = []

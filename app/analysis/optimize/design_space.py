@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from . import levels
 from .canonical import SetpointError, Surface
 from .region import build_region, load_fits
 
@@ -57,6 +58,29 @@ def parse_specs(specs: dict, responses: list[str]) -> dict[str, tuple[float | No
     return out
 
 
+def _at_levels(results: dict[str, dict], fixed: dict | None, x_factor: str,
+               y_factor: str) -> tuple[dict[str, dict], dict | None, dict[str, str]]:
+    """With categorical factors: the models reduced to the continuous factors at the levels
+    ``fixed`` names (each categorical factor needs one), the continuous fixed values, and the
+    levels held."""
+    first = next(iter(results.values()), None) if isinstance(results, dict) else None
+    categorical = levels.categorical_factors(first) if isinstance(first, dict) else []
+    if not categorical:
+        return results, fixed, {}
+    for label, name in (("x_factor", x_factor), ("y_factor", y_factor)):
+        if name in {f["name"] for f in categorical}:
+            raise SetpointError(f"'{name}' is categorical: the map is drawn over two continuous "
+                                "factors with each categorical factor at one level",
+                                field=label)
+    continuous, held = levels.split_fixed(fixed, categorical)
+    missing = [f["name"] for f in categorical if f["name"] not in held]
+    if missing:
+        raise SetpointError(f"The map holds each categorical factor at one level: give the "
+                            f"level of '{missing[0]}'", field=missing[0])
+    return ({r: levels.at_levels(doc, held) for r, doc in results.items()}, continuous or None,
+            held)
+
+
 def design_space(results_by_response: dict[str, dict], specs: dict, x_factor: str,
                  y_factor: str, fixed: dict | None = None, points: int = 41,
                  level: float = 0.95) -> dict:
@@ -69,6 +93,8 @@ def design_space(results_by_response: dict[str, dict], specs: dict, x_factor: st
     overlay. Interval arithmetic matches :func:`app.analysis.predict` (checked in
     tests/analysis/optimize/test_design_space.py).
     """
+    results_by_response, fixed, held = _at_levels(results_by_response, fixed, x_factor,
+                                                  y_factor)
     fits = load_fits(results_by_response)
     names = [f["name"] for f in fits.factors]
     for label, name in (("x_factor", x_factor), ("y_factor", y_factor)):
@@ -122,7 +148,7 @@ def design_space(results_by_response: dict[str, dict], specs: dict, x_factor: st
     first = next(iter(fits.results.values()))
     design_points = [{"row": r.get("row"), "x": r["actual"][x_factor], "y": r["actual"][y_factor]}
                      for r in first.get("runs") or [] if not r.get("excluded")]
-    return {"x_factor": x_factor, "y_factor": y_factor, "fixed": full_fixed,
+    return {"x_factor": x_factor, "y_factor": y_factor, "fixed": {**full_fixed, **held},
             "specs": {r: {"lower": lo, "upper": hi} for r, (lo, hi) in limits.items()},
             "level": level, "points": records,
             "fraction_inside": float(inside.mean()) if len(inside) else 0.0,

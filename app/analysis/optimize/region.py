@@ -307,6 +307,9 @@ def build_region(factors: list[dict], kind: str, radius: float | None,
             raise OutsideRegion(f"Fixed value for '{name}' ({f.describe(c)}) is outside its "
                                 "bound", field=name)
         coded_fixed[i] = c
+    if scales and len(coded_fixed) == len(scales):
+        raise SetpointError("Every factor is fixed, so nothing is left to search; ask for a "
+                            "prediction at these settings instead", field=names[-1])
     region = Region(kind=kind, radius=None if kind == "cube" else float(radius), factors=scales,
                     lower=lower, upper=upper, fixed=coded_fixed, why=why)
     if kind == "sphere":
@@ -360,10 +363,10 @@ def load_fits(results_by_response: dict[str, dict]) -> Fits:
         these = result["model"].get("factors") or []
         categorical = [f["name"] for f in these if f.get("levels") is not None]
         if categorical:
+            # the callers reduce each model to its continuous factors first (levels.at_levels)
             raise SetpointError(
-                "Setpoint search with categorical factors is not available yet: the fit for "
-                f"'{response}' has categorical factor(s) {', '.join(categorical)}; use the "
-                "prediction at each level instead", field="factors")
+                f"The fit for '{response}' has categorical factor(s) {', '.join(categorical)}: "
+                "the search runs with each at one level", field="factors")
         if factors is None:
             first_name, factors = response, these
         elif len(these) != len(factors) or not all(
