@@ -233,6 +233,7 @@ def _check(file: Path, response: str, factors: str | None, run_order: str | None
         document["setpoint_region"] = search["region"]
         document["setpoint_check"] = search.get("check")
         document["setpoint_caution"] = search.get("caution")
+        document["setpoint_levels"] = search.get("levels")
     if as_json:
         click.echo(json.dumps(document, sort_keys=True, indent=2))
         return
@@ -247,9 +248,18 @@ def _search_text(goal: str, search: dict) -> str:
     lines = ["", f"Setting search ({goal}) inside the design region",
              "  " + search["region"]["why"]]
     for name, value in opt["settings"].items():
-        lines.append(f"  {name:<24} {value:.6g}   (coded {opt['coded'][name]:+.3f})")
+        if isinstance(value, str):
+            lines.append(f"  {name:<24} {value}   (level)")
+        else:
+            lines.append(f"  {name:<24} {value:.6g}   (coded {opt['coded'][name]:+.3f})")
     lines.append(f"  predicted {opt['predicted']:.6g}   95% CI [{opt['ci'][0]:.6g}, "
                  f"{opt['ci'][1]:.6g}]   95% PI [{opt['pi'][0]:.6g}, {opt['pi'][1]:.6g}]")
+    if search.get("levels"):
+        lines.append("  " + search["levels"]["statement"])
+        for item in search["levels"]["by_level"]:
+            named = ", ".join(f"{n} = {v}" for n, v in item["levels"].items())
+            lines.append(f"    {named:<28} predicted {item['predicted'][search['response']]:.6g}"
+                         + ("   (proposed)" if item["chosen"] else ""))
     if search.get("check"):
         lines.append(f"  check: {search['check']['status']}. {search['check']['statement']}")
     sp = search.get("stationary_point")

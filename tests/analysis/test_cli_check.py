@@ -124,3 +124,24 @@ def test_earlier_range_goal_is_refused_with_its_new_name():
     old = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "in_range"])
     assert old.exit_code == 2
     assert "no longer accepted" in old.output and "'within'" in old.output
+
+
+def test_goal_with_a_categorical_factor_names_the_level(tmp_path):
+    """A text column of few names is a categorical factor; the search runs at each level and
+    the text lists them (the numbers themselves are checked in optimize/test_levels.py)."""
+    from tests.workflow.helpers import GLOSS_CSV
+
+    path = tmp_path / "gloss.csv"
+    path.write_bytes(GLOSS_CSV)
+    text = _run([path, "--response", "Gloss", "--factors", "Machine,Speed", "--model",
+                 "quadratic", "--goal", "maximize"])
+    assert text.exit_code == 0, text.output
+    assert "Machine                  M1   (level)" in text.output
+    assert "Machine = M1 gives the highest predicted Gloss" in text.output
+    assert text.output.count("predicted") >= 4 and "(proposed)" in text.output
+    as_json = _run([path, "--response", "Gloss", "--factors", "Machine,Speed", "--model",
+                    "quadratic", "--goal", "maximize", "--json"])
+    doc = json.loads(as_json.output)
+    assert doc["optimum"]["settings"]["Machine"] == "M1"
+    assert [i["levels"]["Machine"] for i in doc["setpoint_levels"]["by_level"]] == [
+        "M2", "M1", "M3"]

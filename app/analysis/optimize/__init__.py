@@ -322,7 +322,7 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
     order = [f["name"] for f in first["model"]["factors"]]
     by_level = [{"levels": combo, "chosen": i == best,
                  "settings": levels.with_levels(d["optimum"]["settings"], combo, order),
-                 "predicted": d["optimum"]["predicted"],
+                 "predicted": _per_response(d["optimum"]["predicted"], results),
                  "desirability": d["optimum"]["desirability"]}
                 for i, (combo, d) in enumerate(found)]
     ties = [i for i, sc in enumerate(scores) if i != best and sc >= top - tol]
@@ -345,6 +345,11 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
     doc["levels"] = {"chosen": chosen_levels, "statement": statement, "by_level": by_level,
                      "factors": [f["name"] for f in levels.categorical_factors(first)]}
     return doc
+
+
+def _per_response(predicted, results: dict[str, dict]) -> dict:
+    """``{response: value}``: single_goal's optimum holds the one response's value alone."""
+    return predicted if isinstance(predicted, dict) else {next(iter(results)): predicted}
 
 
 def _full_predictions(doc: dict, results: dict[str, dict]) -> None:
