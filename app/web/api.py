@@ -387,9 +387,7 @@ def _plan_fields(form, study_id: int):
         raise WorkflowError(f"Field 'plan_id' must be a plan's id (got '{text}').",
                             field="plan_id")
     with database().session(write=False) as s:
-        plan = teams.plan_for(s, g.user, int(text))
-    if plan.study_id != study_id:
-        raise WorkflowError(f"Plan {plan.id} belongs to another study.", field="plan_id")
+        plan = plans.require_in_study(teams.plan_for(s, g.user, int(text)), study_id, text)
     tolerance = None
     if form.get("tolerance"):
         try:

@@ -108,9 +108,7 @@ def _chosen_plan(study_id: int, text: str | None):
     if not text:
         return None
     plan = plans.get_plan(get_session(), int(text)) if text.isdigit() else None
-    if plan is None or plan.study_id != study_id:
-        raise WorkflowError(f"Plan {text} is not a plan of this study.", field="plan_id")
-    return plan
+    return plans.require_in_study(plan, study_id, text)
 
 
 def _staged_raw(study_id: int, token: str, sheet: str | None):

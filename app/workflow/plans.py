@@ -237,11 +237,18 @@ def check_upload(plan: Plan, table, tolerance: dict | None = None) -> dict[str, 
         raise WorkflowError(str(exc), field=exc.field) from None
 
 
+def require_in_study(plan: Plan | None, study_id: int, named: str) -> Plan:
+    """The one rule for an upload naming a plan: it must be a plan of the upload's study
+    (``named`` is the id as given, for the message)."""
+    if plan is None or plan.study_id != study_id:
+        raise WorkflowError(f"Plan {named} is not a plan of this study.", field="plan_id")
+    return plan
+
+
 def link_upload(session: Session, version: DataVersion, plan: Plan,
                 tolerance: dict[str, float]) -> PlanUpload:
     """Record that ``version`` was run from ``plan`` (inside the upload's transaction)."""
-    if plan.study_id != version.study_id:
-        raise WorkflowError(f"Plan {plan.id} belongs to another study.", field="plan_id")
+    require_in_study(plan, version.study_id, str(plan.id))
     link = PlanUpload(data_version_id=version.id, plan_id=plan.id,
                       tolerance_json=canonical_json(tolerance))
     session.add(link)
