@@ -12,7 +12,7 @@ import pytest
 from openpyxl import load_workbook
 from sqlalchemy import func, select
 
-from app.store.models import AuditEvent, Plan, PlanUpload
+from app.store.models import AuditEvent, DataVersion, Plan, PlanUpload
 from app.web.openapi import API_PREFIX
 from app.workflow import reviews
 from tests.conftest import PASSWORD
@@ -163,6 +163,23 @@ def test_within_tolerance_and_a_tolerance_of_ones_own(client, db, study_id):
     _plan_made, uploaded = _run_and_upload(client, _bearer(db, "erin"), study_id,
                                            tolerance=json.dumps({"Cure temperature": 2.5}))
     assert uploaded.get_json()["plan_deviations"]["deviations"] == []
+
+
+def test_an_upload_naming_another_studys_plan_is_refused_and_nothing_stored(client, db,
+                                                                            study_id):
+    auth = _bearer(db, "erin")
+    plan = _plan(client, auth, study_id)
+    sheet = client.get(f"{API_PREFIX}/plans/{plan['id']}/sheet.csv", headers=auth)
+    other = h.make_study(db, title="Another oven")
+    refused = client.post(f"{API_PREFIX}/studies/{other}/data", headers=auth,
+                          content_type="multipart/form-data",
+                          data={"file": (io.BytesIO(_results(sheet.get_data(as_text=True))),
+                                         "runs.csv"), "plan_id": str(plan["id"])})
+    assert refused.status_code == 400
+    assert refused.get_json()["field"] == "plan_id"
+    assert f"Plan {plan['id']} is not a plan of this study" in refused.get_json()["error"]
+    with db.session() as s:
+        assert s.scalar(select(func.count()).select_from(DataVersion)) == 0
 
 
 def test_plans_follow_the_team(client, db, study_id):
