@@ -86,11 +86,15 @@ def proposals_awaiting_release(session: Session, user: User,
     query = (select(SetpointProposal).where(SetpointProposal.state == "draft")
              .options(joinedload(SetpointProposal.study), joinedload(SetpointProposal.created_by))
              .order_by(SetpointProposal.created_at, SetpointProposal.id))
+    proposals = list(session.scalars(_readable(session, user, query,
+                                                 SetpointProposal.study_id)))
+    # the fits behind every waiting proposal in one statement, not one per proposal
+    wanted = {p.id: json.loads(p.fit_ids_json) for p in proposals}
+    ids = {i for fit_ids in wanted.values() for i in fit_ids}
+    by_id = {f.id: f for f in session.scalars(select(Fit).where(Fit.id.in_(ids)))} if ids else {}
     items = []
-    for proposal in session.scalars(_readable(session, user, query,
-                                                     SetpointProposal.study_id)):
-        used = list(session.scalars(select(Fit).where(
-            Fit.id.in_(json.loads(proposal.fit_ids_json)))))
+    for proposal in proposals:
+        used = [by_id[i] for i in wanted[proposal.id] if i in by_id]
         may, why = _may_sign(user, lambda p=proposal, u=used: signing.check_releaser(user, p, u))
         seconds = (now - proposal.created_at).total_seconds()
         items.append({"kind": "setpoints", "proposal": proposal, "study": proposal.study,
