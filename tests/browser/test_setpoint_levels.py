@@ -24,6 +24,7 @@ def test_levels_searched_proposed_and_released(page, live_server, tmp_path):
     assert page.locator("input[aria-label='Lower bound of Machine']").count() == 0
     page.check(f"input[name=fit][value='{fit_id}']")
     page.select_option(f"select[name=goal_{fit_id}]", "maximize")
+    screenshot(page, "setpoint-levels-form")
     page.click("button:has-text('Search for setpoints')")
     page.wait_for_selector("h1:has-text('Setpoint proposal')")
     assert CAUTION in page.inner_text(".caution")
