@@ -24,7 +24,7 @@ from scipy import stats
 from app.analysis import runstore, transforms
 from app.analysis.prediction import model_rows
 from app.analysis.runstore import RunColumns
-from app.web.charts_contour import iso_lines
+from app.web.charts_contour import band_colours, iso_lines, nice_levels
 
 # Our own palette: ink-blue points, a burnt-orange highlight, red and amber limit lines.
 POINT = "#23527c"
@@ -481,13 +481,17 @@ def contour(results: dict, x_factor: str, y_factor: str,
               "predicted": None if not np.isfinite(c) else round(float(c), 4)}
              for a, b, c in zip(gx.ravel(), gy.ravel(), z.ravel(), strict=True)]
     response = results.get("response", "response")
+    levels = nice_levels(z).tolist()
+    # the colour bands change exactly where the labelled lines run
+    band_scale = (alt.Scale(type="threshold", domain=levels,
+                            range=band_colours(SURFACE, len(levels) + 1)) if levels
+                  else alt.Scale(type="quantize", range=SURFACE))
     heat = alt.Chart(alt.NamedData(name="surface"), name="surface").mark_rect().encode(
         x=alt.X("x:Q", title=x_factor, scale=alt.Scale(zero=False, nice=False),
                 axis=alt.Axis(grid=False)), x2="x2:Q",
         y=alt.Y("y:Q", title=y_factor, scale=alt.Scale(zero=False, nice=False),
                 axis=alt.Axis(grid=False)), y2="y2:Q",
-        color=alt.Color("predicted:Q", title=f"Predicted {response}",
-                        scale=alt.Scale(type="quantize", range=SURFACE)),
+        color=alt.Color("predicted:Q", title=f"Predicted {response}", scale=band_scale),
         tooltip=[alt.Tooltip("predicted:Q", format=".4g", title=f"Predicted {response}")])
     data = _design_points(cols, x_factor, y_factor)
     pts = (alt.Chart(name="runs").mark_point(filled=True, stroke="#ffffff", strokeWidth=1)

@@ -88,3 +88,13 @@ def iso_lines(xs: np.ndarray, ys: np.ndarray, z: np.ndarray
         labels.append({"x": float(at[0]), "y": float(at[1]), "level": level,
                        "text": f"{level:g}"})
     return segments, labels
+
+
+def band_colours(stops: list[str], n: int) -> list[str]:
+    """``n`` colours spaced evenly along the palette ``stops`` (hex), interpolated in RGB."""
+    rgb = np.array([[int(c[i:i + 2], 16) for i in (1, 3, 5)] for c in stops], dtype=float)
+    at = np.linspace(0.0, len(stops) - 1.0, n) if n > 1 else np.array([0.0])
+    low = np.floor(at).astype(int).clip(0, len(stops) - 1)
+    high = np.minimum(low + 1, len(stops) - 1)
+    mixed = rgb[low] + (rgb[high] - rgb[low]) * (at - low)[:, None]
+    return ["#" + "".join(f"{int(round(v)):02x}" for v in colour) for colour in mixed]

@@ -417,6 +417,20 @@ def test_contour_lines_are_labelled_and_close_to_the_model(rsm, validator):
     assert all(d["text"] == f"{d['level']:g}" for d in labels)
     assert chart.spec["title"]["subtitle"] == "Held: Catalyst at 1 %"
     assert "Held: Catalyst at 1 %" in chart.note and "Lines where" in chart.note
+    # the colour bands change exactly at the labelled values, one band more than lines
+    heat = next(layer for layer in chart.spec["layer"] if layer.get("name") == "surface")
+    scale = heat["encoding"]["color"]["scale"]
+    assert scale["type"] == "threshold"
+    assert scale["domain"] == sorted(d["level"] for d in labels)
+    assert len(scale["range"]) == len(labels) + 1
+    assert scale["range"][0] == charts.SURFACE[0] and scale["range"][-1] == charts.SURFACE[-1]
+
+
+def test_band_colours_run_along_the_palette():
+    from app.web.charts_contour import band_colours
+
+    assert band_colours(["#000000", "#ffffff"], 3) == ["#000000", "#808080", "#ffffff"]
+    assert band_colours(charts.SURFACE, len(charts.SURFACE)) == charts.SURFACE
 
 
 def test_half_normal_names_only_the_effects_that_stand_out(saturated):
