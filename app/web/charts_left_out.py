@@ -25,9 +25,11 @@ from scipy import stats
 
 from app.analysis.prediction import new_run_scores
 from app.analysis.runstore import RunColumns
-from app.web.charts import HEIGHT, Chart, included_runs, level_names
+from app.web.charts import HEIGHT, HIGHLIGHT, Chart, included_runs, level_names
 
 LEFT_OUT = "#8a8f98"
+# The point selection of the left-out layer (the fitted runs' layer has "pick").
+PICK = "pick_left_out"
 # At most this many left-out runs are drawn on one chart (as many as marked runs when binned).
 DRAW_MAX = 300
 NOTE = ("Hollow grey markers: runs left out of the fit (not part of any statistic here); "
@@ -130,13 +132,18 @@ def add_left_out(chart: Chart, results: dict, cols: RunColumns,
                 d[field] = record.get(feeds.get(field, field))
         data.append(d)
     kind = runs.get("mark")
+    picked = "datum.row === highlight_row"
+    # highlighted as the fitted runs are (static/js/charts.js listens to PICK as to "pick")
+    encoding["color"] = {"condition": {"test": picked, "value": HIGHLIGHT}, "value": LEFT_OUT}
     if (kind if isinstance(kind, str) else (kind or {}).get("type")) == "tick":
-        mark = {"type": "tick", "color": LEFT_OUT, "thickness": 2, "strokeDash": [2, 2]}
+        mark = {"type": "tick", "thickness": 2, "strokeDash": [2, 2]}
         encoding["y"] = {"value": HEIGHT}
     else:
-        mark = {"type": "point", "filled": False, "color": LEFT_OUT, "strokeWidth": 2,
-                "size": 80, "opacity": 1}
+        mark = {"type": "point", "filled": False, "strokeWidth": 2, "opacity": 1}
+        encoding["size"] = {"condition": {"test": picked, "value": 160}, "value": 80}
     layer = {"name": "left_out", "data": {"name": "left_out"}, "mark": mark,
+             "params": [{"name": PICK, "select": {"type": "point", "fields": ["row"],
+                                                   "on": "click", "clear": "dblclick"}}],
              "encoding": {**encoding, "tooltip": [
                  {"field": "label", "type": "nominal", "title": "Run (left out)"},
                  {"field": "row", "type": "ordinal", "title": "Row"},

@@ -46,11 +46,14 @@
       expr: window.vegaInterpreter.expressionInterpreter
     }).then(function (result) {
       views[chart.name] = result.view;
-      if (hasSignal(result.view, "pick")) {
-        result.view.addSignalListener("pick", function (_name, value) {
-          highlight(rowOf(value));
-        });
-      }
+      // "pick" on the fitted runs, "pick_left_out" on the runs left out of the fit
+      ["pick", "pick_left_out"].forEach(function (name) {
+        if (hasSignal(result.view, name)) {
+          result.view.addSignalListener(name, function (_name, value) {
+            highlight(rowOf(value));
+          });
+        }
+      });
       state.rendered.push(chart.name);
       figure.classList.add("rendered");
     }).catch(function (err) {

@@ -89,6 +89,19 @@ def test_engineer_fits_checks_and_compares(page):
     assert "highlighted" in page.get_attribute(f"table.runs tr[data-row='{row}']", "class")
     page.locator('figure[data-chart="run_order"]').scroll_into_view_if_needed()
     screenshot(page, "fit-page-highlight")
+    # A run left out of the fit is highlighted the same way from its hollow marker.
+    hollow = page.locator('figure[data-chart="residuals_vs_fitted"] .left_out_marks path')
+    assert hollow.count() == 1
+    hollow.first.click()
+    page.wait_for_function(f"window.plumblineCharts.highlighted !== {row}")
+    left_row = page.evaluate("window.plumblineCharts.highlighted")
+    assert "excluded" in page.get_attribute(f"table.runs tr[data-row='{left_row}']", "class")
+    assert "highlighted" in page.get_attribute(f"table.runs tr[data-row='{left_row}']",
+                                               "class")
+    page.wait_for_function(
+        f"document.querySelectorAll('figure[data-chart=\"leverage\"] .left_out_marks "
+        f"path[stroke=\"{HIGHLIGHT}\"]').length === 1")
+    _shot(page.locator('figure[data-chart="leverage"]'), "fit-chart-left-out-highlighted")
     for name in ("residuals_vs_fitted", "run_order", "contour", "leverage"):
         _shot(page.locator(f'figure[data-chart="{name}"]'), f"fit-chart-{name}")
 

@@ -273,7 +273,12 @@ def test_left_out_run_is_drawn_hollow_and_grey_on_every_run_chart(rsm, validator
         assert [(r["row"], r["label"], r["reason"]) for r in left] == [
             (3, "CV40-R03", "panel scratched")], chart.name
         layer = _left_out_layer(chart.spec)
-        assert layer["mark"]["color"] == "#8a8f98", chart.name
+        colour = layer["encoding"]["color"]
+        assert colour["value"] == "#8a8f98", chart.name
+        # a click on it highlights the run everywhere, as on a fitted run
+        assert colour["condition"] == {"test": "datum.row === highlight_row",
+                                       "value": charts.HIGHLIGHT}
+        assert [p["name"] for p in layer["params"]] == ["pick_left_out"]
         assert layer["mark"].get("filled") is False or layer["mark"]["type"] == "tick"
         assert "reason" in {t["field"] for t in layer["encoding"]["tooltip"]}
         for axis in ("x", "y"):
