@@ -20,6 +20,7 @@ from app.workflow import (
     setpoint_signoff,
     setpoints,
 )
+from app.workflow.package import build_package, verify_package
 from tests.conftest import PASSWORD
 from tests.workflow import helpers as h
 
@@ -110,3 +111,9 @@ def test_release_tolerance_covers_continuous_factors_and_runs_keep_the_level(db,
     assert judged["verdict"] == "pass"
     assert judged["deviations"]["Machine"]["run"] == "M1"
     assert judged["settings_run"]["Machine"] == "M1"
+    # the record package carries the level and re-judges the runs offline
+    with db.session() as s:
+        proposal = setpoints.get_proposal(s, pid)
+        data = build_package(s, proposal.study, "test")
+    report = verify_package(data)
+    assert report.problems == [] and report.confirmation_runs == 1
