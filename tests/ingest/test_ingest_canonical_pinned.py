@@ -2,8 +2,8 @@
 
 The digests below were recorded from the row-by-row writer that came before the column-wise
 one; a change of a single byte in any of these tables fails the test. The "random" table was
-made from numpy's random draws until a newer numpy (2.4.6 here) drew other doubles from the same seed;
-it is now made from integer draws and its digest re-recorded, with every cell also checked
+made from numpy's random draws until a newer numpy (2.4.6 here) drew other doubles from the same
+seed; it is now made from integer draws and its digest re-recorded, with every cell also checked
 against Python's shortest round-trip text of its double (``repr``), which the writer promises.
 """
 
