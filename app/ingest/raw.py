@@ -276,8 +276,9 @@ def check_cell_lengths(frame: pd.DataFrame) -> None:
     problems = []
     for name in frame.columns:
         values = frame[name].to_numpy(dtype=object)
-        distinct = pd.unique(values)
-        longest = max((len(t) for t in distinct if t is not None), default=0)
+        # len over every cell in C (empty cells are None): a column of 100,000 distinct
+        # numbers costs no more than a column of three names.
+        longest = max(map(len, filter(None, values)), default=0)
         if longest <= MAX_CELL_CHARS:
             continue
         rows = frame.index[np.flatnonzero(
