@@ -15,6 +15,8 @@ from .limits import MAX_CELL_CHARS, MAX_HEADER_CHARS
 # Deliberately narrower than float(): "nan", "inf", "1_000" and hex are not measurements.
 _NUMBER_POINT = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
 _NUMBER_COMMA = re.compile(r"[+-]?(?:\d+(?:,\d*)?|,\d+)(?:[eE][+-]?\d+)?")
+# What a column of plain numbers may hold besides the line breaks that join its texts.
+_PLAIN_CHARS = {".": b"0123456789+-eE.\n", ",": b"0123456789+-eE,\n"}
 
 
 def parse_number(text: str, decimal: str = ".") -> float | None:
@@ -59,18 +61,42 @@ def number_values(cells: pd.Series | np.ndarray, decimal: str = ".") -> np.ndarr
 
 def _distinct_numbers(texts: np.ndarray, decimal: str) -> np.ndarray:
     """Float64 value of each text, NaN for those :func:`parse_number` refuses."""
-    pattern = _NUMBER_COMMA if decimal == "," else _NUMBER_POINT
-    ok = np.fromiter(map(bool, map(pattern.fullmatch, texts)), bool, len(texts))
-    out = np.full(len(texts), np.nan)
-    if ok.any():
-        matched = texts[ok]
-        if decimal == ",":
-            matched = np.asarray([t.replace(",", ".") for t in matched], dtype=object)
-        with np.errstate(over="ignore", invalid="ignore"):
-            numbers = matched.astype(np.float64)  # float() of each text, so the same double
-        numbers[~np.isfinite(numbers)] = np.nan  # an exponent such as 1e999 overflows to inf
-        out[ok] = numbers
-    return out
+    numbers = _plain_numbers(texts, decimal)
+    if numbers is None:
+        pattern = _NUMBER_COMMA if decimal == "," else _NUMBER_POINT
+        ok = np.fromiter(map(bool, map(pattern.fullmatch, texts)), bool, len(texts))
+        numbers = np.full(len(texts), np.nan)
+        if ok.any():
+            numbers[ok] = _float_values(texts[ok], decimal)
+    numbers[~np.isfinite(numbers)] = np.nan  # an exponent such as 1e999 overflows to inf
+    return numbers
+
+
+def _plain_numbers(texts: np.ndarray, decimal: str) -> np.ndarray | None:
+    """Every text's value when each one is a plain number, else None.
+
+    A column of numbers, the usual case, is settled by one scan of its characters in C instead
+    of a pattern match per text. A text of ASCII digits, signs, "e" and the decimal mark alone
+    is read by float() exactly when it matches the pattern: float()'s wider forms ("nan",
+    "inf", "1_000", surrounding blanks, other scripts' digits) all need some other character.
+    Verified against :func:`parse_number` in ``tests/ingest/test_ingest_columnwise.py``.
+    """
+    joined = "\n".join(texts)
+    if (not joined.isascii() or joined.count("\n") != len(texts) - 1
+            or joined.encode("ascii").translate(None, _PLAIN_CHARS[decimal])):
+        return None
+    try:
+        return _float_values(texts, decimal)
+    except ValueError:  # such as "e5" or "1.2.3": the pattern decides text by text
+        return None
+
+
+def _float_values(texts: np.ndarray, decimal: str) -> np.ndarray:
+    """float() of each text (the decimal mark read as a point), so the same double."""
+    if decimal == ",":
+        texts = np.asarray([t.replace(",", ".") for t in texts], dtype=object)
+    with np.errstate(over="ignore", invalid="ignore"):
+        return texts.astype(np.float64)
 
 
 def looks_numeric(text: str) -> bool:

@@ -42,6 +42,22 @@ def test_number_values_matches_parse_number_on_any_text(cells, decimal):
         assert (math.isnan(value) if expected is None else value == expected), cell
 
 
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.text(alphabet="0123456789+-eE.,", min_size=1, max_size=8), min_size=1,
+                max_size=20),
+       st.sampled_from([".", ","]))
+def test_number_values_column_of_number_characters(cells, decimal):
+    """Texts of digits, signs, "e" and decimal marks alone: a whole column of them is read in
+    one pass when every one is a number, and text by text when any is not; both agree with
+    parse_number."""
+    for column in (cells, [c for c in cells if parse_number(c, decimal) is not None]):
+        values = number_values(np.array(column, dtype=object), decimal)
+        for cell, value in zip(column, values.tolist(), strict=True):
+            expected = parse_number(cell, decimal)
+            assert (math.isnan(value) if expected is None
+                    else value.hex() == expected.hex()), cell
+
+
 FIELD = st.sampled_from(["1", "2.5", "", " ", "a b", "x,y", "p;q", 'say "hi"', '"', "tab\there",
                          "two\nlines", "crlf\r\nx", "é", "=1"])
 
