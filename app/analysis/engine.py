@@ -44,10 +44,11 @@ def _response(frame: pd.DataFrame, spec: FitSpec, included: np.ndarray) -> np.nd
 
 
 def _included_mask(frame: pd.DataFrame, spec: FitSpec) -> tuple[np.ndarray, list]:
-    rows = list(frame.index)
-    position = {int(r): i for i, r in enumerate(rows)}
-    included = np.ones(len(rows), bool)
-    reasons: list = [None] * len(rows)
+    n = len(frame.index)
+    included = np.ones(n, bool)
+    reasons: list = [None] * n
+    # a row-number lookup only when runs are left out: most fits leave none
+    position = {int(r): i for i, r in enumerate(frame.index)} if spec.exclusions else {}
     for row, reason in spec.exclusions:
         if int(row) not in position:
             raise AnalysisError(f"Exclusion names row {row}, which is not in the table")
