@@ -50,8 +50,12 @@ def number_values(cells: pd.Series | np.ndarray, decimal: str = ".") -> np.ndarr
     exactly when :func:`parse_number` refuses them. Empty cells (None) are NaN too.
     """
     values = np.asarray(cells, dtype=object)
+    return _present_numbers(values, ~pd.isna(values), decimal)
+
+
+def _present_numbers(values: np.ndarray, present: np.ndarray, decimal: str) -> np.ndarray:
+    """:func:`number_values` of an object array whose filled cells are already known."""
     out = np.full(len(values), np.nan)
-    present = ~pd.isna(values)
     if not present.any():
         return out
     codes, distinct = pd.factorize(values[present])
@@ -152,7 +156,7 @@ class RawTable:
         if column not in self._columns:
             cells = self.frame[column].to_numpy(dtype=object)
             missing = pd.isna(cells)
-            values = number_values(cells, self.decimal)
+            values = _present_numbers(cells, ~missing, self.decimal)
             missing.flags.writeable = values.flags.writeable = False
             self._columns[column] = (missing, values)
         return self._columns[column]
