@@ -138,6 +138,17 @@ def simulated(ctx: CheckContext, statistic, *, textbook_p: float | None = None,
     return observed, upper_p(observed, null), null_p_values(null), details
 
 
+def simulated_p(ctx: CheckContext, statistic, *, textbook_p: float | None = None,
+                defect: str | None = None, **defect_args) -> tuple[float, np.ndarray | None,
+                                                                   dict]:
+    """:func:`simulated` for a check that reports a statistic of its own: (p, null p-values,
+    details). Without draws (above the asymptotic run count) ``statistic`` is not evaluated:
+    the textbook p stands alone, and the statistic's observed value would go unused."""
+    if ctx.null is None:
+        return textbook_p, None, {"p_method": "asymptotic (textbook) distribution"}
+    return simulated(ctx, statistic, textbook_p=textbook_p, defect=defect, **defect_args)[1:]
+
+
 def detection(ctx: CheckContext, null: np.ndarray, statistic, defect: str,
               **defect_args) -> dict:
     """How often this design lets the check flag ``defect`` at the review threshold."""

@@ -17,7 +17,7 @@ from .common import (
     not_applicable,
     row_medians,
     run_positions,
-    simulated,
+    simulated_p,
 )
 
 AUTO_QUESTION = "Does each residual predict the next?"
@@ -204,8 +204,8 @@ def check_randomness(ctx: CheckContext) -> CheckResult:
     def statistic(e: np.ndarray) -> np.ndarray:
         return runs_about_median(e[:, order][:, usable] * scale)
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=runs.pvalue,
-                                         defect="drift", position=run_positions(ctx))
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=runs.pvalue, defect="drift",
+                                     position=run_positions(ctx))
     result.update(details)
     if result["n_runs"] < result["expected"]:
         bad = ("Residuals stay above or below their median for long stretches of run order: "

@@ -15,7 +15,7 @@ from .common import (
     no_residual_information,
     not_applicable,
     row_medians,
-    simulated,
+    simulated_p,
 )
 
 FITTED_QUESTION = "Megaphone vs fitted values?"
@@ -133,8 +133,8 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
     def statistic(e: np.ndarray) -> np.ndarray:
         return breusch_pagan_rows(e[:, usable], fitted[usable])
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bp.pvalue,
-                                         defect="megaphone", fitted=fitted)
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=bp.pvalue, defect="megaphone",
+                                     fitted=fitted)
     details["df"] = list(bp.df)
     return judged(cid, FITTED_QUESTION, FITTED_METHOD, chart, ctx, bp.statistic, p,
                   "Residual spread does not change with the fitted value.",
@@ -208,8 +208,8 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
         return brown_forsythe_rows(e[:, usable] * scale, lab)
 
     high = ctx.coded[:, j] > np.median(ctx.coded[:, j]) + 1e-9
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bf.pvalue,
-                                         defect="spread", high=high)
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=bf.pvalue, defect="spread",
+                                     high=high)
     bt = bartlett(r, lab)
     sds = {}
     for g in np.unique(lab):
