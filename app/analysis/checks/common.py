@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -78,6 +79,12 @@ class CheckContext:
     def usable(self) -> np.ndarray:
         """Runs whose residual carries information (leverage below 1)."""
         return self.resid.leverage < 1 - 1e-8
+
+    @cached_property
+    def in_run_order(self) -> np.ndarray:
+        """Indices of the runs in time order (ties in the run-order column keep table order);
+        sorted once for every run-order check."""
+        return np.argsort(self.run_order, kind="stable")
 
 
 def judged(check_id: str, question: str, method: str, chart: str, ctx: CheckContext,
@@ -160,7 +167,7 @@ def detection(ctx: CheckContext, null: np.ndarray, statistic, defect: str,
 def run_positions(ctx: CheckContext) -> np.ndarray:
     """Each run's place in time, 0-based (ties in the run-order column keep table order)."""
     positions = np.empty(len(ctx.run_order), dtype=int)
-    positions[np.argsort(ctx.run_order, kind="stable")] = np.arange(len(ctx.run_order))
+    positions[ctx.in_run_order] = np.arange(len(ctx.run_order))
     return positions
 
 
