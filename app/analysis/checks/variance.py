@@ -171,7 +171,8 @@ def spread_groups(x: np.ndarray, usable: np.ndarray) -> np.ndarray:
     """
     labels = level_groups(x)
     counts = np.bincount(labels[usable], minlength=labels.max() + 1)
-    if np.all(counts[np.unique(labels)] >= MIN_RUNS_PER_LEVEL) or len(np.unique(labels)) < 3:
+    present = np.unique(labels)
+    if np.all(counts[present] >= MIN_RUNS_PER_LEVEL) or len(present) < 3:
         return labels
     side = np.sign(np.round(x, 9)).astype(int) + 1
     return np.unique(side, return_inverse=True)[1].ravel()
@@ -212,8 +213,9 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
                                      high=high)
     bt = bartlett(r, lab)
     sds = {}
+    settings = ctx.coded[usable, j]
     for g in np.unique(lab):
-        vals = ctx.coded[usable, j][lab == g]
+        vals = settings[lab == g]
         key = (level_names[int(vals[0]) - 1] if level_names is not None
                else f"{float(np.median(vals)):.6g}")
         sds[key] = float(np.std(r[lab == g], ddof=1))
