@@ -15,6 +15,8 @@ from .limits import MAX_CELL_CHARS, MAX_HEADER_CHARS
 # Deliberately narrower than float(): "nan", "inf", "1_000" and hex are not measurements.
 _NUMBER_POINT = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
 _NUMBER_COMMA = re.compile(r"[+-]?(?:\d+(?:,\d*)?|,\d+)(?:[eE][+-]?\d+)?")
+# The ASCII characters str.strip() removes, other than the line break that joins a column.
+_ASCII_BLANKS = (" ", "\t", "\r", "\x0b", "\x0c", "\x1c", "\x1d", "\x1e", "\x1f")
 # What a column of plain numbers may hold besides the line breaks that join its texts.
 _PLAIN_CHARS = {".": b"0123456789+-eE.\n", ",": b"0123456789+-eE,\n"}
 
@@ -219,9 +221,26 @@ def clean_grid(grid: pd.DataFrame) -> pd.DataFrame:
 
 def _clean_column(column: pd.Series) -> np.ndarray:
     """Strip each distinct text once; empty and missing cells become None."""
-    codes, distinct = pd.factorize(column.to_numpy(dtype=object))
+    values = column.to_numpy(dtype=object)
+    if _already_clean(values):
+        return values
+    codes, distinct = pd.factorize(values)
     cleaned = np.array([t.strip() or None for t in distinct.tolist()] + [None], dtype=object)
     return cleaned[codes]  # code -1 (missing) picks the trailing None
+
+
+def _already_clean(values: np.ndarray) -> bool:
+    """True when every cell is text that cleaning leaves as it is: not empty, ASCII, and
+    without the blanks str.strip() removes. A column of numbers, the usual case, is settled by
+    a few scans in C instead of a step per distinct text."""
+    if not all(values):  # an empty or missing cell
+        return False
+    try:
+        joined = "\n".join(values)
+    except TypeError:  # a cell that is not text
+        return False
+    return (joined.isascii() and joined.count("\n") == len(values) - 1
+            and not any(blank in joined for blank in _ASCII_BLANKS))
 
 
 def trim_grid(grid: pd.DataFrame) -> pd.DataFrame:
