@@ -44,10 +44,11 @@ def _response(frame: pd.DataFrame, spec: FitSpec, included: np.ndarray) -> np.nd
 
 
 def _included_mask(frame: pd.DataFrame, spec: FitSpec) -> tuple[np.ndarray, list]:
-    rows = list(frame.index)
-    position = {int(r): i for i, r in enumerate(rows)}
-    included = np.ones(len(rows), bool)
-    reasons: list = [None] * len(rows)
+    n = len(frame.index)
+    included = np.ones(n, bool)
+    reasons: list = [None] * n
+    # a row-number lookup only when runs are left out: most fits leave none
+    position = {int(r): i for i, r in enumerate(frame.index)} if spec.exclusions else {}
     for row, reason in spec.exclusions:
         if int(row) not in position:
             raise AnalysisError(f"Exclusion names row {row}, which is not in the table")
@@ -120,7 +121,8 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     y_raw = y_raw_all[included]
     coded = coded_all[included]
     blocks = frame[spec.block].astype(str).to_numpy()[included] if spec.block else None
-    design = describe_design(coded, blocks, categorical=tuple(levels))
+    groups = setting_groups(coded, blocks)
+    design = describe_design(coded, blocks, categorical=tuple(levels), groups=groups)
 
     terms = resolve_terms(spec.model, spec.terms, names, spec.hierarchy,
                           categorical=frozenset(levels))
@@ -150,9 +152,9 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     if spec.reduce_alpha is not None:
         def p_values(current: list[Term]) -> dict[Term, float]:
             _, ls_c = _fit_terms(coded, y, current, bcols, n_levels)
-            groups = _term_columns(current, names, 1 + n_block, n_levels)
-            return {t: term_p_value(ls_c, cols) for t, (_, cols) in zip(current, groups,
-                                                                          strict=True)}
+            by_term = _term_columns(current, names, 1 + n_block, n_levels)
+            return {t: term_p_value(ls_c, cols)
+                    for t, (_, cols) in zip(current, by_term, strict=True)}
         terms, raw_steps = backward_reduce(terms, p_values, spec.reduce_alpha, spec.hierarchy)
         steps = [{"term": s["term"].name(names), "p_value": s["p_value"]} for s in raw_steps]
         x = model_matrix(coded, terms, bcols, n_levels)
@@ -163,7 +165,6 @@ def analyse(frame: pd.DataFrame, spec: FitSpec) -> FitResult:
     res = residual_set(ls)
     table = coefficient_table(ls, x)
     fit_stats = fit_statistics(ls, y, res.leverage)
-    groups = setting_groups(coded, blocks)
     term_cols = _term_columns(terms, names, 1 + n_block, n_levels)
     anova = anova_table(ls, x, y, term_cols, list(range(1, 1 + n_block)), groups,
                         centre=centre_runs(design, coded))

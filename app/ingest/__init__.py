@@ -26,7 +26,6 @@ from .raw import ColumnSummary, RawTable, summarize_column
 from .roles import ColumnRole, suggest_roles, suggest_with_reasons
 from .sniff import detect_kind
 from .validate import validate
-from .xlsx_reader import read_xlsx
 
 __all__ = [
     "DEFAULT_MAX_BYTES",
@@ -90,6 +89,8 @@ def read_upload(data: bytes, filename: str, sheet: str | None = None, *,
         raise IngestError.single(f"'{name}' is empty.")
     kind = detect_kind(data, name)
     if kind == "xlsx":
+        from .xlsx_reader import read_xlsx  # zip and XML parsing, for workbooks only
+
         return read_xlsx(data, name, sheet, max_cells=max_cells,
                          max_uncompressed=max_xlsx_uncompressed, max_ratio=max_xlsx_ratio)
     return read_csv(data, name, max_cells=max_cells)

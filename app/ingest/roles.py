@@ -126,8 +126,9 @@ def suggest_levels(values: list[float]) -> tuple[float, float]:
 
 
 def _summary(raw: RawTable, column: str) -> tuple[int, np.ndarray | None, int]:
-    """Count the filled cells, their numbers (None unless every one is a number) and the
-    distinct values (numbers compared as numbers, text as text), for one column at once."""
+    """Count the filled cells, their distinct numbers in order of first appearance (None unless
+    every cell is a number) and the distinct values (numbers compared as numbers, text as
+    text), for one column at once."""
     filled = ~raw.missing(column)
     count = int(filled.sum())
     if not count:
@@ -135,7 +136,8 @@ def _summary(raw: RawTable, column: str) -> tuple[int, np.ndarray | None, int]:
     values = raw.numbers(column)[filled]
     if np.isnan(values).any():
         return count, None, len(pd.unique(raw.frame[column].to_numpy(dtype=object)[filled]))
-    return count, values, len(np.unique(values))
+    distinct = pd.unique(values)
+    return count, distinct, len(distinct)
 
 
 def _once(role: str, units: str | None, taken: set[str]) -> ColumnRole:
@@ -202,7 +204,7 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
                 role = ColumnRole("covariate", units=units, kind="numeric")
                 why = "numbers, and the header names a recorded condition"
             elif filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
-                low, high = suggest_levels(numbers.tolist())
+                low, high = suggest_levels(numbers.tolist())  # the distinct settings
                 role = ColumnRole("factor", units=units, low=low, high=high)
                 why = f"a number in every row, {distinct} distinct settings"
             else:

@@ -7,12 +7,13 @@ pandas' C parser splits a file exactly as the ``csv`` module does whenever it ac
 import math
 
 import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from app.ingest.csv_reader import _exact_grid, _fast_grid
-from app.ingest.raw import clean_grid, number_values, parse_number
+from app.ingest.raw import clean_cell, clean_grid, number_values, parse_number
 
 TRICKY = ["1", "-0", "+3", ".5", "5.", "1e5", "1E-5", "1e999", "-1e999", "1e-400", "nan", "NaN",
           "inf", "-Infinity", "1_000", "0x1A", "1,5", "1.5", ",5", "5,", "1,5e3", "١٢", "1 2",
@@ -40,6 +41,41 @@ def test_number_values_matches_parse_number_on_any_text(cells, decimal):
     for cell, value in zip(cells, values.tolist(), strict=True):
         expected = parse_number(cell, decimal)
         assert (math.isnan(value) if expected is None else value == expected), cell
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.text(alphabet="0123456789+-eE.,", min_size=1, max_size=8), min_size=1,
+                max_size=20),
+       st.sampled_from([".", ","]))
+def test_number_values_column_of_number_characters(cells, decimal):
+    """Texts of digits, signs, "e" and decimal marks alone: a whole column of them is read in
+    one pass when every one is a number, and text by text when any is not; both agree with
+    parse_number."""
+    for column in (cells, [c for c in cells if parse_number(c, decimal) is not None]):
+        values = number_values(np.array(column, dtype=object), decimal)
+        for cell, value in zip(column, values.tolist(), strict=True):
+            expected = parse_number(cell, decimal)
+            assert (math.isnan(value) if expected is None
+                    else value.hex() == expected.hex()), cell
+
+
+CELL = st.one_of(st.none(), st.sampled_from(["1", "2.5", "-3e4", "A", "", " ", " 1", "1 ", "a b",
+                                             "\t", "\x1c7", "é", "\xa01", "1\u2003", "x\ny"]),
+                 st.text(alphabet="0123456789.-eAb \t", max_size=4))
+
+
+@settings(max_examples=300, deadline=None)
+@given(st.lists(st.lists(CELL, min_size=1, max_size=12), min_size=1, max_size=3))
+def test_clean_grid_cleans_as_clean_cell(columns):
+    """Column by column, whether every cell is already clean (one pass) or not (distinct texts
+    stripped), each cell comes out as clean_cell gives it."""
+    height = max(map(len, columns))
+    grid = pd.DataFrame({i: pd.Series(c + ["1"] * (height - len(c)), dtype=object)
+                         for i, c in enumerate(columns)})
+    cleaned = clean_grid(grid)
+    for i, column in enumerate(columns):
+        for cell, value in zip(column, cleaned[i].tolist(), strict=False):
+            assert value == clean_cell(cell), (cell, value)
 
 
 FIELD = st.sampled_from(["1", "2.5", "", " ", "a b", "x,y", "p;q", 'say "hi"', '"', "tab\there",

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Any
 
 import numpy as np
@@ -79,6 +80,12 @@ class CheckContext:
         """Runs whose residual carries information (leverage below 1)."""
         return self.resid.leverage < 1 - 1e-8
 
+    @cached_property
+    def in_run_order(self) -> np.ndarray:
+        """Indices of the runs in time order (ties in the run-order column keep table order);
+        sorted once for every run-order check."""
+        return np.argsort(self.run_order, kind="stable")
+
 
 def judged(check_id: str, question: str, method: str, chart: str, ctx: CheckContext,
            statistic: float, p_value: float, good: str, bad: str, *,
@@ -138,6 +145,17 @@ def simulated(ctx: CheckContext, statistic, *, textbook_p: float | None = None,
     return observed, upper_p(observed, null), null_p_values(null), details
 
 
+def simulated_p(ctx: CheckContext, statistic, *, textbook_p: float | None = None,
+                defect: str | None = None, **defect_args) -> tuple[float, np.ndarray | None,
+                                                                   dict]:
+    """:func:`simulated` for a check that reports a statistic of its own: (p, null p-values,
+    details). Without draws (above the asymptotic run count) ``statistic`` is not evaluated:
+    the textbook p stands alone, and the statistic's observed value would go unused."""
+    if ctx.null is None:
+        return textbook_p, None, {"p_method": "asymptotic (textbook) distribution"}
+    return simulated(ctx, statistic, textbook_p=textbook_p, defect=defect, **defect_args)[1:]
+
+
 def detection(ctx: CheckContext, null: np.ndarray, statistic, defect: str,
               **defect_args) -> dict:
     """How often this design lets the check flag ``defect`` at the review threshold."""
@@ -149,7 +167,7 @@ def detection(ctx: CheckContext, null: np.ndarray, statistic, defect: str,
 def run_positions(ctx: CheckContext) -> np.ndarray:
     """Each run's place in time, 0-based (ties in the run-order column keep table order)."""
     positions = np.empty(len(ctx.run_order), dtype=int)
-    positions[np.argsort(ctx.run_order, kind="stable")] = np.arange(len(ctx.run_order))
+    positions[ctx.in_run_order] = np.arange(len(ctx.run_order))
     return positions
 
 

@@ -17,7 +17,7 @@ from .common import (
     not_applicable,
     row_medians,
     run_positions,
-    simulated,
+    simulated_p,
 )
 
 AUTO_QUESTION = "Does each residual predict the next?"
@@ -108,10 +108,6 @@ def runs_test(x: np.ndarray, cutoff: float | None = None,
     return StatisticResult(float(n_runs), p, (), method, out)
 
 
-def _in_run_order(ctx: CheckContext) -> np.ndarray:
-    return np.argsort(ctx.run_order, kind="stable")
-
-
 def check_autocorrelation(ctx: CheckContext) -> CheckResult:
     cid, chart = "run_order_autocorrelation", "run_order"
     if ctx.run_order is None:
@@ -122,7 +118,7 @@ def check_autocorrelation(ctx: CheckContext) -> CheckResult:
     if ctx.ls.df_resid < 2:
         return not_applicable(cid, AUTO_QUESTION, AUTO_METHOD, chart,
                               "not applicable: fewer than 2 residual degrees of freedom")
-    order = _in_run_order(ctx)
+    order = ctx.in_run_order
     e = ctx.ls.residuals[order]
     dw = durbin_watson_test(e, ctx.ls.q[order])
     lag1 = float(np.sum(e[1:] * e[:-1]) / np.sum(e**2))
@@ -188,7 +184,7 @@ def check_randomness(ctx: CheckContext) -> CheckResult:
     reason = no_residual_information(ctx)
     if reason:
         return not_applicable(cid, RAND_QUESTION, RAND_METHOD, chart, reason)
-    order = _in_run_order(ctx)
+    order = ctx.in_run_order
     usable = ctx.usable[order]
     scale = 1.0 / np.sqrt(1.0 - ctx.resid.leverage[order][usable])
     r = ctx.resid.studentized[order][usable]
@@ -204,8 +200,8 @@ def check_randomness(ctx: CheckContext) -> CheckResult:
     def statistic(e: np.ndarray) -> np.ndarray:
         return runs_about_median(e[:, order][:, usable] * scale)
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=runs.pvalue,
-                                         defect="drift", position=run_positions(ctx))
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=runs.pvalue, defect="drift",
+                                     position=run_positions(ctx))
     result.update(details)
     if result["n_runs"] < result["expected"]:
         bad = ("Residuals stay above or below their median for long stretches of run order: "

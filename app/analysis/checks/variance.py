@@ -15,7 +15,7 @@ from .common import (
     no_residual_information,
     not_applicable,
     row_medians,
-    simulated,
+    simulated_p,
 )
 
 FITTED_QUESTION = "Megaphone vs fitted values?"
@@ -133,8 +133,8 @@ def check_fitted(ctx: CheckContext) -> CheckResult:
     def statistic(e: np.ndarray) -> np.ndarray:
         return breusch_pagan_rows(e[:, usable], fitted[usable])
 
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bp.pvalue,
-                                         defect="megaphone", fitted=fitted)
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=bp.pvalue, defect="megaphone",
+                                     fitted=fitted)
     details["df"] = list(bp.df)
     return judged(cid, FITTED_QUESTION, FITTED_METHOD, chart, ctx, bp.statistic, p,
                   "Residual spread does not change with the fitted value.",
@@ -171,7 +171,8 @@ def spread_groups(x: np.ndarray, usable: np.ndarray) -> np.ndarray:
     """
     labels = level_groups(x)
     counts = np.bincount(labels[usable], minlength=labels.max() + 1)
-    if np.all(counts[np.unique(labels)] >= MIN_RUNS_PER_LEVEL) or len(np.unique(labels)) < 3:
+    present = np.unique(labels)
+    if np.all(counts[present] >= MIN_RUNS_PER_LEVEL) or len(present) < 3:
         return labels
     side = np.sign(np.round(x, 9)).astype(int) + 1
     return np.unique(side, return_inverse=True)[1].ravel()
@@ -208,12 +209,13 @@ def check_factor(ctx: CheckContext, j: int) -> CheckResult:
         return brown_forsythe_rows(e[:, usable] * scale, lab)
 
     high = ctx.coded[:, j] > np.median(ctx.coded[:, j]) + 1e-9
-    stat, p, null_p, details = simulated(ctx, statistic, textbook_p=bf.pvalue,
-                                         defect="spread", high=high)
+    p, null_p, details = simulated_p(ctx, statistic, textbook_p=bf.pvalue, defect="spread",
+                                     high=high)
     bt = bartlett(r, lab)
     sds = {}
+    settings = ctx.coded[usable, j]
     for g in np.unique(lab):
-        vals = ctx.coded[usable, j][lab == g]
+        vals = settings[lab == g]
         key = (level_names[int(vals[0]) - 1] if level_names is not None
                else f"{float(np.median(vals)):.6g}")
         sds[key] = float(np.std(r[lab == g], ddof=1))
