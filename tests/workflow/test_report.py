@@ -154,6 +154,11 @@ def test_setpoint_sheet_carries_the_caution_on_every_page(db, signed_fit):
     whole = " ".join(pages)
     assert "Abel Approver" in whole and signed_at in whole and setpoints.RELEASE in whole
     assert "Run three confirmation batches." in whole and snapshot in squeezed(whole)
+    # the goal in the words of the page: the limits the search filled in, not dashes
+    with db.session() as s:
+        filled = setpoints.result_of(setpoints.get_proposal(s, proposal_id))["goals"]
+    (response, goal), = filled.items()
+    assert f"acceptable from {goal['lower']:g}" in " ".join(whole.split()), response
 
 
 def test_reports_load_nothing_from_outside():
