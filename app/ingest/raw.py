@@ -55,13 +55,32 @@ def number_values(cells: pd.Series | np.ndarray, decimal: str = ".") -> np.ndarr
     return _present_numbers(values, ~pd.isna(values), decimal)
 
 
+# A column of at least this many filled cells whose first ones are mostly distinct (a measured
+# response, run numbers) is read cell by cell: hashing 100,000 distinct texts to read each once
+# costs more than reading them all.
+_DIRECT_FROM = 4096
+
+
+def _mostly_distinct(filled: np.ndarray) -> bool:
+    if len(filled) < _DIRECT_FROM:
+        return False
+    head = filled[:1024]
+    return 4 * len(pd.unique(head)) > len(head)
+
+
 def _present_numbers(values: np.ndarray, present: np.ndarray, decimal: str) -> np.ndarray:
     """:func:`number_values` of an object array whose filled cells are already known."""
     out = np.full(len(values), np.nan)
     if not present.any():
         return out
-    codes, distinct = pd.factorize(values[present])
-    out[present] = _distinct_numbers(np.asarray(distinct, dtype=object), decimal)[codes]
+    filled = values[present]
+    numbers = _plain_numbers(filled, decimal) if _mostly_distinct(filled) else None
+    if numbers is None:  # repeated texts (factor levels), or some that are not plain numbers
+        codes, distinct = pd.factorize(filled)
+        numbers = _distinct_numbers(np.asarray(distinct, dtype=object), decimal)[codes]
+    else:
+        numbers[~np.isfinite(numbers)] = np.nan  # as _distinct_numbers does
+    out[present] = numbers
     return out
 
 

@@ -5,6 +5,7 @@ pandas' C parser splits a file exactly as the ``csv`` module does whenever it ac
 """
 
 import math
+from unittest.mock import patch
 
 import numpy as np
 import pandas as pd
@@ -12,6 +13,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
+from app.ingest import raw
 from app.ingest.csv_reader import _exact_grid, _fast_grid
 from app.ingest.raw import clean_cell, clean_grid, number_values, parse_number
 
@@ -33,30 +35,60 @@ def test_number_values_refuses_what_parse_number_refuses(decimal):
                 1, expected), cell
 
 
+# A column is read text by distinct text, or (long and mostly distinct) cell by cell.
+BOTH_WAYS = pytest.mark.parametrize("cell_by_cell", [False, True], ids=["distinct", "cells"])
+
+
+@BOTH_WAYS
 @settings(max_examples=200, deadline=None)
 @given(st.lists(st.one_of(st.sampled_from(TRICKY), st.text(max_size=6)), max_size=30),
        st.sampled_from([".", ","]))
-def test_number_values_matches_parse_number_on_any_text(cells, decimal):
-    values = number_values(np.array(cells, dtype=object), decimal)
+def test_number_values_matches_parse_number_on_any_text(cell_by_cell, cells, decimal):
+    with patch.object(raw, "_mostly_distinct", lambda filled: cell_by_cell):
+        values = number_values(np.array(cells, dtype=object), decimal)
     for cell, value in zip(cells, values.tolist(), strict=True):
         expected = parse_number(cell, decimal)
         assert (math.isnan(value) if expected is None else value == expected), cell
 
 
+@BOTH_WAYS
 @settings(max_examples=300, deadline=None)
 @given(st.lists(st.text(alphabet="0123456789+-eE.,", min_size=1, max_size=8), min_size=1,
                 max_size=20),
        st.sampled_from([".", ","]))
-def test_number_values_column_of_number_characters(cells, decimal):
+def test_number_values_column_of_number_characters(cell_by_cell, cells, decimal):
     """Texts of digits, signs, "e" and decimal marks alone: a whole column of them is read in
     one pass when every one is a number, and text by text when any is not; both agree with
     parse_number."""
     for column in (cells, [c for c in cells if parse_number(c, decimal) is not None]):
-        values = number_values(np.array(column, dtype=object), decimal)
+        with patch.object(raw, "_mostly_distinct", lambda filled: cell_by_cell):
+            values = number_values(np.array(column, dtype=object), decimal)
         for cell, value in zip(column, values.tolist(), strict=True):
             expected = parse_number(cell, decimal)
             assert (math.isnan(value) if expected is None
                     else value.hex() == expected.hex()), cell
+
+
+# Numbers float() reads from digits, signs, "e" and a decimal mark alone, overflow included.
+PLAIN_EDGES = ["1e999", "-1e999", "1e-400", "-0", "+3", ".5", "5.", "1E-5",
+               "12345678901234567890123", "2.2250738585072014e-308"]
+
+
+@pytest.mark.parametrize("decimal", [".", ","])
+@pytest.mark.parametrize("among", [PLAIN_EDGES, TRICKY], ids=["plain", "tricky"])
+def test_long_column_of_distinct_numbers(decimal, among):
+    """A long column of mostly distinct numbers, read cell by cell (or, with texts that are not
+    plain numbers among them, text by distinct text): the same values as parse_number."""
+    rng = np.random.default_rng(3)
+    cells = [repr(float(v)).replace(".", decimal) for v in rng.normal(50, 10, 6000)]
+    cells[10:10 + len(among)] = [c.replace(".", decimal) for c in among]
+    cells[-1] = None
+    column = np.array(cells, dtype=object)
+    assert raw._mostly_distinct(column[:-1])
+    values = number_values(column, decimal)
+    for cell, value in zip(cells, values.tolist(), strict=True):
+        expected = None if cell is None else parse_number(cell, decimal)
+        assert (math.isnan(value) if expected is None else value.hex() == expected.hex()), cell
 
 
 CELL = st.one_of(st.none(), st.sampled_from(["1", "2.5", "-3e4", "A", "", " ", " 1", "1 ", "a b",
