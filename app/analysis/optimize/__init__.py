@@ -207,7 +207,6 @@ def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
     parsed = {r: g for r, g in every.items() if not g.is_constraint}
     kept = {r: g for r, g in every.items() if g.is_constraint}
 
-
     def individual(coded: np.ndarray) -> dict[str, np.ndarray]:
         return {r: g.desirability(surfaces[r].response_scale(coded)) for r, g in parsed.items()}
 
