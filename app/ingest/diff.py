@@ -130,11 +130,22 @@ def _keys(old: DesignTable, new: DesignTable) -> tuple[str, pd.Series, pd.Series
 
 
 def _differ(a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Elementwise a != b with missing equal to missing (object or float columns)."""
+    """Elementwise a != b with missing equal to missing (object or float columns). A column
+    read as numbers in one version and as text in the other (its role's kind changed) is
+    compared as numbers where its text reads as one: 160.0 and "160" are the same cell."""
     missing_a, missing_b = pd.isna(a), pd.isna(b)
+    a, b = _as_numbers_beside(a, b), _as_numbers_beside(b, a)
     with np.errstate(invalid="ignore"):
         same = (a == b) | (missing_a & missing_b)
     return ~np.asarray(same, dtype=bool)
+
+
+def _as_numbers_beside(values: np.ndarray, other: np.ndarray) -> np.ndarray:
+    """``values`` as numbers (NaN where a text is not one) when they are text and ``other``
+    are numbers; else unchanged."""
+    if values.dtype != object or other.dtype.kind not in "fiu":
+        return values
+    return pd.to_numeric(pd.Series(values, dtype=object), errors="coerce").to_numpy(float)
 
 
 def table_differences(old: DesignTable, new: DesignTable) -> TableDifferences:

@@ -155,24 +155,60 @@ def suggest_roles(raw: RawTable) -> dict[str, ColumnRole]:
     ignored; empty or single-valued columns are ignored; numeric columns with at most five
     distinct values (and no more than half as many as there are rows) are factors with levels
     from :func:`suggest_levels`; numeric columns whose header names a recorded condition
-    (humidity, operator, lot ...) are numeric covariates; other numeric columns are responses;
-    a text column with no gaps and at most five distinct values (no more than half as many as
-    rows) is a categorical factor, unless its header names a recorded condition; other text
-    columns repeating values are categorical covariates, and a text column with a value per row
-    is the label. Units written in brackets after the header name are carried over.
+    (humidity, operator, lot ...) are numeric covariates; other numeric columns are responses. A
+    column of numbers with a few typing slips (no more than one filled cell in five is not a
+    number) is judged by its numbers, so storing it names the slips. Otherwise a text column
+    with no gaps and at most five distinct values (no more than half as many as rows) is a
+    categorical factor, unless its header names a recorded condition; other text columns
+    repeating values are categorical covariates, and a text column with a value per row is the
+    label. Units written in brackets after the header name are carried over.
     """
     return {column: role for column, (role, _why) in suggest_with_reasons(raw).items()}
 
 
-def _text_note(raw: RawTable, column: str, filled: int) -> str:
-    """For a column that is mostly numbers: how many cells are not, and the first one."""
+def _text_note(raw: RawTable, column: str, filled: int, advice: str = "") -> str:
+    """For a column that is mostly numbers: how many cells are not, and the first one (then
+    ``advice``)."""
     cells = raw.frame[column].to_numpy(dtype=object)
     odd = np.flatnonzero(np.isnan(raw.numbers(column)) & ~raw.missing(column))
     if not len(odd) or len(odd) * 2 > filled:
         return ""
     first = int(odd[0])
     return (f" ('{cells[first]}' in row {int(raw.frame.index[first])} is not a number"
-            + (f", nor are {len(odd) - 1} more cells" if len(odd) > 1 else "") + ")")
+            + (f", nor are {len(odd) - 1} more cells" if len(odd) > 1 else "") + advice + ")")
+
+
+# A column is numbers with typing slips when no more than this share of its filled cells are not
+# numbers (one cell in five; a rule of our own: more than that reads as a text column).
+_SLIP_SHARE = 0.2
+
+
+def _mostly_numbers(raw: RawTable, column: str, filled: int) -> np.ndarray | None:
+    """The distinct numbers of a column whose filled cells are numbers but for a few slips,
+    in order of first appearance; None for any other column."""
+    values = raw.numbers(column)[~raw.missing(column)]
+    numbers = values[~np.isnan(values)]
+    if not len(numbers) or filled - len(numbers) > _SLIP_SHARE * filled:
+        return None
+    return pd.unique(numbers)
+
+
+def _numeric_role(units: str | None, words: set[str], n: int, filled: int,
+                  numbers: np.ndarray, distinct: int) -> tuple[ColumnRole, str]:
+    """The role suggested for a column of numbers (``numbers`` its distinct values)."""
+    blanks = n - filled
+    if words & _COVARIATE_WORDS:
+        return (ColumnRole("covariate", units=units, kind="numeric"),
+                "numbers, and the header names a recorded condition")
+    if filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
+        low, high = suggest_levels(numbers.tolist())  # the distinct settings
+        return (ColumnRole("factor", units=units, low=low, high=high),
+                f"a number in every row, {distinct} distinct settings")
+    return ColumnRole("response", units=units), (
+        f"numbers, {blanks} blank cell{'s' if blanks > 1 else ''} (a factor needs a setting in "
+        "every row)" if blanks and distinct <= _MAX_FACTOR_LEVELS
+        else f"numbers, {distinct} distinct values (more than a factor's "
+             f"{_MAX_FACTOR_LEVELS} settings)")
 
 
 def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
@@ -186,7 +222,6 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
         plain = _plain(bare)
         words = set(plain.split())
         filled, numbers, distinct = _summary(raw, column)
-        blanks = n - filled
 
         if plain in _STANDARD_ORDER_NAMES:
             role, why = ColumnRole("ignore", units=units), "the header names the standard order"
@@ -200,19 +235,13 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
             role = ColumnRole("ignore", units=units)
             why = "empty" if not filled else "the same value in every filled row"
         elif numbers is not None:
-            if words & _COVARIATE_WORDS:
-                role = ColumnRole("covariate", units=units, kind="numeric")
-                why = "numbers, and the header names a recorded condition"
-            elif filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
-                low, high = suggest_levels(numbers.tolist())  # the distinct settings
-                role = ColumnRole("factor", units=units, low=low, high=high)
-                why = f"a number in every row, {distinct} distinct settings"
-            else:
-                role = ColumnRole("response", units=units)
-                why = (f"numbers, {blanks} blank cell{'s' if blanks > 1 else ''} (a factor "
-                       "needs a setting in every row)" if blanks and distinct <= _MAX_FACTOR_LEVELS
-                       else f"numbers, {distinct} distinct values (more than a factor's "
-                            f"{_MAX_FACTOR_LEVELS} settings)")
+            role, why = _numeric_role(units, words, n, filled, numbers, distinct)
+        elif (typed := _mostly_numbers(raw, column, filled)) is not None:
+            # A typing slip in a column of numbers ('150 C', 'n/a'): suggested for what its
+            # numbers are, so that storing names the cell instead of quietly making the column
+            # text (a factor suggested as a covariate would leave the model).
+            role, why = _numeric_role(units, words, n, filled, typed, len(typed))
+            why += _text_note(raw, column, filled, "; correct it, or storing names it")
         elif (filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n
               and not words & _COVARIATE_WORDS):
             # Few names, none missing, each level used about twice or more: the shape of a

@@ -78,6 +78,22 @@ def test_role_change_is_listed_with_both_roles():
         ("Gloss", "response", "covariate")]
 
 
+def test_a_column_read_as_text_in_one_version_changes_only_where_its_values_do():
+    """A factor stored as a categorical covariate in the next version (a slip typed into it):
+    the role change is listed, and only the cell whose value differs, not every cell that
+    reads 160 in one version and 160.0 in the other."""
+    before = _frame()
+    after = before.astype({"Cure temperature": object})
+    after.loc[6, "Cure temperature"] = "150 C"
+    roles = dict(DEMO.roles)
+    roles["Cure temperature"] = type(roles["Gloss"])(role="covariate", kind="categorical",
+                                                     units="°C")
+    diff = table_differences(_table(_csv(before)), _table(_csv(after), roles))
+    assert [r["column"] for r in diff.roles_changed] == ["Cure temperature"]
+    assert [(c.key, c.column, c.old, c.new) for c in diff.changed] == [
+        ("CV40-R07", "Cure temperature", before.loc[6, "Cure temperature"], "150 C")]
+
+
 def test_without_label_rows_match_by_run_order_then_by_position():
     no_label = {k: v for k, v in DEMO.roles.items() if k != "Panel ID"}
     before = _frame().drop(columns=["Panel ID"])

@@ -98,9 +98,11 @@ def test_preview_of_a_long_upload_shows_twenty_rows_and_a_column_summary(client,
     assert cells == {
         "Run": ["run order", "500", "0", "0", "1", "500"],
         "Temp": ["factor", "500", "0", "0", "150", "170"],
-        "Yield": ["label", "498", "1", "1", "60.1", "110"],  # text in it: not a response
-        "Note": ["ignore", "0", "0", "500", "", ""],  # the label is taken
+        # one slip ('n/a') among 498 numbers: still the response, storing names the cell
+        "Yield": ["response", "498", "1", "1", "60.1", "110"],
+        "Note": ["label", "0", "0", "500", "", ""],
     }
+    assert "&#39;n/a&#39; in row 9 is not a number; correct it" in html
 
 
 def test_second_version_needs_a_reason(client, actions, db, study_id):
