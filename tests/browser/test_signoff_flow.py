@@ -39,6 +39,10 @@ def test_submit_sign_and_audit(page, live_server):
     page.click("section[aria-label='Sign this fit'] button:has-text('Sign')")
     page.wait_for_selector(".problem")
     assert "password is wrong" in page.inner_text(".problem")
+    # The refusal sits beside the form, far down a long page: the page opens on it.
+    assert page.evaluate("""() => { const r = document.querySelector('#sign-error')
+        .getBoundingClientRect(); return r.top >= 0 && r.bottom <= window.innerHeight; }""")
+    assert page.evaluate("document.activeElement.id") == "sign-error"
     # The refusal is answered with HTTP 403, which Chromium logs; that one entry is expected.
     assert len(page.watch.console_errors) == 1 and "403" in page.watch.console_errors[0]
     page.watch.console_errors.clear()
