@@ -207,6 +207,7 @@ def sheet_context(session, proposal) -> dict[str, Any]:
         "factor_names": setpoints.factor_order(session, proposal),
         # set by a number (not a level name): tolerance, gradient and stationary point
         "continuous_names": setpoints.numbered_factors(session, proposal),
+        "held": setpoints.held_factors(proposal),
     }
 
 

@@ -344,6 +344,14 @@ def numbered_factors(session: Session, proposal: SetpointProposal) -> list[str]:
     return [n for n in factor_order(session, proposal) if n in numeric]
 
 
+def held_factors(proposal: SetpointProposal) -> list[str]:
+    """The factors the engineer fixed for the search: continuous ones at a value, categorical
+    ones at a level."""
+    result = result_of(proposal)
+    return [*(result.get("region") or {}).get("fixed", {}),
+            *(result.get("levels") or {}).get("held", {})]
+
+
 def continuous_settings(proposal: SetpointProposal) -> list[str]:
     """The factors set by a number, in the stored order; a categorical factor is set by a level
     name and has no tolerance, resolution or gradient."""

@@ -4,6 +4,8 @@ carry the levels compared. The search is checked in tests/analysis/optimize/test
 
 from __future__ import annotations
 
+import re
+
 import pytest
 
 from app.analysis.optimize import CAUTION
@@ -28,8 +30,10 @@ def test_form_fixes_a_level_and_the_sheet_lists_it(db, approved, client, actions
     assert made.status_code == 302
     sheet = client.get(made.headers["Location"]).get_data(as_text=True)
     assert CAUTION in sheet and "Levels compared" in sheet
-    assert "Searched the continuous factors at each of 1 combination(s) of levels; Machine = M2" \
-        in sheet
+    assert "Machine held at M2, as asked: no other level was searched." in sheet
+    settings = re.search(r'<table class="settings">.*?</table>', sheet, re.S).group(0)
+    machine = re.search(r'<th scope="row">Machine</th>.*?</tr>', settings, re.S).group(0)
+    assert '<td class="num">level</td><td>fixed</td>' in machine
     # one continuous factor: the map page says why there is no map instead of failing
     space = client.get(made.headers["Location"] + "/design-space")
     assert space.status_code == 200

@@ -22,6 +22,9 @@ from .search import DESIRABILITY_TOL, search
 CAUTION = ("The model holds only inside the tested region. Confirmation runs are required before "
            "production use. Local procedures, regulations and qualified personnel have the final "
            "say.")
+# Two combinations of levels whose best overall desirabilities D differ by less than this are
+# reported as equally good: far below the three decimals shown, far above rounding.
+TIE_D = 1e-6
 
 __all__ = ["CAUTION", "RIDGE_RATIO", "Goal", "OutsideRegion", "Region", "SetpointError",
            "Surface", "canonical_analysis", "classify", "design_space", "parse_goal", "propose",
@@ -192,7 +195,8 @@ def propose(results_by_response: dict[str, dict], goals: dict[str, dict], bounds
     single = _single_response_goal(goals)
     what = (f"the {'highest' if single[1] == 'maximize' else 'lowest'} predicted {single[0]}"
             if single else "the highest overall desirability D")
-    doc = _best_levels(found, results, [_score(d, single) for _, d in found], what)
+    doc = _best_levels(found, results, [_score(d, single) for _, d in found], what,
+                       unitless=single is None)
     _full_predictions(doc, results)
     return doc
 
@@ -309,12 +313,19 @@ def _signed(value: float | None, sense: str) -> float:
 
 
 def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
-                 scores: list[float], what: str) -> dict:
+                 scores: list[float], what: str, unitless: bool = False) -> dict:
     """The proposal of the best-scoring combination of levels (the first of equals, in the
     levels' own order) with its settings naming the levels, every combination's best listed
-    under ``levels.by_level`` and the choice said in ``levels.statement``."""
+    under ``levels.by_level``, the levels the engineer fixed under ``levels.held`` and the
+    choice said in ``levels.statement``. ``unitless`` scores are overall desirabilities D,
+    equal within ``TIE_D``; other scores (predicted values) within 1e-9 relative."""
     top = max(scores)
-    tol = 1e-9 * max(1.0, abs(top)) if np.isfinite(top) else 0.0
+    if not np.isfinite(top):
+        tol = 0.0
+    elif unitless:  # D lies in [0, 1]: what the search cannot tell apart is a tie
+        tol = TIE_D
+    else:
+        tol = 1e-9 * max(1.0, abs(top))
     best = next(i for i, sc in enumerate(scores) if sc >= top - tol)
     chosen_levels, doc = found[best]
     first = next(iter(results.values()))
@@ -325,12 +336,24 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
                  "desirability": d["optimum"]["desirability"]}
                 for i, (combo, d) in enumerate(found)]
     ties = [i for i, sc in enumerate(scores) if i != best and sc >= top - tol]
-    named = ", ".join(f"{n} = {v}" for n, v in chosen_levels.items())
-    statement = (f"Searched the continuous factors at each of {len(found)} combination(s) of "
-                 f"levels; {named} gives {what}.")
+    # a factor at one level in every combination was fixed there by the engineer
+    held = {n: v for n, v in chosen_levels.items() if all(c[n] == v for c, _ in found)}
+    varied = [n for n in chosen_levels if n not in held]
+    held_text = ", ".join(f"{n} held at {v}" for n, v in held.items())
+    if varied:
+        named = ", ".join(f"{n} = {chosen_levels[n]}" for n in varied)
+        statement = (f"Searched the continuous factors at each of {len(found)} "
+                     f"{_plural(len(found), 'combination')} of the levels of "
+                     f"{', '.join(varied)}" + (f" ({held_text}, as asked)" if held else "")
+                     + f"; {named} gives {what}.")
+    else:
+        statement = (f"{held_text[0].upper()}{held_text[1:]}, as asked: no other level was "
+                     "searched.")
     if ties:
-        statement += (f" {len(ties)} other combination(s) do equally well; the first in the "
-                      "levels' order is shown.")
+        statement += (f" {len(ties)} other {_plural(len(ties), 'combination')} "
+                      f"{'does' if len(ties) == 1 else 'do'} equally well"
+                      + (" (D within 1e-6)" if unitless else "")
+                      + "; the first in the levels' order is shown.")
     optimum = doc["optimum"]
     optimum["settings"] = levels.with_levels(optimum["settings"], chosen_levels, order)
     optimum["coded"] = levels.with_levels(optimum["coded"], chosen_levels, order)
@@ -342,8 +365,13 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
             sp["settings"] = levels.with_levels(sp["settings"], chosen_levels, order)
             sp["coded"] = levels.with_levels(sp["coded"], chosen_levels, order)
     doc["levels"] = {"chosen": chosen_levels, "statement": statement, "by_level": by_level,
-                     "factors": [f["name"] for f in levels.categorical_factors(first)]}
+                     "factors": [f["name"] for f in levels.categorical_factors(first)],
+                     "held": held}
     return doc
+
+
+def _plural(count: int, word: str) -> str:
+    return word if count == 1 else word + "s"
 
 
 def _per_response(predicted, results: dict[str, dict]) -> dict:

@@ -132,10 +132,52 @@ def test_minimize_and_a_fixed_level():
     grid = np.linspace(150.0, 170.0, 2001)
     cedar = _sm_predict(ref, "Cedar", grid)["mean"].to_numpy()
     assert abs(fixed["optimum"]["settings"]["Temp"] - grid[int(np.argmax(cedar))]) < 0.02
+    assert fixed["levels"]["held"] == {"Supplier": "Cedar"}
+    assert fixed["levels"]["statement"] == ("Supplier held at Cedar, as asked: no other level "
+                                            "was searched.")
     with pytest.raises(SetpointError, match="Every factor is fixed") as bad:
         propose({"y": doc}, {"y": {"goal": "maximize"}}, fixed={"Supplier": "Cedar",
                                                                "Temp": 165.0})
     assert bad.value.field == "Temp"
+
+
+def test_levels_that_all_meet_a_target_are_reported_as_equally_good():
+    """Every supplier reaches 59.2 inside the Temp range (by the statsmodels fit), so each
+    level's best D is 1 up to the search's last digits: a tie, the first level proposed."""
+    frame = _one_factor_frame()
+    doc, ref = _one_factor_doc(frame), _statsmodels(frame)
+    grid = np.linspace(150.0, 170.0, 2001)
+    for level in LEVELS:
+        means = _sm_predict(ref, level, grid)["mean"]
+        assert means.min() < 59.2 < means.max(), level
+    out = propose({"y": doc}, {"y": {"goal": "target", "target": 59.2, "lower": 57.0,
+                                     "upper": 61.0}})
+    ds = [item["desirability"] for item in out["levels"]["by_level"]]
+    assert min(ds) > 1 - 1e-6
+    assert out["levels"]["chosen"] == {"Supplier": "Birch"} and out["levels"]["held"] == {}
+    statement = out["levels"]["statement"]
+    assert statement.startswith("Searched the continuous factors at each of 3 combinations of "
+                                "the levels of Supplier; Supplier = Birch gives")
+    assert "2 other combinations do equally well (D within 1e-6)" in statement
+
+
+def test_overall_desirabilities_within_a_millionth_tie():
+    """The search reaches D = 1 only to its last digits (1 - 2e-9 was seen): such levels are
+    equally good, one further off (1e-5 below) is not."""
+    from app.analysis.optimize import _best_levels
+
+    doc = _one_factor_doc(_one_factor_frame())
+    scores = [1.0 - 2e-9, 1.0, 1.0 - 5e-7, 1.0 - 1e-5]
+    names = ["Birch", "Alder", "Cedar", "Birch"]
+    found = [({"Supplier": name}, {"optimum": {"settings": {"Temp": 160.0},
+                                               "coded": {"Temp": 0.0},
+                                               "predicted": {"y": 60.0}, "desirability": d},
+                                   "stationary_point": None})
+             for name, d in zip(names, scores, strict=True)]
+    out = _best_levels(found, {"y": doc}, scores, "the highest overall desirability D",
+                       unitless=True)
+    assert out["levels"]["chosen"] == {"Supplier": "Birch"}
+    assert "2 other combinations do equally well" in out["levels"]["statement"]
 
 
 def test_single_goal_target_takes_the_level_nearest_the_target():
