@@ -276,6 +276,8 @@ def _search_text(goal: str, search: dict) -> str:
             named = ", ".join(f"{n} = {v}" for n, v in item["levels"].items())
             lines.append(f"    {named:<28} predicted {item['predicted'][search['response']]:.6g}"
                          + ("   (proposed)" if item["chosen"] else ""))
+    if search.get("edge"):
+        lines.append("  " + search["edge"]["note"])
     if search.get("check"):
         lines.append(f"  check: {search['check']['status']}. {search['check']['statement']}")
     sp = search.get("stationary_point")

@@ -487,3 +487,21 @@ def test_the_api_walks_the_sign_off_with_confirmation_runs(db, approved, client)
         refused = s.scalars(select(AuditEvent.action).where(
             AuditEvent.action.in_(["setpoint.confirmation_refused", "signature.refused"]))).all()
     assert sorted(refused) == ["setpoint.confirmation_refused", "signature.refused"]
+
+
+def test_a_proposal_on_the_region_edge_carries_a_notice(db, approved, client, actions):
+    """The demo's hardness is lowest on the sphere of its rotatable design and highest inside
+    it: the sheet and its PDF warn about the edge only for the first."""
+    study_id, _, fit_id = approved
+    for goal, on_edge in (("minimize", True), ("maximize", False)):
+        made = web_propose(actions, study_id, fit_id, **{f"goal_{fit_id}": goal})
+        url = made.headers["Location"]
+        sheet = client.get(url).get_data(as_text=True)
+        with db.session() as s:
+            edge = setpoints.result_of(s.get(SetpointProposal, int(url.rsplit("/", 1)[1])))[
+                "edge"]
+        assert (edge is not None) == on_edge, goal
+        assert ("On the edge of the tested region." in sheet) == on_edge, goal
+        if on_edge:
+            assert edge["shape"] == "sphere" and "1.682 coded units from the centre" in sheet
+        actions.logout()

@@ -289,6 +289,7 @@ def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
             "stationary_point": {r: _stationary(region, s, fits.results[r])
                                  for r, s in surfaces.items()},
             "region": _region_doc(fits, region),
+            "edge": region.edge(best),
             "goals": {r: g.to_dict() for r, g in every.items()},
             "constraints": constraints,
             "note": None if big_d > 0 else ("No setting in the region gives every response a "
@@ -496,4 +497,5 @@ def _single_in(fits, region: Region, surfaces: dict, response: str, name: str,
     return {"response": response, "goal": goal_doc, "optimum": optimum,
             "grid_check": grid_check, "check": check,
             "stationary_point": _stationary(region, surface, results),
-            "region": _region_doc(fits, region), "note": note, "caution": CAUTION}
+            "region": _region_doc(fits, region), "edge": region.edge(best), "note": note,
+            "caution": CAUTION}

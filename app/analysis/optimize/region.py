@@ -18,6 +18,8 @@ from .canonical import SetpointError
 # Coded-unit slack for "on the boundary": far below any meaningful setting change, above the
 # rounding of actual values typed to a few decimals and of optimiser steps.
 TOL = 1e-7
+# A proposal within this many coded units of the design region's boundary is on its edge.
+EDGE_TOL = 1e-3
 
 
 class OutsideRegion(SetpointError):
@@ -221,6 +223,33 @@ class Region:
             raise OutsideRegion(
                 f"{what} lies {dist:.4g} coded units from the centre, beyond the design region's "
                 f"radius {self.radius:.4g} (largest coded setting: '{worst}')", field=worst)
+
+    def edge(self, coded) -> dict | None:
+        """Where a proposal touches the boundary of the design region, past which the model was
+        not tested: the free factors at the low or high end of their tested range (cube), or
+        the point on the sphere; None inside. A bound the engineer set inside the region is
+        their choice, not the region's edge, and a fixed factor is where it was put."""
+        x = self.as_array(coded)
+        beyond = ("the best setting may lie beyond it, where this model was not tested. Runs "
+                  "past this edge (an extension of the design) would tell; the model alone does "
+                  "not support moving the process there.")
+        if self.kind == "sphere":
+            distance = float(np.sqrt(np.sum(x**2)))
+            if distance < self.radius - EDGE_TOL:
+                return None
+            return {"shape": "sphere", "factors": [],
+                    "note": (f"The proposal lies on the boundary of the design region "
+                             f"({self.radius:.4g} coded units from the centre): " + beyond)}
+        on = [i for i in self.free if abs(x[i]) >= 1.0 - EDGE_TOL]
+        if not on:
+            return None
+        sides = {i: "high" if x[i] > 0 else "low" for i in on}
+        named = "; ".join(f"{self.factors[i].name} at the {sides[i]} end of its tested range "
+                          f"({self.factors[i].describe(x[i])})" for i in on)
+        return {"shape": "cube",
+                "factors": [{"factor": self.factors[i].name, "side": sides[i],
+                             "setting": self.factors[i].to_actual(x[i])} for i in on],
+                "note": f"The proposal sits on the edge of the tested region ({named}): " + beyond}
 
     def to_dict(self) -> dict:
         return {"kind": self.kind, "shape": self.kind, "why": self.why, "radius": self.radius,

@@ -144,3 +144,25 @@ def test_a_local_search_that_misses_is_caught_by_the_grid():
     assert found.grid_objective == -1.0 and found.local_objective == 0.0
     assert not found.agrees and found.source.startswith("grid")
     assert found.objective == -1.0 and region.inside(found.coded)
+
+
+def test_a_proposal_on_the_region_edge_says_so():
+    """A plane's maximum is a cube corner (both factors at their high ends) or a point on the
+    sphere: the proposal names the edge, since the model cannot see past it. A bound the
+    engineer set inside the region, or a fixed factor, is not the region's edge."""
+    corner = single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "maximize")
+    assert [(a["factor"], a["side"], a["setting"]) for a in corner["edge"]["factors"]] == [
+        ("A", "high", 170.0), ("B", "high", 3.0)]
+    assert corner["edge"]["note"].startswith("The proposal sits on the edge of the tested "
+                                             "region (A at the high end of its tested range "
+                                             "(170); B at the high end")
+    low = single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "minimize", fixed={"B": 2.5},
+                      bounds={"A": [152.0, 170.0]})
+    assert low["edge"] is None  # A stops at the engineer's bound, B is fixed
+    sphere = single_goal(hand_model(PLANE, 10.0, design=ROTATABLE_2), "maximize")
+    assert sphere["edge"]["shape"] == "sphere" and "1.414 coded units" in sphere["edge"]["note"]
+    # a maximum inside the region: 10 - A^2 - B^2 peaks at the centre
+    bowl = propose({"Y": hand_model({"A^2": -1.0, "B^2": -1.0}, 10.0, levels=LEVELS)},
+                   {"Y": {"goal": "maximize"}})
+    assert_allclose(coded_vector(bowl), [0.0, 0.0], atol=1e-4)
+    assert bowl["edge"] is None
