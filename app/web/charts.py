@@ -295,13 +295,16 @@ def spread_by_level(results: dict, factor: str, cols: RunColumns | None = None) 
                "lo": float(np.mean(v) - np.std(v, ddof=1)) if len(v) > 1 else None,
                "hi": float(np.mean(v) + np.std(v, ddof=1)) if len(v) > 1 else None,
                "n": len(v)} for lv, v in by_level.items()]
+    # a categorical factor's levels in their own order; numbers ascending (left unsorted, the
+    # levels with a bar would come first and the others after them)
+    order = names if names is not None else "ascending"
     bars = alt.Chart(alt.Data(values=[s for s in spread if s["sd"] is not None])).mark_rule(
         color="#9fb6cc", strokeWidth=8, opacity=0.7).encode(
-        x=alt.X("level:O", sort=names), y="lo:Q", y2="hi:Q",
+        x=alt.X("level:O", sort=order), y="lo:Q", y2="hi:Q",
         tooltip=[alt.Tooltip("level:O", title=factor), alt.Tooltip("sd:Q", format=".3g",
                                                                    title="SD"),
                  alt.Tooltip("n:Q", title="Runs")])
-    pts = _points(alt.X("level:O", title=factor, sort=names), alt.Y("residual:Q", title="Residual"),
+    pts = _points(alt.X("level:O", title=factor, sort=order), alt.Y("residual:Q", title="Residual"),
                   alt.Tooltip("level:O", title=factor))
     spec = _finish([bars, pts], data, f"Spread of residuals by {factor} level")
     sd_at = {s["level"]: s["sd"] for s in spread}
@@ -333,25 +336,37 @@ def cooks_distance(results: dict, cols: RunColumns | None = None) -> Chart:
                  "" if not limit else f"Dashed line: review limit {limit:.3g} (F median).")
 
 
+def leverage_limits(results: dict) -> tuple[list, str]:
+    """The leverage chart's lines and the note saying what they are: 2p/n (common practice)
+    and the outlier check's limits. A run's leverage is at most 1, so when 2p/n is 1 or more
+    (a small design) that line would mark nothing and is left out, with the reason."""
+    p, n = results["fit"]["p"], results["fit"]["n"]
+    limit = _outlier_limit(results)
+    outliers = _rules([{"at": -limit}, {"at": limit}], LIMIT_REVIEW)
+    if 2 * p / n >= 1:
+        return [outliers], (f"No 2p/n line: 2p/n = {2 * p / n:.3g} is at or above 1, the "
+                            "largest leverage a run can have, so in a design this small the "
+                            f"rule marks no run. Horizontal lines at ±{limit:g}, the outlier "
+                            "check's limit.")
+    return ([_rules([{"at": 2 * p / n}], LIMIT_REVIEW, axis="x"), outliers],
+            f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±{limit:g}, the "
+            "outlier check's limit.")
+
+
 def leverage(results: dict, cols: RunColumns | None = None) -> Chart:
     """Leverage against studentized residual, with the 2p/n line and the outlier limits."""
     cols = columns_of(results, cols)
     data = _base_rows(cols, included_runs(cols))
-    p, n = results["fit"]["p"], results["fit"]["n"]
-    limit = _outlier_limit(results)
+    lines, note = leverage_limits(results)
     pts = _points(alt.X("leverage:Q", title="Leverage h"),
                   alt.Y("studentized:Q", title="Studentized residual"),
                   alt.Tooltip("leverage:Q", format=".3f", title="Leverage"),
                   alt.Tooltip("studentized:Q", format=".3g", title="Studentized"))
-    layers = [_rules([{"at": 2 * p / n}], LIMIT_REVIEW, axis="x"),
-              _rules([{"at": -limit}, {"at": limit}], LIMIT_REVIEW), pts]
-    spec = _finish(layers, data, "Leverage against studentized residual")
+    spec = _finish([*lines, pts], data, "Leverage against studentized residual")
     rows = [(d["label"], d["run_order"], _r(d["leverage"]), _r(d["studentized"]))
             for d in data]
     return Chart("leverage", "Leverage against studentized residual", spec,
-                 ("Run", "Run order", "Leverage", "Studentized residual"), rows,
-                 f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±{limit:g}, "
-                 "the outlier check's limit.")
+                 ("Run", "Run order", "Leverage", "Studentized residual"), rows, note)
 
 
 def half_normal(results: dict) -> Chart | None:

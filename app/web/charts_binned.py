@@ -41,6 +41,7 @@ from app.web.charts import (
     _with_data,
     contour,
     included_runs,
+    leverage_limits,
 )
 
 MARK_MAX = 300
@@ -346,15 +347,11 @@ def cooks_distance(results: dict, cols: RunColumns) -> Chart:
 
 def leverage(results: dict, cols: RunColumns) -> Chart:
     idx = included_runs(cols)
-    p, n = results["fit"]["p"], results["fit"]["n"]
-    limit = _outlier_limit(results)
-    rules = [_rules([{"at": 2 * p / n}], LIMIT_REVIEW, axis="x"),
-             _rules([{"at": -limit}, {"at": limit}], LIMIT_REVIEW)]
+    rules, note = leverage_limits(results)
     return _scatter("leverage", "Leverage against studentized residual", cols, idx,
                     cols.values["leverage"][idx], cols.values["studentized"][idx],
                     ("leverage", "studentized"), ("Leverage h", "Studentized residual"), rules,
-                    ("Run", "Run order", "Leverage", "Studentized residual"),
-                    f"Vertical line at 2p/n = {2 * p / n:.3g}; horizontal lines at ±{limit:g}.")
+                    ("Run", "Run order", "Leverage", "Studentized residual"), note)
 
 
 def binned_charts(results: dict, cols: RunColumns, factors: list[str],

@@ -131,14 +131,28 @@ def test_normal_plot_uses_blom_scores_and_a_quartile_line(rsm):
                     rtol=1e-12)
 
 
-def test_leverage_line_is_two_p_over_n(rsm):
-    results, _ = rsm
+def _vertical_lines(chart) -> list[dict]:
+    return [layer for layer in chart.spec["layer"]
+            if layer.get("encoding", {}).get("x", {}).get("field") == "at"]
+
+
+def test_leverage_line_is_two_p_over_n(screening):
+    results, _ = screening
     chart = charts.leverage(results)
     p, n = results["fit"]["p"], results["fit"]["n"]
-    vertical = next(layer for layer in chart.spec["layer"]
-                    if layer.get("encoding", {}).get("x", {}).get("field") == "at")
-    assert_allclose(vertical["data"]["values"][0]["at"], 2 * p / n, rtol=1e-12)
-    assert (p, n) == (10, 19)
+    assert 2 * p / n < 1
+    vertical = _vertical_lines(chart)
+    assert_allclose(vertical[0]["data"]["values"][0]["at"], 2 * p / n, rtol=1e-12)
+    assert chart.note.startswith(f"Vertical line at 2p/n = {2 * p / n:.3g}")
+
+
+def test_leverage_line_is_left_out_when_two_p_over_n_reaches_one(rsm):
+    """10 terms in 19 runs: 2p/n = 1.05, beyond any run's leverage (at most 1)."""
+    results, _ = rsm
+    assert (results["fit"]["p"], results["fit"]["n"]) == (10, 19)
+    chart = charts.leverage(results)
+    assert _vertical_lines(chart) == []
+    assert chart.note.startswith("No 2p/n line: 2p/n = 1.05 is at or above 1")
 
 
 def test_half_normal_has_lenth_lines_for_two_level_design(saturated, rsm):
@@ -450,3 +464,11 @@ def test_half_normal_names_only_the_effects_that_stand_out(saturated):
     # Names of the right-hand points are set to their left: none runs out of the plot.
     top = max(r["quantile"] for r in rows)
     assert all(r["side"] == "left" for r in rows if r["quantile"] == top)
+
+
+def test_spread_by_level_puts_numeric_levels_in_order(rsm):
+    """The CCD's axial levels (one run each, so no SD bar) sit in numeric order among the
+    others, not after them."""
+    chart = next(c for c in charts.all_charts(rsm[0]) if c.name.startswith("spread_by_level:"))
+    for layer in chart.spec["layer"]:
+        assert layer["encoding"]["x"]["sort"] == "ascending"
