@@ -90,6 +90,10 @@ def register(app: Flask) -> None:
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
     app.jinja_env.filters["fromjson"] = json.loads
+    # JSON shown as text to read (an event's values): characters as they are, escaped as HTML
+    # like any other text; tojson is for JSON placed in scripts and attributes
+    app.jinja_env.filters["json_text"] = lambda value: json.dumps(
+        value, ensure_ascii=False, sort_keys=True, default=str)
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
                    setpoints, api_setpoints, api_teams, api_runs, api_predictions,
                    profiler, reports, api_reports, api_plans, plans):

@@ -329,3 +329,17 @@ def test_package_csv_is_spreadsheet_safe_and_the_hashed_table_still_verifies(
                                      fix_manifest=True))
     assert ["data/v1/canonical-spreadsheet.csv is not the spreadsheet-safe copy of "
             "data/v1/canonical.csv"] == report.problems
+
+
+def test_event_detail_shows_characters_as_they_are(db, actions, client, signed):
+    """An upload's roles carry '°C': the event page shows the character, not a JSON escape
+    (and HTML in a value stays text)."""
+    _auditor(actions)
+    with db.session() as s:
+        event_id = s.execute(text("SELECT id FROM audit_events WHERE action = 'data.upload' "
+                                  "ORDER BY id LIMIT 1")).scalar_one()
+        new_json = s.execute(text("SELECT new_json FROM audit_events WHERE id = :i"),
+                             {"i": event_id}).scalar_one()
+    assert "\\u00b0C" in new_json or "°C" in new_json
+    page = client.get(f"/history/events/{event_id}").get_data(as_text=True)
+    assert "°C" in page and "\\u00b0" not in page
