@@ -33,7 +33,7 @@ PICK = "pick_left_out"
 # At most this many left-out runs are drawn on one chart (as many as marked runs when binned).
 DRAW_MAX = 300
 NOTE = ("Hollow grey markers: runs left out of the fit (not part of any statistic here); "
-        "hover for the reason.")
+        "each one's reason is listed with the runs left out.")
 
 PLACED = {"studentized": "A left-out run's studentized residual is its residual over the "
                          "standard error of predicting a new run there.",

@@ -173,7 +173,7 @@ def new(study_id: int):
             raise
         get_session().rollback()
         return _form_page(study_id, request.form, exc.message, exc.field, exc.status)
-    flash(f"Setpoint proposal {proposal_id} stored as a draft; an approver releases it.")
+    flash(f"Setpoint proposal {proposal_id} stored as proposed; an approver releases it.")
     return redirect(url_for("setpoints.view", proposal_id=proposal_id))
 
 

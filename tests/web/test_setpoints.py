@@ -236,9 +236,18 @@ def test_wrong_password_is_403_and_recorded(db, approved, client, actions, via):
         message = response.get_json()["error"]
     assert response.status_code == 403 and "password is wrong" in message
     with db.session() as s:
-        assert s.get(SetpointProposal, pid).state == "draft"
+        proposal = s.get(SetpointProposal, pid)
+        assert proposal.state == "draft"
+        study_id = proposal.study_id
         refused = s.scalars(select(AuditEvent).where(AuditEvent.action == "signature.refused"))
         assert [e.object_type for e in refused] == ["setpoint"]
+    # the auditor reads the refusal's cause in the timeline, and the state in the sheets' words
+    actions.logout()
+    actions.login("otto")
+    timeline = client.get(f"/history/studies/{study_id}").get_data(as_text=True)
+    assert "refused (wrong password): The password is wrong; nothing was signed." in timeline
+    integrity = client.get("/history/integrity").get_data(as_text=True)
+    assert '<span class="state draft">proposed</span>' in integrity
 
 
 @pytest.mark.parametrize("via", ["web", "api"])
