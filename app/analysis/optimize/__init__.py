@@ -39,10 +39,14 @@ def _documents(results_by_response) -> dict[str, dict]:
     return results_by_response
 
 
-def _setup(results_by_response, bounds, fixed):
+def _setup(results_by_response, bounds, fixed, *, at_levels: bool = False):
+    """The fits, the region and the surfaces of one search; ``at_levels`` for models reduced
+    to their continuous factors, whose region the reason then says it is about."""
     fits = load_fits(results_by_response)
+    why = (f"Over the continuous factors, at each level searched: {fits.why[0].lower()}"
+           f"{fits.why[1:]}" if at_levels and fits.why else fits.why)
     region = build_region(fits.factors, fits.kind, fits.radius, bounds=bounds, fixed=fixed,
-                          why=fits.why)
+                          why=why)
     surfaces = {r: Surface.from_result(doc, r) for r, doc in fits.results.items()}
     return fits, region, surfaces
 
@@ -63,7 +67,7 @@ def _options(results: dict[str, dict], bounds, fixed) -> list[tuple[dict | None,
     levels.refuse_categorical_bounds(bounds, categorical)
     continuous_fixed, chosen = levels.split_fixed(fixed, categorical)
     return [(combo, _setup({r: levels.at_levels(doc, combo) for r, doc in results.items()},
-                           bounds, continuous_fixed or None))
+                           bounds, continuous_fixed or None, at_levels=True))
             for combo in levels.combinations(categorical, chosen)]
 
 

@@ -133,6 +133,9 @@ def test_minimize_and_a_fixed_level():
     cedar = _sm_predict(ref, "Cedar", grid)["mean"].to_numpy()
     assert abs(fixed["optimum"]["settings"]["Temp"] - grid[int(np.argmax(cedar))]) < 0.02
     assert fixed["levels"]["held"] == {"Supplier": "Cedar"}
+    # the region's reason is about the continuous factors the search moved
+    assert fixed["region"]["why"].startswith("Over the continuous factors, at each level "
+                                             "searched: the design is not one")
     assert fixed["levels"]["statement"] == ("Supplier held at Cedar, as asked: no other level "
                                             "was searched.")
     with pytest.raises(SetpointError, match="Every factor is fixed") as bad:
