@@ -132,7 +132,13 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
             roles = plans.roles_from_plan(plan, [str(c) for c in raw.frame.columns])
         except WorkflowError as exc:
             problems = [*problems, {"message": exc.message, "column": exc.field}]
-    roles = suggested if roles is None else roles
+    carried_from = None
+    if roles is None:
+        # a new version of the study: its columns keep the roles confirmed last time
+        carried_from, carried = uploads.carried_roles(get_session(), study.id,
+                                                      [str(c) for c in raw.frame.columns])
+        roles = {**suggested, **carried}
+        carried_from = carried_from if carried else None
     summary = [(summarize_column(raw, c), role_choice(suggested[c]), reasoned[c][1])
                for c in raw.frame.columns]
     return render_template(
@@ -141,7 +147,7 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
         n_shown=len(head), summary=summary,
         role_choices=ROLE_CHOICES, role_words=ROLE_WORDS, role_choice=role_choice,
         problems=problems, needs_reason=_has_versions(study.id),
-        reason=request.form.get("reason", ""), plan=plan), status
+        reason=request.form.get("reason", ""), plan=plan, carried_from=carried_from), status
 
 
 @bp.route("/studies/<int:study_id>/upload/<token>", methods=["GET"])

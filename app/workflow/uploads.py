@@ -95,6 +95,23 @@ def design_table(version: DataVersion) -> DesignTable:
     return load_canonical(version.canonical_csv, version.roles_json)
 
 
+def latest_version(session: Session, study_id: int) -> DataVersion | None:
+    """The study's newest data version (None before the first upload)."""
+    return session.scalar(select(DataVersion).where(DataVersion.study_id == study_id)
+                          .order_by(DataVersion.version.desc()).limit(1))
+
+
+def carried_roles(session: Session, study_id: int,
+                  columns: list[str]) -> tuple[int | None, dict[str, ColumnRole]]:
+    """The roles (with units, levels and kind) the newest version gave to columns of the same
+    name: a corrected file keeps what was confirmed before. (version number, roles)."""
+    latest = latest_version(session, study_id)
+    if latest is None:
+        return None, {}
+    before = json.loads(latest.roles_json)
+    return latest.version, {c: ColumnRole.from_dict(before[c]) for c in columns if c in before}
+
+
 def previous_version(session: Session, version: DataVersion) -> DataVersion | None:
     """The study's data version just before ``version`` (None for the first)."""
     return session.scalar(select(DataVersion).where(DataVersion.study_id == version.study_id,

@@ -354,3 +354,27 @@ def test_the_preview_says_why_each_role_was_suggested(actions, db, users, client
     page = client.get(preview.headers["Location"]).get_data(as_text=True)
     assert "<th>Why</th>" in page
     assert "&#39;150 C&#39; in row 3 is not a number" in page
+
+
+def test_a_new_version_keeps_the_roles_units_and_levels_confirmed_before(client, actions, db,
+                                                                          study_id):
+    """Version 1 is stored with units and levels changed by hand; the preview of the next
+    file offers those, not what the file alone suggests."""
+    first = _upload(actions, study_id, GOOD, "cure.csv")
+    html = client.get(first.headers["Location"]).get_data(as_text=True)
+    form = _confirm_form(html)
+    columns = re.findall(r'<th scope="row">(.*?)</th>',
+                         re.search(r'<table class="roles">.*?</table>', html, re.S).group(0))
+    hardness = columns.index("Hardness")
+    temperature = columns.index("Cure temperature")
+    form[f"units_{hardness}"] = "s (pendulum)"
+    form[f"low_{temperature}"], form[f"high_{temperature}"] = "151", "169"
+    assert actions.post(first.headers["Location"], form).status_code == 302
+
+    second = _upload(actions, study_id, GOOD, "cure-corrected.csv")
+    page = client.get(second.headers["Location"]).get_data(as_text=True)
+    assert "Columns already in version 1 keep the roles, units and levels confirmed there" in page
+    offered = _confirm_form(page)
+    assert offered[f"units_{hardness}"] == "s (pendulum)"
+    assert (offered[f"low_{temperature}"], offered[f"high_{temperature}"]) == ("151", "169")
+    assert offered[f"role_{hardness}"] == "response"
