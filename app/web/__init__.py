@@ -92,9 +92,6 @@ def register(app: Flask) -> None:
     app.jinja_env.filters["fromjson"] = json.loads
     # JSON shown as text to read (an event's values): characters as they are, escaped as HTML
     # like any other text; tojson is for JSON placed in scripts and attributes
-    from app.workflow.setpoint_signoff import state_label
-
-    app.jinja_env.filters["setpoint_state"] = state_label
     app.jinja_env.filters["json_text"] = lambda value: json.dumps(
         value, ensure_ascii=False, sort_keys=True, default=str)
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,

@@ -60,6 +60,12 @@ def setpoint_proposals(study_id: int) -> list:
 bp.add_app_template_global(setpoint_signoff.state_label, "setpoint_state_label")
 
 
+@bp.app_template_global("may_propose_setpoints")
+def may_propose_setpoints(study_id: int) -> bool:
+    """Whether the study has a fit that may drive setpoints (the study page's button)."""
+    return any(c["problem"] is None for c in _candidates(get_session(), study_id))
+
+
 bp.add_app_template_global(setpoint_export.goal_words, "goal_words")
 
 
@@ -143,10 +149,12 @@ def _form_page(study_id: int, form=None, error: str | None = None, field: str | 
     session = get_session()
     study = studies.get_study(session, study_id)
     candidates = _candidates(session, study_id)
+    usable = [str(c["fit"].id) for c in candidates if c["problem"] is None]
+    # the first visit offers the only usable fit ticked; after a refusal, what was sent
+    chosen = form.getlist("fit") if form is not None else usable if len(usable) == 1 else []
     return render_template("setpoints/new.html", study=study, candidates=candidates,
                            factors=_factors(candidates), goal_choices=GOAL_CHOICES,
-                           form=form or {}, error=error, error_field=field,
-                           chosen=form.getlist("fit") if form is not None else [],
+                           form=form or {}, error=error, error_field=field, chosen=chosen,
                            caution=CAUTION), status
 
 

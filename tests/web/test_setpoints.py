@@ -514,3 +514,18 @@ def test_a_proposal_on_the_region_edge_carries_a_notice(db, approved, client, ac
         if on_edge:
             assert edge["shape"] == "sphere" and "1.682 coded units from the centre" in sheet
         actions.logout()
+
+
+def test_the_propose_button_waits_for_an_approved_fit_and_the_form_ticks_the_only_one(
+        db, users, client, actions):
+    """A study whose only fit is not approved offers no 'Propose setpoints' button; once one
+    fit may drive setpoints, the button shows and the form starts with that fit ticked."""
+    study_id = h.make_study(db)
+    h.make_fit(db, h.add_version(db, study_id), model="quadratic")
+    actions.login("erin")
+    assert "Propose setpoints</a>" not in client.get(f"/studies/{study_id}").get_data(
+        as_text=True)
+    study_id, _version, fit_id = h.approved_fit(db)
+    assert "Propose setpoints</a>" in client.get(f"/studies/{study_id}").get_data(as_text=True)
+    form = client.get(f"/studies/{study_id}/setpoints/new").get_data(as_text=True)
+    assert f'<input type="checkbox" name="fit" value="{fit_id}" checked>' in form
