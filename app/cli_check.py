@@ -250,6 +250,7 @@ def _check(file: Path, response: str, factors: str | None, run_order: str | None
         document["setpoint_check"] = search.get("check")
         document["setpoint_caution"] = search.get("caution")
         document["setpoint_levels"] = search.get("levels")
+        document["setpoint_edge"] = search.get("edge")
     if as_json:
         click.echo(json.dumps(document, sort_keys=True, indent=2))
         return
