@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from app.ingest.canonical import DesignTable
+from app.ingest.raw import number_values
 
 MATCHED_BY_WORDS = {"label": "run label", "run_order": "run order", "row": "row number"}
 
@@ -142,10 +143,16 @@ def _differ(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 def _as_numbers_beside(values: np.ndarray, other: np.ndarray) -> np.ndarray:
     """``values`` as numbers (NaN where a text is not one) when they are text and ``other``
-    are numbers; else unchanged."""
+    are numbers; else unchanged. Text keeps the file's own writing, so a number is read with
+    a decimal point, or failing that a decimal comma ('143,68')."""
     if values.dtype != object or other.dtype.kind not in "fiu":
         return values
-    return pd.to_numeric(pd.Series(values, dtype=object), errors="coerce").to_numpy(float)
+    texts = np.array([None if v is None or v != v else str(v) for v in values], dtype=object)
+    numbers = number_values(texts, ".")
+    unread = np.isnan(numbers)
+    if unread.any():
+        numbers[unread] = number_values(texts[unread], ",")
+    return numbers
 
 
 def table_differences(old: DesignTable, new: DesignTable) -> TableDifferences:

@@ -94,6 +94,27 @@ def test_a_column_read_as_text_in_one_version_changes_only_where_its_values_do()
         ("CV40-R07", "Cure temperature", before.loc[6, "Cure temperature"], "150 C")]
 
 
+def test_a_decimal_comma_file_read_as_text_in_one_version_compares_its_numbers():
+    """The same change in a file written with ';' and decimal commas: text keeps '143,68',
+    which is the number 143.68, so only the slipped cell changed."""
+    def comma_file(frame):
+        return frame.to_csv(index=False, sep=";", decimal=",")
+
+    before = _frame()
+    after = before.astype({"Cure temperature": object})
+    after["Cure temperature"] = [f"{v:g}".replace(".", ",") for v in before["Cure temperature"]]
+    after.loc[6, "Cure temperature"] = "150 C"
+    roles = dict(DEMO.roles)
+    roles["Cure temperature"] = type(roles["Gloss"])(role="covariate", kind="categorical",
+                                                     units="°C")
+    old = validate(read_upload(comma_file(before).encode(), "cure.csv"), DEMO.roles)
+    new = validate(read_upload(comma_file(after).encode(), "cure.csv"), roles)
+    assert any("," in str(v) for v in new.frame["Cure temperature"])  # the file's own writing
+    diff = table_differences(old, new)
+    assert [(c.key, c.column, c.new) for c in diff.changed] == [
+        ("CV40-R07", "Cure temperature", "150 C")]
+
+
 def test_without_label_rows_match_by_run_order_then_by_position():
     no_label = {k: v for k, v in DEMO.roles.items() if k != "Panel ID"}
     before = _frame().drop(columns=["Panel ID"])
