@@ -140,8 +140,15 @@ schema("SetpointSheet", {
         "stationary_point": {"type": "object"},
         "levels": {"type": ["object", "null"],
                    "description": "With categorical factors: chosen {factor: level}, "
+                                  "held {factor: level} (the levels the request fixed), "
                                   "statement, factors, and by_level (each combination's "
                                   "best settings, predictions and D); null without them"},
+        "edge": {"type": ["object", "null"],
+                 "description": "When the proposal sits on the boundary of the region "
+                                "searched and a goal asks for more: shape (cube or sphere), "
+                                "factors [{factor, side, setting}] (cube) and note; else null"},
+        "held": {"type": "array", "items": {"type": "string"},
+                 "description": "Factors the request fixed (at a value or a level)"},
         "signatures": {"type": "array", "items": {"type": "object"}},
         "confirmations": {"type": "array", "items": {"type": "object"}},
         "chain_head": {"type": "object"},

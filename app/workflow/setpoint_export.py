@@ -25,6 +25,7 @@ from app.workflow.setpoint_signoff import for_production, state_label, tolerance
 from app.workflow.setpoints import (
     fits_of,
     goals_of,
+    held_factors,
     proposal_intact,
     release_signatures,
     resolution_of,
@@ -95,6 +96,8 @@ def export_json(session: Session, proposal: SetpointProposal) -> dict[str, Any]:
         "stationary_point": result["stationary_point"],
         "region": result["region"], "grid_check": result["grid_check"],
         "levels": result.get("levels"),
+        "edge": result.get("edge"),
+        "held": held_factors(proposal),
         "tolerance": tolerance_of(session, proposal),
         "signatures": [signature_json(session, proposal, s)
                        for s in release_signatures(session, proposal)],
@@ -122,13 +125,15 @@ def export_csv(session: Session, proposal: SetpointProposal) -> bytes:
         ["snapshot sha256", doc["snapshot_sha256"],
          "intact" if doc["snapshot_intact"] else "ALTERED"],
         ["chain head", doc["chain_head"]["seq"], doc["chain_head"]["hash"]],
+        *([["on the edge of the region searched", doc["edge"]["note"]]] if doc["edge"] else []),
         [],
         ["factor", "setting", "units", "resolution (from the data)", "setting (full value)",
-         "setting (coded units)"],
+         "setting (coded units)", "fixed by the engineer"],
     ]
     units, step = doc["units"], doc["resolution"]
     rows += [[name, setting_text(opt["settings"][name], step.get(name)), units.get(name) or "",
-              step.get(name) or "", opt["settings"][name], opt["coded"][name]]
+              step.get(name) or "", opt["settings"][name], opt["coded"][name],
+              "fixed" if name in doc["held"] else ""]
              for name in opt["settings"]]
     if doc.get("levels"):
         rows += [[], ["levels compared", doc["levels"]["statement"]],

@@ -99,8 +99,8 @@ def test_goal_adds_optimum_and_stationary_point_to_json():
     assert doc["setpoint_check"]["status"] == "agrees"
     assert doc["setpoint_edge"] is None  # the maximum is inside the sphere
     low = _run([demo, "--response", "Hardness", "--model", "quadratic", "--goal", "minimize"])
-    assert "The proposal lies on the boundary of the design region (1.682 coded units from " \
-           "the centre)" in low.output
+    assert "The proposal lies on the boundary of the region searched (the sphere 1.682 coded " \
+           "units from the centre)" in low.output
     # the page's search (propose) gives the command line's settings on the same fit
     from app.analysis.optimize import propose
 

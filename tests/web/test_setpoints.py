@@ -9,6 +9,7 @@ import json
 import re
 
 import pytest
+from pypdf import PdfReader
 from sqlalchemy import func, select, text
 
 from app.analysis.optimize import CAUTION
@@ -500,7 +501,8 @@ def test_the_api_walks_the_sign_off_with_confirmation_runs(db, approved, client)
 
 def test_a_proposal_on_the_region_edge_carries_a_notice(db, approved, client, actions):
     """The demo's hardness is lowest on the sphere of its rotatable design and highest inside
-    it: the sheet and its PDF warn about the edge only for the first."""
+    it: the sheet, its exports and its PDF (read back with pypdf) warn about the edge only for
+    the first."""
     study_id, _, fit_id = approved
     for goal, on_edge in (("minimize", True), ("maximize", False)):
         made = web_propose(actions, study_id, fit_id, **{f"goal_{fit_id}": goal})
@@ -510,9 +512,19 @@ def test_a_proposal_on_the_region_edge_carries_a_notice(db, approved, client, ac
             edge = setpoints.result_of(s.get(SetpointProposal, int(url.rsplit("/", 1)[1])))[
                 "edge"]
         assert (edge is not None) == on_edge, goal
-        assert ("On the edge of the tested region." in sheet) == on_edge, goal
+        assert ("On the edge of the region searched." in sheet) == on_edge, goal
+        exported = client.get(url + "/export.json").get_json()
+        table = client.get(url + "/export.csv").get_data(as_text=True)
+        assert exported["edge"] == edge
+        assert ("on the edge of the region searched" in table) == on_edge, goal
         if on_edge:
             assert edge["shape"] == "sphere" and "1.682 coded units from the centre" in sheet
+            pdf = client.get(url + "/report.pdf")
+            assert pdf.status_code == 200
+            text = " ".join(re.sub(r"\s+", " ", page.extract_text())
+                            for page in PdfReader(io.BytesIO(pdf.data)).pages)
+            assert "On the edge of the region searched." in text
+            assert "1.682 coded units from the centre" in text
         actions.logout()
 
 

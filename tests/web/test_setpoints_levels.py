@@ -4,9 +4,11 @@ carry the levels compared. The search is checked in tests/analysis/optimize/test
 
 from __future__ import annotations
 
+import io
 import re
 
 import pytest
+from pypdf import PdfReader
 
 from app.analysis.optimize import CAUTION
 from app.workflow import fits
@@ -34,6 +36,11 @@ def test_form_fixes_a_level_and_the_sheet_lists_it(db, approved, client, actions
     settings = re.search(r'<table class="settings">.*?</table>', sheet, re.S).group(0)
     machine = re.search(r'<th scope="row">Machine</th>.*?</tr>', settings, re.S).group(0)
     assert '<td class="num">level</td><td>fixed</td>' in machine
+    table = client.get(made.headers["Location"] + "/export.csv").get_data(as_text=True)
+    assert "Machine,M2,,,M2,M2,fixed" in table
+    pdf = client.get(made.headers["Location"] + "/report.pdf")
+    text = " ".join(page.extract_text() for page in PdfReader(io.BytesIO(pdf.data)).pages)
+    assert "level, fixed" in re.sub(r"\s+", " ", text)
     # one continuous factor: the map page says why there is no map instead of failing
     space = client.get(made.headers["Location"] + "/design-space")
     assert space.status_code == 200

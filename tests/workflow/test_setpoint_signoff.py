@@ -171,7 +171,8 @@ def test_the_export_rounds_settings_to_the_data_and_names_the_units(db, proposal
         rows = list(csv.reader(io.StringIO(setpoint_export.export_csv(s, found).decode())))
         doc = setpoint_export.export_json(s, found)
     header = rows.index(["factor", "setting", "units", "resolution (from the data)",
-                         "setting (full value)", "setting (coded units)"])
+                         "setting (full value)", "setting (coded units)",
+                         "fixed by the engineer"])
     settings = {r[0]: r for r in rows[header + 1:header + 4]}
     # The demo file writes temperatures and times with up to 2 decimals (axial points such as
     # 143.18), the catalyst with up to 4 (its axial points) and Hardness with 1 (counted with

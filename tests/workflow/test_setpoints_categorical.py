@@ -70,7 +70,7 @@ def test_proposal_names_the_level_and_lists_every_level(db, approved):
         assert setpoints.default_tolerance(s, proposal) == {"Speed": 0.2}
         assert "Machine" not in setpoints.resolution_of(s, proposal)
         table = list(csv.reader(io.StringIO(setpoint_export.export_csv(s, proposal).decode())))
-    assert ["Machine", "M1", "", "", "M1", "M1"] in table
+    assert ["Machine", "M1", "", "", "M1", "M1", ""] in table
     compared = next(i for i, row in enumerate(table) if row[:1] == ["levels compared"])
     assert "Machine = M1 gives the highest predicted Gloss" in table[compared][1]
     assert [row[0] for row in table[compared + 2:compared + 5]] == [

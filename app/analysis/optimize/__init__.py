@@ -13,7 +13,7 @@ from .. import transforms
 from ..prediction import predict
 from . import levels
 from .canonical import RIDGE_RATIO, SetpointError, Surface, canonical_analysis, classify
-from .check import desirability_check, goal_met_set, optimise_response
+from .check import MET, desirability_check, goal_met_set, optimise_response
 from .design_space import design_space
 from .desirability import DESIRABILITY_GOALS, Goal, overall, parse_goal, refuse_old_words
 from .region import OutsideRegion, Region, build_region, load_fits, observed_range
@@ -22,8 +22,9 @@ from .search import DESIRABILITY_TOL, search
 CAUTION = ("The model holds only inside the tested region. Confirmation runs are required before "
            "production use. Local procedures, regulations and qualified personnel have the final "
            "say.")
-# Two combinations of levels whose best overall desirabilities D differ by less than this are
-# reported as equally good: far below the three decimals shown, far above rounding.
+# Two combinations of levels whose best overall desirabilities D differ by less than this share
+# of the larger are reported as equally good: far below the three decimals shown, far above
+# the search's last digits.
 TIE_D = 1e-6
 
 __all__ = ["CAUTION", "RIDGE_RATIO", "Goal", "OutsideRegion", "Region", "SetpointError",
@@ -293,7 +294,10 @@ def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
             "stationary_point": {r: _stationary(region, s, fits.results[r])
                                  for r, s in surfaces.items()},
             "region": _region_doc(fits, region),
-            "edge": region.edge(best),
+            # every goal a target or a range, and fully met: nothing better lies beyond
+            "edge": (None if big_d >= MET and all(g.goal not in ("maximize", "minimize")
+                                                  for g in parsed.values())
+                     else region.edge(best)),
             "goals": {r: g.to_dict() for r, g in every.items()},
             "constraints": constraints,
             "note": None if big_d > 0 else ("No setting in the region gives every response a "
@@ -323,12 +327,15 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
     levels' own order) with its settings naming the levels, every combination's best listed
     under ``levels.by_level``, the levels the engineer fixed under ``levels.held`` and the
     choice said in ``levels.statement``. ``unitless`` scores are overall desirabilities D,
-    equal within ``TIE_D``; other scores (predicted values) within 1e-9 relative."""
+    equal within the share ``TIE_D`` of the best; other scores (predicted values) within 1e-9
+    relative. A score that is not finite never wins over a finite one."""
+    # a combination without a finite score (no prediction) is never proposed over one with
+    scores = [sc if np.isfinite(sc) else -np.inf for sc in scores]
     top = max(scores)
     if not np.isfinite(top):
         tol = 0.0
     elif unitless:  # D lies in [0, 1]: what the search cannot tell apart is a tie
-        tol = TIE_D
+        tol = TIE_D * top  # relative: D = 0 never ties with a D above it
     else:
         tol = 1e-9 * max(1.0, abs(top))
     best = next(i for i, sc in enumerate(scores) if sc >= top - tol)
@@ -340,7 +347,8 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
                  "predicted": _per_response(d["optimum"]["predicted"], results),
                  "desirability": d["optimum"]["desirability"]}
                 for i, (combo, d) in enumerate(found)]
-    ties = [i for i, sc in enumerate(scores) if i != best and sc >= top - tol]
+    ties = ([i for i, sc in enumerate(scores) if i != best and sc >= top - tol]
+            if np.isfinite(top) else [])
     # a factor at one level in every combination was fixed there by the engineer
     held = {n: v for n, v in chosen_levels.items() if all(c[n] == v for c, _ in found)}
     varied = [n for n in chosen_levels if n not in held]
@@ -357,7 +365,7 @@ def _best_levels(found: list[tuple[dict, dict]], results: dict[str, dict],
     if ties:
         statement += (f" {len(ties)} other {_plural(len(ties), 'combination')} "
                       f"{'does' if len(ties) == 1 else 'do'} equally well"
-                      + (" (D within 1e-6)" if unitless else "")
+                      + (" (D within a millionth)" if unitless else "")
                       + "; the first in the levels' order is shown.")
     optimum = doc["optimum"]
     optimum["settings"] = levels.with_levels(optimum["settings"], chosen_levels, order)
@@ -487,6 +495,10 @@ def _single_in(fits, region: Region, surfaces: dict, response: str, name: str,
         # the search needs no limits; only the desirability does, so report it as missing
         d, goal_doc, note = None, spec, f"No desirability: {err}"
     grad_coded, grad_actual = _gradients(region, surface, best)
+    # a target the model reaches (to a millionth of its residual SD) has nothing beyond it
+    reached = (name == "target" and pred["predicted"] is not None
+               and abs(pred["predicted"] - target) <= 1e-6 * float(results["model"]["s"] or 0))
+    edge = None if reached else region.edge(best)
     optimum = {"coded": coded, "settings": settings, "predicted": pred["predicted"],
                "ci": pred["ci"], "pi": pred["pi"], "desirability": d,
                "gradient": grad_coded, "gradient_actual": grad_actual}
@@ -501,5 +513,5 @@ def _single_in(fits, region: Region, surfaces: dict, response: str, name: str,
     return {"response": response, "goal": goal_doc, "optimum": optimum,
             "grid_check": grid_check, "check": check,
             "stationary_point": _stationary(region, surface, results),
-            "region": _region_doc(fits, region), "edge": region.edge(best), "note": note,
+            "region": _region_doc(fits, region), "edge": edge, "note": note,
             "caution": CAUTION}

@@ -225,31 +225,34 @@ class Region:
                 f"radius {self.radius:.4g} (largest coded setting: '{worst}')", field=worst)
 
     def edge(self, coded) -> dict | None:
-        """Where a proposal touches the boundary of the design region, past which the model was
-        not tested: the free factors at the low or high end of their tested range (cube), or
-        the point on the sphere; None inside. A bound the engineer set inside the region is
-        their choice, not the region's edge, and a fixed factor is where it was put."""
+        """Where a proposal touches the boundary of the region searched, past which the design
+        gives the model little or no support: the free factors at the low or high end of their
+        range in the search (cube), or the point on the sphere; None inside. A bound the
+        engineer set inside the region is their choice, not the region's edge, and a fixed
+        factor is where it was put. Callers ask only when more could lie beyond (a goal to
+        maximize or minimize, or one not fully met)."""
         x = self.as_array(coded)
-        beyond = ("the best setting may lie beyond it, where this model was not tested. Runs "
-                  "past this edge (an extension of the design) would tell; the model alone does "
-                  "not support moving the process there.")
+        beyond = ("the best setting may lie beyond it, where the design gives the model little "
+                  "or no support. Runs past this edge (an extension of the design) would tell; "
+                  "the model alone does not support moving the process there.")
         if self.kind == "sphere":
             distance = float(np.sqrt(np.sum(x**2)))
             if distance < self.radius - EDGE_TOL:
                 return None
             return {"shape": "sphere", "factors": [],
-                    "note": (f"The proposal lies on the boundary of the design region "
-                             f"({self.radius:.4g} coded units from the centre): " + beyond)}
+                    "note": (f"The proposal lies on the boundary of the region searched (the "
+                             f"sphere {self.radius:.4g} coded units from the centre): " + beyond)}
         on = [i for i in self.free if abs(x[i]) >= 1.0 - EDGE_TOL]
         if not on:
             return None
         sides = {i: "high" if x[i] > 0 else "low" for i in on}
-        named = "; ".join(f"{self.factors[i].name} at the {sides[i]} end of its tested range "
+        named = "; ".join(f"{self.factors[i].name} at the {sides[i]} end of its range "
                           f"({self.factors[i].describe(x[i])})" for i in on)
         return {"shape": "cube",
                 "factors": [{"factor": self.factors[i].name, "side": sides[i],
                              "setting": self.factors[i].to_actual(x[i])} for i in on],
-                "note": f"The proposal sits on the edge of the tested region ({named}): " + beyond}
+                "note": f"The proposal sits on the edge of the region searched ({named}): "
+                        + beyond}
 
     def to_dict(self) -> dict:
         return {"kind": self.kind, "shape": self.kind, "why": self.why, "radius": self.radius,

@@ -161,7 +161,7 @@ def test_levels_that_all_meet_a_target_are_reported_as_equally_good():
     statement = out["levels"]["statement"]
     assert statement.startswith("Searched the continuous factors at each of 3 combinations of "
                                 "the levels of Supplier; Supplier = Birch gives")
-    assert "2 other combinations do equally well (D within 1e-6)" in statement
+    assert "2 other combinations do equally well (D within a millionth)" in statement
 
 
 def test_overall_desirabilities_within_a_millionth_tie():
@@ -181,6 +181,15 @@ def test_overall_desirabilities_within_a_millionth_tie():
                        unitless=True)
     assert out["levels"]["chosen"] == {"Supplier": "Birch"}
     assert "2 other combinations do equally well" in out["levels"]["statement"]
+    # near zero the tolerance shrinks with D: a combination that fails a goal (D = 0) never
+    # ties with one that does not; a missing score never wins
+    low = [0.0, 9e-7, 0.0, float("nan")]
+    found_low = [(combo, {**d, "optimum": {**d["optimum"], "desirability": sc}})
+                 for (combo, d), sc in zip(found, low, strict=True)]
+    out = _best_levels(found_low, {"y": doc}, low, "the highest overall desirability D",
+                       unitless=True)
+    assert out["levels"]["chosen"] == {"Supplier": "Alder"}
+    assert "equally well" not in out["levels"]["statement"]
 
 
 def test_single_goal_target_takes_the_level_nearest_the_target():

@@ -149,20 +149,34 @@ def test_a_local_search_that_misses_is_caught_by_the_grid():
 def test_a_proposal_on_the_region_edge_says_so():
     """A plane's maximum is a cube corner (both factors at their high ends) or a point on the
     sphere: the proposal names the edge, since the model cannot see past it. A bound the
-    engineer set inside the region, or a fixed factor, is not the region's edge."""
+    engineer set inside the region is not the region's edge, nor is a factor fixed at its
+    high level; a target met inside the region has nothing beyond it."""
     corner = single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "maximize")
     assert [(a["factor"], a["side"], a["setting"]) for a in corner["edge"]["factors"]] == [
         ("A", "high", 170.0), ("B", "high", 3.0)]
-    assert corner["edge"]["note"].startswith("The proposal sits on the edge of the tested "
-                                             "region (A at the high end of its tested range "
-                                             "(170); B at the high end")
+    assert corner["edge"]["note"].startswith("The proposal sits on the edge of the region "
+                                             "searched (A at the high end of its range (170); "
+                                             "B at the high end")
     low = single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "minimize", fixed={"B": 2.5},
                       bounds={"A": [152.0, 170.0]})
     assert low["edge"] is None  # A stops at the engineer's bound, B is fixed
+    held = single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "maximize", fixed={"B": 3.0})
+    assert [a["factor"] for a in held["edge"]["factors"]] == ["A"]  # B fixed at its high level
     sphere = single_goal(hand_model(PLANE, 10.0, design=ROTATABLE_2), "maximize")
     assert sphere["edge"]["shape"] == "sphere" and "1.414 coded units" in sphere["edge"]["note"]
+    fixed_on_sphere = single_goal(hand_model(PLANE, 10.0, design=ROTATABLE_2), "maximize",
+                                  fixed={"B": 1.0})
+    assert fixed_on_sphere["edge"]["shape"] == "sphere"  # A runs to the sphere at B = 1
     # a maximum inside the region: 10 - A^2 - B^2 peaks at the centre
     bowl = propose({"Y": hand_model({"A^2": -1.0, "B^2": -1.0}, 10.0, levels=LEVELS)},
                    {"Y": {"goal": "maximize"}})
     assert_allclose(coded_vector(bowl), [0.0, 0.0], atol=1e-4)
     assert bowl["edge"] is None
+    # a target met at (A, B) inside the region, though the point chosen may touch the cube
+    target = {"Y": {"goal": "target", "target": 12.5, "lower": 11.0, "upper": 13.0}}
+    met = propose({"Y": hand_model(PLANE, 10.0, levels=LEVELS)}, target)
+    assert met["optimum"]["desirability"] > 1 - 1e-9 and met["edge"] is None
+    assert single_goal(hand_model(PLANE, 10.0, levels=LEVELS), "target=12.5")["edge"] is None
+    # a target beyond the region's reach: the best is at the corner, and the note says so
+    far = {"Y": {"goal": "target", "target": 14.0, "lower": 11.0, "upper": 15.0}}
+    assert propose({"Y": hand_model(PLANE, 10.0, levels=LEVELS)}, far)["edge"] is not None
