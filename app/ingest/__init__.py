@@ -23,7 +23,7 @@ from .limits import (
     MAX_HEADER_CHARS,
 )
 from .raw import ColumnSummary, RawTable, summarize_column
-from .roles import ColumnRole, suggest_roles, suggest_with_reasons
+from .roles import ColumnRole, suggest_roles, suggest_with_reasons, with_carried
 from .sniff import detect_kind
 from .validate import validate
 
@@ -45,6 +45,7 @@ __all__ = [
     "read_upload",
     "suggest_roles",
     "suggest_with_reasons",
+    "with_carried",
     "summarize_column",
     "validate",
 ]

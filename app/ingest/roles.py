@@ -29,6 +29,8 @@ _COVARIATE_WORDS = {"humidity", "ambient", "operator", "lot", "batch", "shift", 
 _UNITS = re.compile(r"^(?P<name>.*?)\s*[\(\[](?P<units>[^()\[\]]+)[\)\]]\s*$")
 # A factor has few distinct settings; more than this and the column is read as a measurement.
 _MAX_FACTOR_LEVELS = 5
+# Roles one column at most may have, with their words.
+SINGLE_ROLES = {"run_order": "run order", "block": "block", "label": "label"}
 
 
 @dataclass(frozen=True)
@@ -240,7 +242,12 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
             # A typing slip in a column of numbers ('150 C', 'n/a'): suggested for what its
             # numbers are, so that storing names the cell instead of quietly making the column
             # text (a factor suggested as a covariate would leave the model).
-            role, why = _numeric_role(units, words, n, filled, typed, len(typed))
+            if len(typed) <= 1:
+                role, why = ColumnRole("ignore", units=units), "one number in every filled row"
+            else:
+                role, why = _numeric_role(units, words, n, filled, typed, len(typed))
+                why = why.replace("a number in every row", "a number in every row but the "
+                                  "slips")
             why += _text_note(raw, column, filled, "; correct it, or storing names it")
         elif (filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n
               and not words & _COVARIATE_WORDS):
@@ -261,3 +268,14 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
             why += ", but an earlier column already has that role"
         out[column] = (role, why)
     return out
+
+
+def with_carried(suggested: dict[str, ColumnRole],
+                 carried: dict[str, ColumnRole]) -> dict[str, ColumnRole]:
+    """The suggested roles with ``carried`` (those confirmed for the same columns before) in
+    their place. A role only one column may have stays with the column that carried it: any
+    other column suggested for it is suggested as ignored instead."""
+    taken = {r.role for r in carried.values() if r.role in SINGLE_ROLES}
+    out = {c: (ColumnRole("ignore", units=r.units) if r.role in taken else r)
+           for c, r in suggested.items()}
+    return {**out, **carried}

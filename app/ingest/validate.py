@@ -12,11 +12,10 @@ from app.analysis.terms import factor_name_problem
 from .canonical import DesignTable, design_table, typed_frame
 from .errors import CELLS_LISTED_PER_COLUMN, IngestError, Problem, format_rows
 from .raw import RawTable
-from .roles import ColumnRole
+from .roles import SINGLE_ROLES, ColumnRole
 
 # Run order is a count of runs; beyond this a "whole number" from a float is no longer exact.
 _MAX_RUN_ORDER = 2**53
-_SINGLE_ROLES = {"run_order": "run order", "block": "block", "label": "label"}
 _ROLE_WORDS = {"factor": "factor", "response": "response", "run_order": "run order",
                "block": "block", "covariate": "covariate", "label": "label"}
 
@@ -154,7 +153,7 @@ def _check_roles(raw: RawTable, roles: dict[str, ColumnRole]) -> list[Problem]:
                                     column=name))
     if problems:
         return problems
-    for role, word in _SINGLE_ROLES.items():
+    for role, word in SINGLE_ROLES.items():
         named = [c for c, r in roles.items() if r.role == role and c in raw.frame.columns]
         if len(named) > 1:
             listed = " and ".join(f"'{c}'" for c in named)

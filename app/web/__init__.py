@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 
 from flask import Flask, g, jsonify, render_template, request
 from werkzeug.exceptions import HTTPException
@@ -90,10 +91,7 @@ def register(app: Flask) -> None:
     app.register_error_handler(Exception, _error)
     app.jinja_env.globals["csrf_token"] = csrf_token
     app.jinja_env.filters["fromjson"] = json.loads
-    # JSON shown as text to read (an event's values): characters as they are, escaped as HTML
-    # like any other text; tojson is for JSON placed in scripts and attributes
-    app.jinja_env.filters["json_text"] = lambda value: json.dumps(
-        value, ensure_ascii=False, sort_keys=True, default=str)
+    app.jinja_env.filters["json_text"] = json_text
     for module in (auth, account, admin, studies, data, api, fits, reviews, history, api_reviews,
                    setpoints, api_setpoints, api_teams, api_runs, api_predictions,
                    profiler, reports, api_reports, api_plans, plans):
@@ -104,3 +102,16 @@ def register(app: Flask) -> None:
     app.jinja_env.filters["setting"] = setting_text
     app.jinja_env.filters["utc"] = lambda dt: "" if dt is None else dt.strftime(
         "%Y-%m-%d %H:%M:%S UTC")
+
+
+# Characters that change how text around them reads without showing themselves: C1 controls,
+# and the marks and overrides of the Unicode bidirectional algorithm.
+_HIDDEN = re.compile("[\u007f-\u009f\u061c\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+
+
+def json_text(value) -> str:
+    """JSON shown as text to read (an event's values): characters as they are ('°C'), but
+    those that would hide or reorder text escaped as in JSON; HTML-escaped by the template
+    like any other text (``tojson`` is for JSON placed in scripts and attributes)."""
+    text = json.dumps(value, ensure_ascii=False, sort_keys=True, default=str)
+    return _HIDDEN.sub(lambda m: f"\\u{ord(m.group()):04x}", text)

@@ -27,6 +27,7 @@ from app.ingest import (
     read_upload,
     suggest_with_reasons,
     summarize_column,
+    with_carried,
 )
 from app.ingest.diff import MATCHED_BY_WORDS
 from app.store.db import get_session
@@ -137,7 +138,7 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
         # a new version of the study: its columns keep the roles confirmed last time
         carried_from, carried = uploads.carried_roles(get_session(), study.id,
                                                       [str(c) for c in raw.frame.columns])
-        roles = {**suggested, **carried}
+        roles = with_carried(suggested, carried)
         carried_from = carried_from if carried else None
     summary = [(summarize_column(raw, c), role_choice(suggested[c]), reasoned[c][1])
                for c in raw.frame.columns]

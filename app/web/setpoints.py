@@ -62,8 +62,9 @@ bp.add_app_template_global(setpoint_signoff.state_label, "setpoint_state_label")
 
 @bp.app_template_global("may_propose_setpoints")
 def may_propose_setpoints(study_id: int) -> bool:
-    """Whether the study has a fit that may drive setpoints (the study page's button)."""
-    return any(c["problem"] is None for c in _candidates(get_session(), study_id))
+    """Whether the study has an approved fit (the study page's button): its state, one row
+    read, as the audit trail records it; the form checks each fit's signatures in full."""
+    return setpoints.has_approved_fit(get_session(), study_id)
 
 
 bp.add_app_template_global(setpoint_export.goal_words, "goal_words")

@@ -344,6 +344,12 @@ def numbered_factors(session: Session, proposal: SetpointProposal) -> list[str]:
     return [n for n in factor_order(session, proposal) if n in numeric]
 
 
+def has_approved_fit(session: Session, study_id: int) -> bool:
+    """Whether any fit of the study is in the approved state."""
+    return session.scalar(select(Fit.id).where(Fit.study_id == study_id,
+                                               Fit.state == "approved").limit(1)) is not None
+
+
 def held_factors(proposal: SetpointProposal) -> list[str]:
     """The factors the engineer fixed for the search: continuous ones at a value, categorical
     ones at a level."""

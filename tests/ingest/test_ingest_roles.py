@@ -39,8 +39,34 @@ def test_a_slip_in_a_factor_column_is_refused_at_storing_naming_the_cell():
 
 
 def test_a_column_mostly_of_text_stays_text():
-    """More than one cell in five not numbers: a text column, as before."""
+    """More than one cell in five not numbers: a text column (here a categorical factor, as
+    any text column of few names used twice or more), not a factor read by its numbers."""
     from app.ingest import suggest_roles
 
-    text = "Lot,Y\n1,5\nB2,6\nC3,7\n1,8\nB2,9\nC3,10\n"
-    assert suggest_roles(read_upload(text.encode(), "runs.csv"))["Lot"].role != "factor"
+    text = "Grade,Y\n1,5\nB2,6\nC3,7\n1,8\nB2,9\nC3,10\n"
+    role = suggest_roles(read_upload(text.encode(), "runs.csv"))["Grade"]
+    assert (role.role, role.kind) == ("factor", "categorical")
+
+
+def test_one_number_and_a_slip_is_a_single_valued_column():
+    from app.ingest import suggest_with_reasons
+
+    text = "A,B,Y\n5,1,10\n5,2,11\n5,1,12\nn/a,2,13\n5,1,14\n"
+    role, why = suggest_with_reasons(read_upload(text.encode(), "runs.csv"))["A"]
+    assert role.role == "ignore" and why.startswith("one number in every filled row ('n/a'")
+
+
+def test_carried_roles_keep_a_single_role_with_the_column_that_had_it():
+    """Version 1 had 'Panel ID' as the run label; a new text column 'Sample' suggested as the
+    label is offered as ignored instead, so storing with the offered roles works."""
+    from app.ingest import ColumnRole, suggest_roles, validate, with_carried
+
+    text = "".join(["Sample,Panel ID,A,Y\n"] + [f"s{i},P{i},{i % 2},{10 + i}\n"
+                                                for i in range(8)])
+    raw = read_upload(text.encode(), "runs.csv")
+    suggested = suggest_roles(raw)
+    assert suggested["Sample"].role == "label"  # the first text column with a value per row
+    roles = with_carried(suggested, {"Panel ID": ColumnRole("label"),
+                                     "A": ColumnRole("factor", low=0.0, high=1.0)})
+    assert roles["Panel ID"].role == "label" and roles["Sample"].role == "ignore"
+    assert validate(raw, roles).label == "Panel ID"

@@ -343,3 +343,18 @@ def test_event_detail_shows_characters_as_they_are(db, actions, client, signed):
     assert "\\u00b0C" in new_json or "°C" in new_json
     page = client.get(f"/history/events/{event_id}").get_data(as_text=True)
     assert "°C" in page and "\\u00b0" not in page
+
+
+def test_event_json_text_escapes_what_would_hide_or_run(app):
+    """The filter behind the event page: characters as they are, right-to-left overrides and
+    C1 controls as JSON escapes, and markup left to the template's HTML escaping."""
+    from flask import render_template_string
+
+    from app.web import json_text
+
+    assert json_text({"units": "°C"}) == '{"units": "°C"}'
+    assert json_text(["a\u202eb", "\x85"]) == '["a\\u202eb", "\\u0085"]'
+    with app.test_request_context("/"):
+        html = render_template_string("<code>{{ v|json_text }}</code>",
+                                      v={"x": "</code><script>alert(1)</script>"})
+    assert "<script>" not in html and "&lt;script&gt;" in html
