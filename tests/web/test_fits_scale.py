@@ -48,6 +48,14 @@ def test_fit_page_lists_flagged_runs_not_every_run_and_charts_show_bins(actions,
     assert 0 < len(rows) <= fit_service.RUNS_PAGE_MAX
     assert {"100", "5000", "7"} <= set(rows)  # the planted errors and the run left out
     assert f'href="/api/v1/fits/{fit_id}/runs.csv"' in page
+    # no run labels in this file: no empty Run column; leverages near 2p/n = 0.0013 read in
+    # significant figures, not as 0.000
+    head = re.search(r'<table class="data runs">\s*<thead>(.*?)</thead>', page, re.S).group(1)
+    assert "<th>Run</th>" not in head and "<th>Order</th>" in head
+    planted = re.search(r'<tr data-row="100".*?</tr>', page, re.S).group(0)
+    cells = re.findall(r'<td class="num">(.*?)</td>', planted)
+    leverage = cells[6]
+    assert leverage != "0.000" and 0 < float(leverage) < 0.01
     charts = actions.client.get(f"/fits/{fit_id}/charts.json").get_json()["charts"]
     binned = [c for c in charts if "bins" in c["spec"].get("datasets", {})]
     assert len(binned) >= 8
