@@ -261,6 +261,15 @@ def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
         best = region.as_array({n: region.factors[i].to_coded(v)
                                 for i, (n, v) in enumerate(met_set["nearest_centre"].items())})
         check["proposal"]["from"] = "goal met over a set: its point nearest the design centre"
+    if single is None and all(g.goal == "target" for g in parsed.values()):
+        # every target met along a curve or surface (whose points the dense search meets only
+        # by chance): of those settings, the nearest the centre
+        nearer = _nearest_meeting_targets(region, best, surfaces, parsed, kept,
+                                          lambda c: big_d_at(np.atleast_2d(c))[0])
+        if nearer is not None:
+            best = nearer
+            check["proposal"]["from"] = ("every target met along a set of settings: its point "
+                                         "nearest the design centre")
     coded, settings = _point(region, best)
     preds = {r: predict(doc, settings) for r, doc in fits.results.items()}
 
@@ -304,6 +313,45 @@ def _propose_in(fits, region: Region, surfaces: dict, goals: dict, every: dict,
                                             "desirability above zero while keeping the limits; "
                                             "relax the goals"),
             "caution": CAUTION}
+
+
+def _nearest_meeting_targets(region: Region, start: np.ndarray, surfaces: dict, targets: dict,
+                             kept: dict, d_at) -> np.ndarray | None:
+    """The point nearest the design centre where every target response is predicted at its
+    target (and every limit kept), when ``start`` meets them all (D = 1 to a millionth):
+    targets are met along a curve or surface, and the search's point on it is arbitrary. None
+    when ``start`` does not meet them or no nearer point is found; the point returned is
+    checked to be inside the region and to meet them at least as well."""
+    start = np.asarray(start, dtype=float)
+    free = region.free
+    at_start = d_at(start)
+    if not free or at_start < 1.0 - TIE_D:  # the search's last digits aside, D = 1
+        return None
+    from scipy.optimize import minimize
+
+    def full(z: np.ndarray) -> np.ndarray:
+        x = start.copy()
+        x[free] = z
+        return x
+
+    constraints = [{"type": "eq", "fun": lambda z, r=r, t=g.target: float(
+        surfaces[r].response_scale(full(z)[None, :])[0]) - t} for r, g in targets.items()]
+    for r, g in kept.items():
+        constraints.append({"type": "ineq", "fun": lambda z, r=r, g=g: g.margins(
+            surfaces[r].response_scale(full(z)[None, :])).ravel()})
+    if region.kind == "sphere":
+        constraints.append({"type": "ineq",
+                            "fun": lambda z: region.radius**2 - float(np.sum(full(z) ** 2))})
+    bounds = [(region.lower[i], region.upper[i]) for i in free]
+    with np.errstate(all="ignore"):
+        found = minimize(lambda z: float(np.sum(full(z) ** 2)), start[free], method="SLSQP",
+                         bounds=bounds, constraints=constraints,
+                         options={"maxiter": 200, "ftol": 1e-12})
+    x = full(np.asarray(found.x, dtype=float))
+    if (not np.all(np.isfinite(x)) or not region.inside(x) or d_at(x) < min(MET, at_start)
+            or float(np.sum(x**2)) >= float(np.sum(start**2)) - 1e-9):
+        return None
+    return x
 
 
 def _score(doc: dict, single: tuple[str, str] | None) -> float:

@@ -180,3 +180,20 @@ def test_a_proposal_on_the_region_edge_says_so():
     # a target beyond the region's reach: the best is at the corner, and the note says so
     far = {"Y": {"goal": "target", "target": 14.0, "lower": 11.0, "upper": 15.0}}
     assert propose({"Y": hand_model(PLANE, 10.0, levels=LEVELS)}, far)["edge"] is not None
+
+
+def test_a_target_met_along_a_curve_proposes_its_point_nearest_the_centre():
+    """y = 10 + 2A + B + 0.5AB reaches the target 12 along the curve B = (2 - 2A)/(1 + 0.5A):
+    D = 1 all along it. The proposal is the curve's point nearest the design centre, found here
+    independently by walking the curve on a fine grid of A."""
+    doc = hand_model({"A": 2.0, "B": 1.0, "A:B": 0.5}, 10.0, levels=LEVELS)
+    out = propose({"Y": doc}, {"Y": {"goal": "target", "target": 12.0, "lower": 10.0,
+                                     "upper": 14.0}})
+    a = np.linspace(-1.0, 1.0, 2_000_001)
+    b = (2.0 - 2.0 * a) / (1.0 + 0.5 * a)
+    inside = np.abs(b) <= 1.0
+    nearest = int(np.argmin(np.where(inside, a**2 + b**2, np.inf)))
+    assert_allclose(coded_vector(out), [a[nearest], b[nearest]], atol=1e-4)
+    assert out["optimum"]["desirability"] > 1 - 1e-9
+    assert_allclose(out["optimum"]["predicted"]["Y"], 12.0, atol=1e-8)
+    assert out["check"]["proposal"]["from"].endswith("its point nearest the design centre")
