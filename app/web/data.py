@@ -136,10 +136,10 @@ def _preview_page(study, staged, raw: RawTable, roles: dict[str, ColumnRole] | N
     carried_from = None
     if roles is None:
         # a new version of the study: its columns keep the roles confirmed last time
-        carried_from, carried = uploads.carried_roles(get_session(), study.id,
-                                                      [str(c) for c in raw.frame.columns])
+        version, carried = uploads.carried_roles(get_session(), study.id,
+                                                 [str(c) for c in raw.frame.columns])
         roles = with_carried(suggested, carried)
-        carried_from = carried_from if carried else None
+        carried_from = version if carried else None
     summary = [(summarize_column(raw, c), role_choice(suggested[c]), reasoned[c][1])
                for c in raw.frame.columns]
     return render_template(

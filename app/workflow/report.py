@@ -171,7 +171,6 @@ def setpoint_context(session: Session, proposal: SetpointProposal) -> dict[str, 
             "snapshot": doc["snapshot_sha256"], "intact": doc["snapshot_intact"],
             "caution": doc["caution"],
             "factor_names": setpoints.factor_order(session, proposal),
-            "held": setpoints.held_factors(proposal),
             "result": setpoints.result_of(proposal)}
 
 
