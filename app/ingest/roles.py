@@ -196,8 +196,10 @@ def _mostly_numbers(raw: RawTable, column: str, filled: int) -> np.ndarray | Non
 
 
 def _numeric_role(units: str | None, words: set[str], n: int, filled: int,
-                  numbers: np.ndarray, distinct: int) -> tuple[ColumnRole, str]:
-    """The role suggested for a column of numbers (``numbers`` its distinct values)."""
+                  numbers: np.ndarray, distinct: int,
+                  every_row: str = "a number in every row") -> tuple[ColumnRole, str]:
+    """The role suggested for a column of numbers (``numbers`` its distinct values);
+    ``every_row`` says how its rows are filled when that makes it a factor."""
     blanks = n - filled
     if words & _COVARIATE_WORDS:
         return (ColumnRole("covariate", units=units, kind="numeric"),
@@ -205,7 +207,7 @@ def _numeric_role(units: str | None, words: set[str], n: int, filled: int,
     if filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n:
         low, high = suggest_levels(numbers.tolist())  # the distinct settings
         return (ColumnRole("factor", units=units, low=low, high=high),
-                f"a number in every row, {distinct} distinct settings")
+                f"{every_row}, {distinct} distinct settings")
     return ColumnRole("response", units=units), (
         f"numbers, {blanks} blank cell{'s' if blanks > 1 else ''} (a factor needs a setting in "
         "every row)" if blanks and distinct <= _MAX_FACTOR_LEVELS
@@ -245,9 +247,8 @@ def suggest_with_reasons(raw: RawTable) -> dict[str, tuple[ColumnRole, str]]:
             if len(typed) <= 1:
                 role, why = ColumnRole("ignore", units=units), "one number in every filled row"
             else:
-                role, why = _numeric_role(units, words, n, filled, typed, len(typed))
-                why = why.replace("a number in every row", "a number in every row but the "
-                                  "slips")
+                role, why = _numeric_role(units, words, n, filled, typed, len(typed),
+                                          "a number in every row but the slips")
             why += _text_note(raw, column, filled, "; correct it, or storing names it")
         elif (filled == n and distinct <= _MAX_FACTOR_LEVELS and distinct * 2 <= n
               and not words & _COVARIATE_WORDS):
